@@ -1,0 +1,19 @@
+"""orbitledger's numerical core: pure computation, no database, files or CLI."""
+
+from .base import AdvanceResult, Integrator
+from .constants import C_AU_PER_DAY, G, GAUSS_K, YEAR_D
+from .correctors import ORDERS as CORRECTOR_ORDERS
+from .errors import IntegratorError
+from .kepler import propagate, stumpff
+from .leapfrog import Leapfrog
+from .stops import StopConditions, StopKind
+from .system import System
+from .wisdom_holman import WisdomHolman
+
+METHODS = {WisdomHolman.method: WisdomHolman, Leapfrog.method: Leapfrog}
+
+__all__ = [
+    "AdvanceResult", "Integrator", "C_AU_PER_DAY", "G", "GAUSS_K", "YEAR_D",
+    "CORRECTOR_ORDERS", "IntegratorError", "propagate", "stumpff", "Leapfrog",
+    "StopConditions", "StopKind", "System", "WisdomHolman", "METHODS",
+]

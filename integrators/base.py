@@ -1,0 +1,161 @@
+"""The small interface all methods share, scipy-solver-like.
+
+A method subclass owns its internal arrays and implements ``_advance_impl``;
+the base class owns the step counter, time bookkeeping, results and state
+capture.
+"""
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .errors import IntegratorError
+from .nbody import angular_momentum, energy
+from .stops import KIND_BY_CODE, StopConditions, StopKind
+
+# Format tag of state_arrays(); bump when the layout changes.
+STATE_FORMAT = 1
+
+
+@dataclass(frozen=True)
+class AdvanceResult:
+    """What one :meth:`Integrator.advance` call did.
+
+    Attributes
+    ----------
+    steps : int
+        Steps taken in this call.
+    kind : StopKind
+        ``DONE`` if all requested steps ran, else the stop condition met.
+    bodies : tuple of int
+        Indices of the bodies involved in a stop (empty when done).
+    step : int
+        The integrator's step counter after the call.
+    """
+
+    steps: int
+    kind: StopKind
+    bodies: tuple
+    step: int
+
+    @property
+    def stopped(self):
+        """True if a stop condition ended the call early."""
+        return self.kind is not StopKind.DONE
+
+
+class Integrator:
+    """Base class: build from a System and a step, then ``advance(n_steps)``.
+
+    Subclasses set ``method`` and implement ``_advance_impl(n) -> (steps, code,
+    a, b)``, ``_synchronized_state() -> (x, v)`` (inertial) and their own
+    ``_to_internal`` set-up. Time is ``t0 + step * dt`` (no accumulated sum).
+    """
+
+    method = "base"
+
+    def __init__(self, system, dt, stops=None):
+        dt = float(dt)
+        if not (np.isfinite(dt) and dt != 0.0):
+            raise ValueError(f"step dt must be finite and non-zero, got {dt}.")
+        self.names = list(system.names)
+        self.gm = system.gm.copy()
+        self.radii = system.radii.copy()
+        self.dt = dt
+        self.t0 = float(system.time)
+        self.step = 0
+        self.stops = stops or StopConditions()
+        self._stop_pairs, self._stop_params = self.stops.kernel_args(self.gm)
+
+    # -- the interface -------------------------------------------------------
+    @property
+    def time(self):
+        """Physical time of the synchronized state, days."""
+        return self.t0 + self.step * self.dt
+
+    def advance(self, n_steps):
+        """Take up to n_steps steps; stop early if a stop condition is met."""
+        n_steps = int(n_steps)
+        if n_steps < 0:
+            raise ValueError(f"n_steps must be >= 0, got {n_steps}.")
+        if n_steps == 0:
+            return AdvanceResult(0, StopKind.DONE, (), self.step)
+        steps, code, a, b = self._advance_impl(n_steps)
+        self.step += int(steps)
+        bodies = tuple(int(k) for k in (a, b) if k >= 0)
+        return AdvanceResult(int(steps), KIND_BY_CODE[code], bodies, self.step)
+
+    def synchronized(self):
+        """The physical state now, as a new barycentric :class:`System` (a copy)."""
+        from .system import System
+
+        x, v = self._synchronized_state()
+        return System(list(self.names), self.gm.copy(), x, v, self.time, self.radii.copy())
+
+    def energy(self):
+        """Total energy of the synchronized state, Msun au^2 / d^2."""
+        x, v = self._synchronized_state()
+        return energy(x, v, self.gm, self._gr_coef())
+
+    def angular_momentum(self):
+        """Total angular momentum vector of the synchronized state, Msun au^2 / d."""
+        x, v = self._synchronized_state()
+        return angular_momentum(x, v, self.gm)
+
+    def elements(self, frame="heliocentric", degrees=True):
+        """Orbital elements of the synchronized state; see System.elements."""
+        return self.synchronized().elements(frame=frame, degrees=degrees)
+
+    def _gr_coef(self):
+        return 0.0
+
+    # -- exact state capture -------------------------------------------------
+    def state_arrays(self):
+        """Everything needed to continue bit for bit, as plain numpy arrays.
+
+        Returns a dict of str -> ndarray (no pickle): the method, the internal
+        coordinates, the pending-drift flag, the step counter and settings.
+        """
+        out = {
+            "format": np.array([STATE_FORMAT], dtype=np.int64),
+            "method": np.frombuffer(self.method.encode("ascii"), dtype=np.uint8).copy(),
+            "names": np.array(self.names, dtype=np.str_),
+            "gm": self.gm.copy(),
+            "radii": self.radii.copy(),
+            "dt": np.array([self.dt]),
+            "t0": np.array([self.t0]),
+            "step": np.array([self.step], dtype=np.int64),
+            "stops": np.array([self.stops.hill, self.stops.eject_distance,
+                               float(self.stops.unbound), self.stops.unbound_distance,
+                               self.stops.star_radius, self.stops.max_ecc]),
+        }
+        out.update(self._internal_arrays())
+        return out
+
+    @staticmethod
+    def from_state_arrays(arrays):
+        """Rebuild an integrator of the right method from :meth:`state_arrays` output."""
+        from .leapfrog import Leapfrog
+        from .wisdom_holman import WisdomHolman
+
+        fmt = int(np.asarray(arrays["format"])[0])
+        if fmt != STATE_FORMAT:
+            raise IntegratorError(f"state format {fmt} is not supported (expected {STATE_FORMAT}).")
+        method = bytes(np.asarray(arrays["method"], dtype=np.uint8)).decode("ascii")
+        classes = {WisdomHolman.method: WisdomHolman, Leapfrog.method: Leapfrog}
+        if method not in classes:
+            raise IntegratorError(f"unknown method {method!r} in state arrays.")
+        cls = classes[method]
+        obj = cls.__new__(cls)
+        obj.names = [str(s) for s in np.asarray(arrays["names"])]
+        obj.gm = np.array(arrays["gm"], dtype=np.float64)
+        obj.radii = np.array(arrays["radii"], dtype=np.float64)
+        obj.dt = float(np.asarray(arrays["dt"])[0])
+        obj.t0 = float(np.asarray(arrays["t0"])[0])
+        obj.step = int(np.asarray(arrays["step"])[0])
+        s = np.asarray(arrays["stops"], dtype=np.float64)
+        obj.stops = StopConditions(float(s[0]), float(s[1]), bool(s[2]), float(s[3]),
+                                   float(s[4]), float(s[5]))
+        obj._stop_pairs, obj._stop_params = obj.stops.kernel_args(obj.gm)
+        obj._restore_internal(arrays)
+        return obj

@@ -1,0 +1,5 @@
+"""The numerical core's base error."""
+
+
+class IntegratorError(Exception):
+    """Base class of errors raised by the numerical core."""

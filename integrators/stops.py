@@ -1,0 +1,140 @@
+"""Stop conditions checked inside the kernels.
+
+Checked after every kick on the positions the kick used (for the
+drift-kick-drift map these are the mid-step positions), so a stop costs no
+extra synchronisation. Kinds are small integers inside the kernels and
+:class:`StopKind` values outside.
+"""
+
+from dataclasses import dataclass
+from enum import Enum
+import math
+
+import numpy as np
+from numba import njit
+
+
+class StopKind(str, Enum):
+    """Why an :meth:`advance` call ended."""
+
+    DONE = "done"
+    CLOSE_ENCOUNTER = "close_encounter"
+    EJECTION = "ejection"
+    STAR_COLLISION = "star_collision"
+    ECCENTRICITY = "eccentricity"
+
+
+# Kernel codes, index into KIND_BY_CODE.
+KIND_BY_CODE = (StopKind.DONE, StopKind.CLOSE_ENCOUNTER, StopKind.EJECTION,
+                StopKind.STAR_COLLISION, StopKind.ECCENTRICITY)
+
+
+@dataclass(frozen=True)
+class StopConditions:
+    """Limits that end an integration early. A value of 0 (or False) disables it.
+
+    Parameters
+    ----------
+    hill : float
+        Close encounter when two bodies (star excluded) come closer than this
+        many mutual Hill radii, R_H = ((m_i + m_j) / (3 m0))^(1/3) (r_i + r_j) / 2
+        with r the current distances from the star.
+    eject_distance : float
+        Ejection when a body is farther than this from the star, au.
+    unbound : bool
+        Also count a body as ejected when its Jacobi two-body energy is positive
+        and it is beyond ``unbound_distance`` from the star.
+    unbound_distance : float
+        See ``unbound``, au.
+    star_radius : float
+        Collision with the star when a body comes closer than this, au.
+    max_ecc : float
+        Stop when a body's Jacobi osculating eccentricity exceeds this.
+    """
+
+    hill: float = 0.0
+    eject_distance: float = 0.0
+    unbound: bool = False
+    unbound_distance: float = 0.0
+    star_radius: float = 0.0
+    max_ecc: float = 0.0
+
+    def __post_init__(self):
+        for name in ("hill", "eject_distance", "unbound_distance", "star_radius", "max_ecc"):
+            val = getattr(self, name)
+            if not (math.isfinite(val) and val >= 0.0):
+                raise ValueError(f"stop condition {name} must be finite and >= 0, got {val}.")
+
+    @property
+    def active(self):
+        """True if any condition is enabled."""
+        return bool(self.hill or self.eject_distance or self.unbound or self.star_radius
+                    or self.max_ecc)
+
+    def kernel_args(self, gm):
+        """Arrays and scalars the kernels take: (hill_pairs, params)."""
+        n = len(gm)
+        pairs = np.zeros((n, n))
+        if self.hill > 0.0:
+            for i in range(1, n):
+                for j in range(i + 1, n):
+                    f = self.hill * ((gm[i] + gm[j]) / (3.0 * gm[0])) ** (1.0 / 3.0) * 0.5
+                    pairs[i, j] = pairs[j, i] = f
+        params = np.array([1.0 if self.active else 0.0, self.hill, self.eject_distance,
+                           1.0 if self.unbound else 0.0, self.unbound_distance,
+                           self.star_radius, self.max_ecc])
+        return pairs, params
+
+
+@njit(cache=True, error_model="numpy")
+def check_stops(xi, xj, vj, mu, pairs, params):
+    """Return (code, body_a, body_b) for the first condition met, or (0, -1, -1).
+
+    xi: inertial positions (n, 3); xj, vj: Jacobi state; mu: Jacobi Kepler mu.
+    """
+    n = xi.shape[0]
+    eject = params[2]
+    unbound = params[3] > 0.0
+    unbound_r = params[4]
+    r_star = params[5]
+    e_max = params[6]
+    rh = np.empty(n)
+    for i in range(1, n):
+        dx = xi[i, 0] - xi[0, 0]
+        dy = xi[i, 1] - xi[0, 1]
+        dz = xi[i, 2] - xi[0, 2]
+        r = np.sqrt(dx * dx + dy * dy + dz * dz)
+        rh[i] = r
+        if r_star > 0.0 and r < r_star:
+            return 3, i, 0
+        if eject > 0.0 and r > eject:
+            return 2, i, -1
+        if unbound or e_max > 0.0:
+            x0 = xj[i, 0]
+            x1 = xj[i, 1]
+            x2 = xj[i, 2]
+            v0 = vj[i, 0]
+            v1 = vj[i, 1]
+            v2 = vj[i, 2]
+            rj = np.sqrt(x0 * x0 + x1 * x1 + x2 * x2)
+            vsq = v0 * v0 + v1 * v1 + v2 * v2
+            if unbound and r > unbound_r and 0.5 * vsq - mu[i] / rj > 0.0:
+                return 2, i, -1
+            if e_max > 0.0:
+                rv = x0 * v0 + x1 * v1 + x2 * v2
+                p = vsq - mu[i] / rj
+                e0 = (p * x0 - rv * v0) / mu[i]
+                e1 = (p * x1 - rv * v1) / mu[i]
+                e2 = (p * x2 - rv * v2) / mu[i]
+                if e0 * e0 + e1 * e1 + e2 * e2 > e_max * e_max:
+                    return 4, i, -1
+    if params[1] > 0.0:
+        for i in range(1, n):
+            for j in range(i + 1, n):
+                dx = xi[j, 0] - xi[i, 0]
+                dy = xi[j, 1] - xi[i, 1]
+                dz = xi[j, 2] - xi[i, 2]
+                lim = pairs[i, j] * (rh[i] + rh[j])
+                if dx * dx + dy * dy + dz * dz < lim * lim:
+                    return 1, i, j
+    return 0, -1, -1

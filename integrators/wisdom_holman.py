@@ -1,0 +1,201 @@
+"""The Wisdom-Holman map in Jacobi coordinates (Wisdom & Holman 1991).
+
+Drift-kick-drift: each planet's Jacobi orbit drifts on its Kepler ellipse
+(universal variables, :mod:`integrators.kepler`), then all velocities get the
+interaction kick. The two half-drifts of consecutive steps are merged into one
+full drift: the internal state after ``advance`` owes one half-drift (the
+*pending* flag), and outputs are taken on a synchronized copy, so the
+trajectory does not depend on how often outputs are taken or where a run is
+split. Optional symplectic correctors (Wisdom, Holman & Touma 1996) are applied
+to the initial conditions and, inverted, to every output copy. An optional
+general-relativistic term of the star (Nobili & Roxburgh 1986) joins the kick.
+"""
+
+import numpy as np
+from numba import njit
+
+from . import correctors
+from .base import Integrator
+from .kepler import drift_row
+from .nbody import accelerations, gr_coefficient
+from .stops import check_stops
+from .system import inertial_from_jacobi, jacobi_from_inertial, jacobi_mu
+
+
+@njit(cache=True, error_model="numpy")
+def drift_all(xj, vj, mu, h):
+    """Kepler drift of every Jacobi orbit by h; the centre of mass moves uniformly."""
+    n = xj.shape[0]
+    xj[0, 0] += vj[0, 0] * h
+    xj[0, 1] += vj[0, 1] * h
+    xj[0, 2] += vj[0, 2] * h
+    for i in range(1, n):
+        drift_row(xj, vj, i, mu[i], h)
+
+
+@njit(cache=True, error_model="numpy")
+def to_inertial(xj, gm, eta, xi):
+    """Inertial positions from Jacobi positions into xi (see system.inertial_from_jacobi)."""
+    n = xj.shape[0]
+    c0 = xj[0, 0]
+    c1 = xj[0, 1]
+    c2 = xj[0, 2]
+    for i in range(n - 1, 0, -1):
+        q = gm[i] / eta[i]
+        c0 = c0 - q * xj[i, 0]
+        c1 = c1 - q * xj[i, 1]
+        c2 = c2 - q * xj[i, 2]
+        xi[i, 0] = c0 + xj[i, 0]
+        xi[i, 1] = c1 + xj[i, 1]
+        xi[i, 2] = c2 + xj[i, 2]
+    xi[0, 0] = c0
+    xi[0, 1] = c1
+    xi[0, 2] = c2
+
+
+@njit(cache=True, error_model="numpy")
+def kick(xj, vj, gm, mu, eta, h, gr_coef, xi, acc):
+    """Interaction kick of the Jacobi velocities by h.
+
+    The Jacobi acceleration is the Jacobi transform of the inertial
+    accelerations (the map is linear, Wisdom & Holman 1991 sec. 3) plus
+    +mu_i x'_i / r'_i^3, which removes the Kepler part already in the drift.
+    xi and acc are scratch arrays (n, 3).
+    """
+    n = xj.shape[0]
+    to_inertial(xj, gm, eta, xi)
+    accelerations(xi, gm, gr_coef, acc)
+    a0 = acc[0, 0]
+    a1 = acc[0, 1]
+    a2 = acc[0, 2]
+    for i in range(1, n):
+        x0 = xj[i, 0]
+        x1 = xj[i, 1]
+        x2 = xj[i, 2]
+        r2 = x0 * x0 + x1 * x1 + x2 * x2
+        k = mu[i] / (r2 * np.sqrt(r2))
+        aj0 = acc[i, 0] - a0
+        aj1 = acc[i, 1] - a1
+        aj2 = acc[i, 2] - a2
+        vj[i, 0] += h * (aj0 + k * x0)
+        vj[i, 1] += h * (aj1 + k * x1)
+        vj[i, 2] += h * (aj2 + k * x2)
+        q = gm[i] / eta[i]
+        a0 = a0 + q * aj0
+        a1 = a1 + q * aj1
+        a2 = a2 + q * aj2
+
+
+@njit(cache=True, error_model="numpy")
+def wh_steps(xj, vj, gm, mu, eta, dt, n_steps, pending, gr_coef, pairs, params, xi, acc):
+    """Take n_steps merged drift-kick-drift steps in place.
+
+    Returns (steps taken, pending flag, stop code, body a, body b).
+    """
+    half = 0.5 * dt
+    check = params[0] > 0.0
+    for k in range(n_steps):
+        if pending:
+            drift_all(xj, vj, mu, dt)
+        else:
+            drift_all(xj, vj, mu, half)
+            pending = True
+        kick(xj, vj, gm, mu, eta, dt, gr_coef, xi, acc)
+        if check:
+            code, a, b = check_stops(xi, xj, vj, mu, pairs, params)
+            if code != 0:
+                return k + 1, pending, code, a, b
+    return n_steps, pending, 0, -1, -1
+
+
+@njit(cache=True, error_model="numpy")
+def apply_stages(xj, vj, gm, mu, eta, dt, gr_coef, a_arr, c_arr, xi, acc):
+    """Apply X(a, c) = drift(a dt) kick(c dt) drift(-a dt) for each stage in order."""
+    for s in range(a_arr.shape[0]):
+        drift_all(xj, vj, mu, a_arr[s] * dt)
+        kick(xj, vj, gm, mu, eta, c_arr[s] * dt, gr_coef, xi, acc)
+        drift_all(xj, vj, mu, -a_arr[s] * dt)
+
+
+def _stage_arrays(order, sign):
+    st = correctors.stages(order, sign)
+    return (np.array([a for a, _ in st], dtype=np.float64),
+            np.array([c for _, c in st], dtype=np.float64))
+
+
+class WisdomHolman(Integrator):
+    """Wisdom-Holman map with merged drifts, optional corrector and GR.
+
+    Parameters
+    ----------
+    system : System
+        Initial physical state (any inertial frame).
+    dt : float
+        Step, days; negative integrates backward.
+    corrector : int
+        Order of the symplectic corrector: 0 (none), 3, 5, 7, 9, 11 or 17.
+    gr : bool
+        Add the star's general-relativistic potential (Nobili & Roxburgh 1986).
+    stops : StopConditions, optional
+    """
+
+    method = "wisdom_holman"
+
+    def __init__(self, system, dt, corrector=0, gr=False, stops=None):
+        super().__init__(system, dt, stops)
+        if corrector not in correctors.ORDERS:
+            raise ValueError(f"corrector must be one of {correctors.ORDERS}, got {corrector}.")
+        self.corrector = int(corrector)
+        self.gr = bool(gr)
+        self._derive()
+        self.xj = jacobi_from_inertial(self.gm, system.x)
+        self.vj = jacobi_from_inertial(self.gm, system.v)
+        self.pending = False
+        if self.corrector:
+            a, c = _stage_arrays(self.corrector, +1.0)
+            apply_stages(self.xj, self.vj, self.gm, self.mu, self.eta, self.dt,
+                         self.gr_coef, a, c, self._xi, self._acc)
+
+    def _derive(self):
+        # Quantities fixed by gm and settings; recomputed (deterministically) on restore.
+        self.mu = jacobi_mu(self.gm)
+        self.eta = np.cumsum(self.gm)
+        self.gr_coef = gr_coefficient(self.gm[0]) if self.gr else 0.0
+        n = len(self.gm)
+        self._xi = np.zeros((n, 3))
+        self._acc = np.zeros((n, 3))
+        self._inv = _stage_arrays(self.corrector, -1.0)
+
+    def _gr_coef(self):
+        return self.gr_coef
+
+    def _advance_impl(self, n):
+        steps, self.pending, code, a, b = wh_steps(
+            self.xj, self.vj, self.gm, self.mu, self.eta, self.dt, n, self.pending,
+            self.gr_coef, self._stop_pairs, self._stop_params, self._xi, self._acc)
+        return steps, code, a, b
+
+    def _synchronized_state(self):
+        xj = self.xj.copy()
+        vj = self.vj.copy()
+        if self.pending:
+            drift_all(xj, vj, self.mu, 0.5 * self.dt)
+        if self.corrector:
+            a, c = self._inv
+            apply_stages(xj, vj, self.gm, self.mu, self.eta, self.dt, self.gr_coef,
+                         a, c, self._xi.copy(), self._acc.copy())
+        return inertial_from_jacobi(self.gm, xj), inertial_from_jacobi(self.gm, vj)
+
+    def _internal_arrays(self):
+        return {"xj": self.xj.copy(), "vj": self.vj.copy(),
+                "pending": np.array([int(self.pending)], dtype=np.int64),
+                "settings": np.array([self.corrector, int(self.gr)], dtype=np.int64)}
+
+    def _restore_internal(self, arrays):
+        self.xj = np.array(arrays["xj"], dtype=np.float64)
+        self.vj = np.array(arrays["vj"], dtype=np.float64)
+        self.pending = bool(int(np.asarray(arrays["pending"])[0]))
+        settings = np.asarray(arrays["settings"])
+        self.corrector = int(settings[0])
+        self.gr = bool(settings[1])
+        self._derive()
