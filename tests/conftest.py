@@ -1,0 +1,41 @@
+"""Shared fixtures: published solar-system data for checks (tests only)."""
+
+import numpy as np
+import pytest
+
+from integrators import System
+
+# Standish & Williams, "Keplerian Elements for Approximate Positions of the
+# Major Planets", Table 1 (J2000, 1800-2050): a (au), e, I, L, long.peri,
+# long.node (deg). Values as in ../shared/CHECKS.md.
+STANDISH = {
+    "Mercury": (0.38709927, 0.20563593, 7.00497902, 252.25032350, 77.45779628, 48.33076593),
+    "Jupiter": (5.20288700, 0.04838624, 1.30439695, 34.39644051, 14.72847983, 100.47390909),
+    "Saturn": (9.53667594, 0.05386179, 2.48599187, 49.95424423, 92.59887831, 113.66242448),
+}
+# Sun/planet mass ratios, IAU 2009 system.
+MASS_RATIO = {"Mercury": 6023600.0, "Jupiter": 1047.348644, "Saturn": 3497.9018}
+
+
+def standish_elements(name):
+    """(a, e, i, node, arg. of pericentre, mean anomaly) in degrees from Table 1."""
+    a, e, inc, lon, lperi, node = STANDISH[name]
+    return [a, e, inc, node, lperi - node, lon - lperi]
+
+
+def solar_subset(names, mass_scale=1.0):
+    """The Sun and the named planets from the published elements."""
+    masses = [1.0] + [mass_scale / MASS_RATIO[n] for n in names]
+    return System.from_elements(["Sun"] + list(names), masses,
+                                [standish_elements(n) for n in names])
+
+
+@pytest.fixture
+def jupiter_saturn():
+    return solar_subset(["Jupiter", "Saturn"])
+
+
+def state_bytes(integrator):
+    """All state arrays concatenated as bytes, for bit-for-bit comparisons."""
+    arrs = integrator.state_arrays()
+    return b"".join(k.encode() + np.ascontiguousarray(arrs[k]).tobytes() for k in sorted(arrs))
