@@ -1,0 +1,34 @@
+"""Defaults of the runner, in one place."""
+
+# Environment variable naming the workspace folder.
+ENV_WORKSPACE = "ORBITLEDGER_WORKSPACE"
+# Environment variable holding a database URL (overrides the workspace's SQLite file).
+ENV_DB = "ORBITLEDGER_DB"
+# Workspace folder used when neither option nor environment names one.
+DEFAULT_WORKSPACE = "ledger"
+# SQLite file name inside the workspace.
+SQLITE_NAME = "ledger.sqlite"
+# Checkpoint store folder inside the workspace.
+STORE_NAME = "store"
+# SQLite busy timeout, milliseconds.
+SQLITE_BUSY_MS = 30_000
+# Lease length a claim or heartbeat grants, seconds.
+LEASE_SECONDS = 60.0
+# Heartbeat interval, seconds (well inside the lease).
+HEARTBEAT_SECONDS = 10.0
+# Most steps one kernel call takes before the worker looks at clocks and signals.
+MAX_STEPS_PER_CALL = 50_000
+# Output cadence when a spec gives none, steps.
+DEFAULT_OUTPUT_STEPS = 1_000
+# Chunk (checkpoint interval) when a spec gives none, in outputs.
+DEFAULT_CHUNK_OUTPUTS = 1_000
+# Samples per Zarr chunk along the sample dimension.
+SAMPLE_CHUNK = 4_096
+# Exit code of `work` when work remains (stopped by signal or deadline).
+EXIT_WORK_REMAINS = 3
+# Exit code of `work` when a worker failed.
+EXIT_FAILED = 1
+# Largest spec file accepted, bytes.
+MAX_SPEC_BYTES = 1_000_000
+# Most bodies in one system.
+MAX_BODIES = 1_000

@@ -1,0 +1,435 @@
+"""Ledger operations: submit, claim, heartbeat, fenced commit, hold, cancel, extend.
+
+Guarantee (see docs/guarantees in the user guide): a stretch of integration is
+committed at most once, by the worker holding the current fencing token, in
+one transaction that records the checkpoint and advances progress together.
+A crash anywhere leaves the last committed checkpoint intact.
+"""
+
+from dataclasses import dataclass
+import json
+import time
+
+import numpy as np
+from sqlalchemy import and_, func, insert, or_, select, update
+
+from . import defaults
+from .db import checkpoints, create_schema, events, is_sqlite, jobs, make_engine, segments
+from .errors import FencedError, LedgerError, NotFoundError
+from .spec import canonical_json, resolve, spec_sha256
+from .status import JobStatus, check_transition
+from .store import Store, chain_sha256
+
+GENESIS = "0" * 64  # chain link before checkpoint 0
+
+
+@dataclass(frozen=True)
+class Claim:
+    """A worker's hold on one job: valid while its fencing token is current."""
+
+    job_id: int
+    fence: int
+    owner: str
+    lease_expires: float
+
+
+@dataclass(frozen=True)
+class CommitResult:
+    """What the ledger did with a commit: the job's status afterwards and why."""
+
+    status: JobStatus
+    total_steps: int
+    requested: str | None
+
+
+def _now(now):
+    return time.time() if now is None else float(now)
+
+
+class Ledger:
+    """The job ledger over one database and one checkpoint store.
+
+    Parameters
+    ----------
+    url : str
+        SQLAlchemy database URL (sqlite:///... or postgresql+psycopg://...).
+    store_root : str or Path
+        Folder of the Zarr checkpoint store.
+    lease_seconds : float
+        Lease granted by claims and heartbeats.
+    """
+
+    def __init__(self, url, store_root, lease_seconds=defaults.LEASE_SECONDS):
+        self.url = url
+        self.engine = make_engine(url)
+        self.store = Store(store_root)
+        self.lease_seconds = float(lease_seconds)
+        create_schema(self.engine)
+
+    def close(self):
+        """Release database connections."""
+        self.engine.dispose()
+
+    # -- the one place status changes ------------------------------------------
+    def _transition(self, conn, job_id, old, new, where=(), **fields):
+        """Change status old -> new (checked against the table), with extra fields.
+
+        Raises FencedError if the row no longer matches (status changed or,
+        with a fence in ``where``, the lease was taken over).
+        """
+        check_transition(job_id, old, new)
+        cond = [jobs.c.id == job_id, jobs.c.status == JobStatus(old).value, *where]
+        res = conn.execute(update(jobs).where(and_(*cond)).values(
+            status=JobStatus(new).value, **fields))
+        if res.rowcount != 1:
+            raise FencedError(f"job {job_id} changed under this operation "
+                              f"(expected {JobStatus(old).value}); nothing was written.")
+
+    def _row(self, conn, job_id, lock=False):
+        q = select(jobs).where(jobs.c.id == job_id)
+        if lock and not is_sqlite(self.engine):
+            q = q.with_for_update()
+        row = conn.execute(q).mappings().first()
+        if row is None:
+            raise NotFoundError(f"no job {job_id} in this ledger.")
+        return row
+
+    # -- submit -------------------------------------------------------------------
+    def submit(self, spec, now=None, priority=0, ensemble_id=None, plan=None,
+               integrator=None, parent=None):
+        """Queue a validated spec; writes checkpoint 0 and the first sample. Returns the id.
+
+        ``integrator`` may give the exact starting state (e.g. a backward run
+        from a forward job's checkpoint); otherwise the spec's system is used.
+        """
+        now = _now(now)
+        plan = plan or resolve(spec)
+        integ = integrator if integrator is not None else plan.make_integrator()
+        sysm = integ.synchronized()
+        energy0 = integ.energy()
+        angmom0 = integ.angular_momentum()
+        from .sampling import sample_now
+
+        first = sample_now(integ, energy0, angmom0)
+        with self.engine.begin() as conn:
+            job_id = conn.execute(insert(jobs).values(
+                name=spec.name, spec_json=canonical_json(spec), spec_sha256=spec_sha256(spec),
+                status=JobStatus.QUEUED.value, method=plan.method, n_bodies=sysm.n, dt=plan.dt,
+                total_steps=integ.step + plan.total_steps if parent else plan.total_steps,
+                chunk_steps=plan.chunk_steps, output_steps=plan.output_steps,
+                steps_done=integ.step, n_checkpoints=0, n_samples=1, energy0=energy0,
+                angmom0=json.dumps([float(q) for q in angmom0]), fence=0, priority=priority,
+                ensemble_id=ensemble_id,
+                parent_job_id=None if parent is None else parent[0],
+                parent_checkpoint=None if parent is None else parent[1],
+                created_at=now, updated_at=now)).inserted_primary_key[0]
+            # The store is written inside the open transaction: if it fails the
+            # job row is rolled back and nothing is left in the ledger.
+            self.store.create_job(job_id, sysm.names)
+            digest = self.store.write_checkpoint(job_id, 0, 0, integ.state_arrays())
+            s_hash = self.store.write_samples(job_id, 0, first)
+            conn.execute(insert(checkpoints).values(
+                job_id=job_id, idx=0, step=integ.step, time=integ.time, fence=0,
+                state_sha256=digest, chain_sha256=chain_sha256(GENESIS, digest, s_hash),
+                samples_sha256=s_hash, n_samples=1, energy_error=0.0, angmom_error=0.0,
+                created_at=now))
+        return int(job_id)
+
+    # -- claim / heartbeat ----------------------------------------------------------
+    def claim(self, owner, now=None, job_id=None, order="breadth"):
+        """Claim one runnable job (queued, or running with an expired lease).
+
+        One atomic update sets the owner, the lease expiry and a new fencing
+        token. Returns a :class:`Claim` or None if nothing is runnable.
+        """
+        now = _now(now)
+        runnable = or_(jobs.c.status == JobStatus.QUEUED.value,
+                       and_(jobs.c.status == JobStatus.RUNNING.value, jobs.c.lease_expires < now))
+        q = select(jobs.c.id, jobs.c.status, jobs.c.fence).where(runnable)
+        if job_id is not None:
+            q = q.where(jobs.c.id == job_id)
+        if order == "breadth":
+            q = q.order_by(jobs.c.priority.desc(), jobs.c.steps_done, jobs.c.id)
+        else:
+            q = q.order_by(jobs.c.priority.desc(), jobs.c.steps_done.desc(), jobs.c.id)
+        q = q.limit(1)
+        if not is_sqlite(self.engine):
+            q = q.with_for_update(skip_locked=True)
+        with self.engine.begin() as conn:
+            row = conn.execute(q).mappings().first()
+            if row is None:
+                return None
+            fence = int(row["fence"]) + 1
+            expires = now + self.lease_seconds
+            self._transition(conn, row["id"], row["status"], JobStatus.RUNNING,
+                             where=(jobs.c.fence == row["fence"],),
+                             owner=owner, lease_expires=expires, fence=fence, updated_at=now)
+            if row["status"] == JobStatus.RUNNING.value:
+                self._event(conn, row["id"], "lease_taken_over", None, None, None,
+                            {"new_owner": owner, "fence": fence}, now)
+        return Claim(int(row["id"]), fence, owner, expires)
+
+    def heartbeat(self, claim, now=None):
+        """Extend the lease; returns the job's pending request ('hold', 'cancel' or None).
+
+        Raises FencedError if the lease was taken over.
+        """
+        now = _now(now)
+        with self.engine.begin() as conn:
+            res = conn.execute(update(jobs).where(and_(
+                jobs.c.id == claim.job_id, jobs.c.fence == claim.fence,
+                jobs.c.status == JobStatus.RUNNING.value)).values(
+                    lease_expires=now + self.lease_seconds))
+            if res.rowcount != 1:
+                raise FencedError(f"job {claim.job_id}: lease with token {claim.fence} "
+                                  "is no longer held; discarding uncommitted work.")
+            return conn.execute(select(jobs.c.requested).where(
+                jobs.c.id == claim.job_id)).scalar()
+
+    # -- the fenced commit -------------------------------------------------------------
+    def commit_checkpoint(self, claim, *, idx, step, time_, state_hash, samples_hash,
+                          n_samples, energy_error, angmom_error, max_energy_error,
+                          max_angmom_error, then, outcome=None, reason=None,
+                          segment_id=None, wall_seconds=0.0, rate=None, now=None):
+        """Record checkpoint idx and advance progress, only under the current fence.
+
+        ``then`` says what the worker wants next: "continue", "release" (work
+        remains, let another worker take it), "done", "stopped" (with
+        ``outcome`` = (kind, step, time, bodies)), "held" (with ``reason``).
+        A pending user request (hold, cancel) and an extension made meanwhile
+        are applied here. Returns a :class:`CommitResult`.
+        """
+        now = _now(now)
+        with self.engine.begin() as conn:
+            row = self._row(conn, claim.job_id, lock=True)
+            if (row["fence"] != claim.fence or row["owner"] != claim.owner
+                    or row["status"] != JobStatus.RUNNING.value):
+                raise FencedError(f"job {claim.job_id}: lease with token {claim.fence} was "
+                                  "taken over; this worker's chunk is discarded.")
+            if idx != row["n_checkpoints"] + 1 or step <= row["steps_done"] and idx > 0:
+                raise LedgerError(f"job {claim.job_id}: checkpoint {idx} at step {step} does not "
+                                  f"follow checkpoint {row['n_checkpoints']} at step "
+                                  f"{row['steps_done']}.")
+            prev = conn.execute(select(checkpoints.c.chain_sha256).where(and_(
+                checkpoints.c.job_id == claim.job_id,
+                checkpoints.c.idx == row["n_checkpoints"]))).scalar()
+            total = int(row["total_steps"])
+            requested = row["requested"]
+            fields = dict(steps_done=step, n_checkpoints=idx, n_samples=n_samples,
+                          last_energy_error=energy_error, last_angmom_error=angmom_error,
+                          max_energy_error=max_energy_error, max_angmom_error=max_angmom_error,
+                          wall_seconds=row["wall_seconds"] + wall_seconds, updated_at=now)
+            if rate is not None:
+                fields["rate"] = rate
+            if then == "done" and step < total:
+                then = "continue"  # extended while this chunk ran
+            if then == "stopped":
+                new = JobStatus.STOPPED
+                kind, o_step, o_time, bodies = outcome
+                fields.update(outcome=kind, outcome_step=o_step, outcome_time=o_time,
+                              outcome_bodies=",".join(map(str, bodies)), reason=reason)
+            elif then == "done":
+                new = JobStatus.DONE
+                fields.update(outcome="survived", outcome_step=step, outcome_time=time_)
+            elif then == "held" or requested == "hold":
+                new = JobStatus.HELD
+                fields["reason"] = reason or "held on request"
+            elif requested == "cancel":
+                new = JobStatus.CANCELLED
+                fields["reason"] = "cancelled on request"
+            elif then == "release":
+                new = JobStatus.QUEUED
+            else:
+                new = JobStatus.RUNNING
+                fields["lease_expires"] = now + self.lease_seconds
+            if new != JobStatus.RUNNING:
+                fields.update(owner=None, lease_expires=None, requested=None)
+            self._transition(conn, claim.job_id, JobStatus.RUNNING, new,
+                             where=(jobs.c.fence == claim.fence,), **fields)
+            conn.execute(insert(checkpoints).values(
+                job_id=claim.job_id, idx=idx, step=step, time=time_, fence=claim.fence,
+                state_sha256=state_hash, chain_sha256=chain_sha256(prev, state_hash, samples_hash),
+                samples_sha256=samples_hash, n_samples=n_samples, energy_error=energy_error,
+                angmom_error=angmom_error, segment_id=segment_id, created_at=now))
+            if then == "stopped":
+                kind, o_step, o_time, bodies = outcome
+                self._event(conn, claim.job_id, kind, o_step, o_time, bodies, None, now)
+            if then == "held" and reason:
+                self._event(conn, claim.job_id, "held", step, time_, (), {"reason": reason}, now)
+        return CommitResult(new, total, requested)
+
+    def release(self, claim, now=None, status=JobStatus.QUEUED, reason=None):
+        """Give up a claim without committing (work remains from the last checkpoint)."""
+        now = _now(now)
+        with self.engine.begin() as conn:
+            row = self._row(conn, claim.job_id, lock=True)
+            if row["fence"] != claim.fence or row["status"] != JobStatus.RUNNING.value:
+                return False
+            req = row["requested"]
+            if req == "hold":
+                status, reason = JobStatus.HELD, reason or "held on request"
+            elif req == "cancel":
+                status, reason = JobStatus.CANCELLED, "cancelled on request"
+            self._transition(conn, claim.job_id, JobStatus.RUNNING, status,
+                             where=(jobs.c.fence == claim.fence,), owner=None,
+                             lease_expires=None, requested=None, updated_at=now,
+                             **({"reason": reason} if reason else {}))
+            if status in (JobStatus.HELD, JobStatus.FAILED) and reason:
+                self._event(conn, claim.job_id, status.value, row["steps_done"], None, (),
+                            {"reason": reason}, now)
+        return True
+
+    # -- user operations -------------------------------------------------------------
+    def hold(self, job_id, reason="held by user", now=None):
+        """Pause a job: at once if queued, at the worker's next safe point if running."""
+        now = _now(now)
+        with self.engine.begin() as conn:
+            row = self._row(conn, job_id, lock=True)
+            st = JobStatus(row["status"])
+            if st == JobStatus.RUNNING:
+                conn.execute(update(jobs).where(jobs.c.id == job_id).values(
+                    requested="hold", updated_at=now))
+                return "requested"
+            self._transition(conn, job_id, st, JobStatus.HELD, reason=reason, updated_at=now)
+        return "held"
+
+    def unhold(self, job_id, now=None):
+        """Queue a held (or failed) job again."""
+        now = _now(now)
+        with self.engine.begin() as conn:
+            row = self._row(conn, job_id, lock=True)
+            st = JobStatus(row["status"])
+            if st == JobStatus.RUNNING and row["requested"] == "hold":
+                conn.execute(update(jobs).where(jobs.c.id == job_id).values(requested=None))
+                return
+            self._transition(conn, job_id, st, JobStatus.QUEUED, reason=None, updated_at=now)
+
+    def cancel(self, job_id, now=None):
+        """Abandon a job: at once if not running, at the next safe point if running."""
+        now = _now(now)
+        with self.engine.begin() as conn:
+            row = self._row(conn, job_id, lock=True)
+            st = JobStatus(row["status"])
+            if st == JobStatus.RUNNING:
+                conn.execute(update(jobs).where(jobs.c.id == job_id).values(
+                    requested="cancel", updated_at=now))
+                return "requested"
+            self._transition(conn, job_id, st, JobStatus.CANCELLED,
+                             reason="cancelled by user", updated_at=now)
+        return "cancelled"
+
+    def extend(self, job_id, new_total_steps, now=None):
+        """Move a job's end to a later step; a done job is queued again."""
+        now = _now(now)
+        with self.engine.begin() as conn:
+            row = self._row(conn, job_id, lock=True)
+            st = JobStatus(row["status"])
+            if new_total_steps <= row["total_steps"]:
+                raise LedgerError(f"job {job_id} already runs to step {row['total_steps']}; "
+                                  f"the new end (step {new_total_steps}) must be later.")
+            if st in (JobStatus.STOPPED, JobStatus.CANCELLED):
+                raise LedgerError(f"job {job_id} is {st.value} and cannot be extended.")
+            fields = dict(total_steps=int(new_total_steps), updated_at=now)
+            if st == JobStatus.DONE:
+                self._transition(conn, job_id, st, JobStatus.QUEUED, outcome=None,
+                                 outcome_step=None, outcome_time=None, **fields)
+            else:
+                conn.execute(update(jobs).where(jobs.c.id == job_id).values(**fields))
+            self._event(conn, job_id, "extended", row["steps_done"], None, (),
+                        {"from_steps": int(row["total_steps"]), "to_steps": int(new_total_steps)},
+                        now)
+
+    # -- segments and events ---------------------------------------------------------
+    def start_segment(self, claim, start_step, prov, now=None):
+        """Record the start of a stretch of work by this worker; returns its id."""
+        now = _now(now)
+        with self.engine.begin() as conn:
+            return int(conn.execute(insert(segments).values(
+                job_id=claim.job_id, fence=claim.fence, worker=claim.owner, host=prov["host"],
+                pid=prov["pid"], user=prov.get("user"), argv=prov.get("argv"),
+                versions=json.dumps(prov.get("versions", {}), sort_keys=True),
+                platform=prov.get("platform"), cpu=prov.get("cpu"), start_step=start_step,
+                started_at=now)).inserted_primary_key[0])
+
+    def end_segment(self, segment_id, end_step, reason, now=None):
+        """Record the end of a stretch of work."""
+        now = _now(now)
+        with self.engine.begin() as conn:
+            conn.execute(update(segments).where(segments.c.id == segment_id).values(
+                end_step=end_step, ended_at=now, end_reason=reason))
+
+    def _event(self, conn, job_id, kind, step, time_, bodies, detail, now):
+        conn.execute(insert(events).values(
+            job_id=job_id, kind=kind, step=step, time=time_,
+            bodies=",".join(map(str, bodies or ())), created_at=now,
+            detail=None if detail is None else json.dumps(detail, sort_keys=True)))
+
+    def record_event(self, job_id, kind, step=None, time_=None, bodies=(), detail=None, now=None):
+        """Add an event row (outside a commit)."""
+        with self.engine.begin() as conn:
+            self._event(conn, job_id, kind, step, time_, bodies, detail, _now(now))
+
+    # -- queries -----------------------------------------------------------------------
+    def job(self, job_id):
+        """One job's row as a dict."""
+        with self.engine.connect() as conn:
+            return dict(self._row(conn, job_id))
+
+    def jobs(self, status=None, ensemble_id=None):
+        """All jobs' rows (dicts), oldest first."""
+        q = select(jobs).order_by(jobs.c.id)
+        if status is not None:
+            q = q.where(jobs.c.status == JobStatus(status).value)
+        if ensemble_id is not None:
+            q = q.where(jobs.c.ensemble_id == ensemble_id)
+        with self.engine.connect() as conn:
+            return [dict(r) for r in conn.execute(q).mappings()]
+
+    def checkpoints(self, job_id):
+        """A job's committed checkpoints, in order."""
+        with self.engine.connect() as conn:
+            return [dict(r) for r in conn.execute(select(checkpoints).where(
+                checkpoints.c.job_id == job_id).order_by(checkpoints.c.idx)).mappings()]
+
+    def last_checkpoint(self, job_id):
+        """The last committed checkpoint row."""
+        with self.engine.connect() as conn:
+            n = conn.execute(select(jobs.c.n_checkpoints).where(jobs.c.id == job_id)).scalar()
+            if n is None:
+                raise NotFoundError(f"no job {job_id} in this ledger.")
+            return dict(conn.execute(select(checkpoints).where(and_(
+                checkpoints.c.job_id == job_id, checkpoints.c.idx == n))).mappings().one())
+
+    def segments(self, job_id):
+        """A job's segments, in order."""
+        with self.engine.connect() as conn:
+            return [dict(r) for r in conn.execute(select(segments).where(
+                segments.c.job_id == job_id).order_by(segments.c.id)).mappings()]
+
+    def events(self, job_id):
+        """A job's events, in order."""
+        with self.engine.connect() as conn:
+            return [dict(r) for r in conn.execute(select(events).where(
+                events.c.job_id == job_id).order_by(events.c.id)).mappings()]
+
+    def counts(self):
+        """Number of jobs by status."""
+        with self.engine.connect() as conn:
+            rows = conn.execute(select(jobs.c.status, func.count()).group_by(jobs.c.status))
+            return {s: int(n) for s, n in rows}
+
+    def load_integrator(self, job_id, checkpoint=None):
+        """The exact integrator state at a committed checkpoint (hash-checked)."""
+        from integrators import Integrator
+
+        ck = self.last_checkpoint(job_id) if checkpoint is None else next(
+            (c for c in self.checkpoints(job_id) if c["idx"] == checkpoint), None)
+        if ck is None:
+            raise NotFoundError(f"job {job_id} has no checkpoint {checkpoint}.")
+        arrays = self.store.read_checkpoint(job_id, ck["idx"], ck["fence"], ck["state_sha256"])
+        return Integrator.from_state_arrays(arrays), ck
+
+
+def angmom0(row):
+    """The job's initial angular-momentum vector."""
+    return np.array(json.loads(row["angmom0"]))

@@ -1,0 +1,392 @@
+"""Job specs: TOML in, validated by pydantic, resolved to internal units.
+
+A spec names the system, the method and its settings, the span, chunking and
+output cadence, the energy budget and the stop conditions. Errors name the key,
+the bad value and the fix in one sentence. The canonical JSON of a validated
+spec (defaults filled in, keys sorted) and its SHA-256 identify the job's inputs.
+"""
+
+from dataclasses import dataclass
+import hashlib
+import json
+import math
+import re
+import tomllib
+from typing import Literal
+
+from pydantic import BaseModel, ConfigDict, ValidationError, field_validator
+
+from integrators import CORRECTOR_ORDERS, METHODS, StopConditions, System
+from integrators.constants import G
+
+from . import defaults
+from .errors import SpecError
+from .units import parse_quantity
+
+_NAME_RE = re.compile(r"^[A-Za-z0-9][A-Za-z0-9 ._+-]{0,99}$")
+_STEPS_RE = re.compile(r"^\s*([0-9]+)\s*steps?\s*$")
+
+
+class _Strict(BaseModel):
+    model_config = ConfigDict(extra="forbid", strict=False, allow_inf_nan=False)
+
+
+class StarSpec(_Strict):
+    name: str
+    mass: str
+    radius: str | None = None
+
+
+class BodySpec(_Strict):
+    name: str
+    mass: str
+    radius: str | None = None
+    a: str | None = None
+    e: float | None = None
+    i: str = "0 deg"
+    node: str = "0 deg"
+    peri: str = "0 deg"
+    mean_anomaly: str = "0 deg"
+    position: list[str] | None = None
+    velocity: list[str] | None = None
+
+
+class SystemSpec(_Strict):
+    star: StarSpec
+    bodies: list[BodySpec]
+    frame: Literal["heliocentric", "jacobi"] = "heliocentric"
+
+
+class MethodSpec(_Strict):
+    name: Literal["wisdom_holman", "leapfrog"] = "wisdom_holman"
+    step: str
+    corrector: int = 0
+    relativity: bool = False
+
+    @field_validator("corrector")
+    @classmethod
+    def _corrector(cls, v):
+        if v not in CORRECTOR_ORDERS:
+            raise ValueError(f"must be one of {', '.join(map(str, CORRECTOR_ORDERS))}")
+        return v
+
+
+class SpanSpec(_Strict):
+    length: str
+    direction: Literal["forward", "backward"] = "forward"
+    chunk: str | None = None
+    output: str | None = None
+
+
+class BudgetSpec(_Strict):
+    energy: float = 1e-6
+    angular_momentum: float | None = None
+    on_exceed: Literal["hold", "stop", "continue"] = "hold"
+
+    @field_validator("energy", "angular_momentum")
+    @classmethod
+    def _positive(cls, v):
+        if v is not None and not v > 0:
+            raise ValueError("must be a positive relative error such as 1e-8")
+        return v
+
+
+class StopSpec(_Strict):
+    hill: float = 0.0
+    eject_distance: str | None = None
+    unbound: bool = False
+    unbound_distance: str = "0 au"
+    star_radius: str | None = None
+    max_ecc: float = 0.0
+
+    @field_validator("hill", "max_ecc")
+    @classmethod
+    def _nonneg(cls, v):
+        if v < 0:
+            raise ValueError("must be >= 0 (0 turns the condition off)")
+        return v
+
+
+class JobSpec(_Strict):
+    """A validated job spec (structure and types; see :func:`resolve` for meaning)."""
+
+    name: str
+    description: str = ""
+    system: SystemSpec
+    method: MethodSpec
+    span: SpanSpec
+    budget: BudgetSpec = BudgetSpec()
+    stops: StopSpec = StopSpec()
+
+    @field_validator("name")
+    @classmethod
+    def _name(cls, v):
+        if not _NAME_RE.match(v):
+            raise ValueError("must be 1-100 letters, digits, spaces or ._+- and start "
+                             "with a letter or digit")
+        return v
+
+
+# -- loading and errors ---------------------------------------------------------
+
+def _dotted(loc):
+    out = ""
+    for part in loc:
+        out += f"[{part}]" if isinstance(part, int) else (f".{part}" if out else str(part))
+    return out
+
+
+_FIX = {
+    "missing": "add it",
+    "extra_forbidden": "remove it or check its spelling",
+    "literal_error": "use one of the allowed values",
+}
+
+
+def _one_line(err, data):
+    e = err.errors()[0]
+    key = _dotted(e["loc"])
+    kind = e["type"]
+    if kind == "missing":
+        return f"`{key}` is required but missing; add it to the spec."
+    if kind == "extra_forbidden":
+        return (f"`{key}` is not a known key (value {e.get('input')!r}); "
+                "remove it or check its spelling.")
+    msg = e["msg"]
+    if msg.startswith("Value error, "):
+        msg = msg[len("Value error, "):]
+    fix = _FIX.get(kind, "correct it")
+    return f"`{key}` {msg[0].lower() + msg[1:]}, got {e.get('input')!r}; {fix}."
+
+
+def parse(data):
+    """Validate a spec given as a dict; raise SpecError with one line on failure."""
+    if not isinstance(data, dict):
+        raise SpecError("a spec must be a TOML table of keys, got something else.")
+    try:
+        spec = JobSpec.model_validate(data)
+    except ValidationError as err:
+        raise SpecError(_one_line(err, data)) from None
+    resolve(spec)  # every quantity, unit and physical constraint is checked here
+    return spec
+
+
+def load_text(text, source="spec"):
+    """Validate a spec from TOML text."""
+    if len(text.encode("utf-8")) > defaults.MAX_SPEC_BYTES:
+        raise SpecError(f"{source} is larger than {defaults.MAX_SPEC_BYTES} bytes; "
+                        "split the campaign into smaller specs.")
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as err:
+        raise SpecError(f"{source} is not valid TOML ({err}); fix the syntax.") from None
+    return parse(data)
+
+
+def load(path):
+    """Validate a spec from a TOML file."""
+    try:
+        with open(path, "rb") as fh:
+            raw = fh.read(defaults.MAX_SPEC_BYTES + 1)
+    except OSError as err:
+        raise SpecError(f"spec file {path} could not be read ({err.strerror}).") from None
+    try:
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError:
+        raise SpecError(f"spec file {path} is not UTF-8 text.") from None
+    return load_text(text, source=f"spec file {path}")
+
+
+def canonical_json(spec):
+    """Canonical JSON of a validated spec: defaults filled, keys sorted, no spaces."""
+    return json.dumps(spec.model_dump(mode="json"), sort_keys=True, separators=(",", ":"),
+                      ensure_ascii=False, allow_nan=False)
+
+
+def spec_sha256(spec):
+    """SHA-256 hex digest of the canonical JSON."""
+    return hashlib.sha256(canonical_json(spec).encode("utf-8")).hexdigest()
+
+
+def from_json(text):
+    """A validated spec from its canonical JSON (as stored in the ledger)."""
+    return parse(json.loads(text))
+
+
+# -- resolution to internal units ----------------------------------------------
+
+@dataclass(frozen=True)
+class Plan:
+    """A spec resolved to internal units: what the worker needs."""
+
+    system: System
+    method: str
+    dt: float                 # days, negative for backward runs
+    corrector: int
+    relativity: bool
+    total_steps: int
+    chunk_steps: int
+    output_steps: int
+    stops: StopConditions
+    energy_budget: float
+    angmom_budget: float | None
+    on_exceed: str
+
+    def make_integrator(self, system=None):
+        """A fresh integrator at the start of the run (or from another system)."""
+        sysm = system if system is not None else self.system
+        if self.method == "wisdom_holman":
+            return METHODS[self.method](sysm, self.dt, corrector=self.corrector,
+                                        gr=self.relativity, stops=self.stops)
+        return METHODS[self.method](sysm, self.dt, stops=self.stops)
+
+
+def _steps(key, value, dt, default=None):
+    if value is None:
+        return default
+    m = _STEPS_RE.match(value)
+    if m:
+        n = int(m.group(1))
+    else:
+        t = parse_quantity(key, value, "time")
+        if t <= 0:
+            raise SpecError(f"`{key}` must be positive, got {value!r}.")
+        n = round(t / abs(dt))
+        if abs(t / abs(dt) - n) > 1e-6 * max(1, n):
+            raise SpecError(f"`{key}` must be a whole number of steps, got {value!r} = "
+                            f"{t / abs(dt):.6g} steps of `method.step`; round it.")
+    if n < 1:
+        raise SpecError(f"`{key}` must be at least one step, got {value!r}.")
+    return n
+
+
+def _body_state(key, body, mu):
+    from integrators import elements as el
+
+    has_el = body.a is not None or body.e is not None
+    has_xv = body.position is not None or body.velocity is not None
+    if has_el and has_xv:
+        raise SpecError(f"`{key}` gives both orbital elements and a state vector; keep one.")
+    if has_xv:
+        if body.position is None or body.velocity is None or len(body.position) != 3 \
+                or len(body.velocity) != 3:
+            raise SpecError(f"`{key}.position` and `{key}.velocity` must both be lists of "
+                            'three quantities such as ["1 au", "0 au", "0 au"].')
+        x = [parse_quantity(f"{key}.position[{k}]", q, "length") for k, q in enumerate(body.position)]
+        v = [parse_quantity(f"{key}.velocity[{k}]", q, "speed") for k, q in enumerate(body.velocity)]
+        return x, v
+    if body.a is None or body.e is None:
+        missing = "a" if body.a is None else "e"
+        raise SpecError(f"`{key}.{missing}` is required but missing; give a and e (and angles), "
+                        "or position and velocity.")
+    a = parse_quantity(f"{key}.a", body.a, "length")
+    e = body.e
+    if e < 0:
+        raise SpecError(f"`{key}.e` must be >= 0, got {e}.")
+    if a > 0 and e >= 1:
+        raise SpecError(f"`{key}.e` must be below 1 for an elliptic orbit (a > 0), got {e}; "
+                        "for a hyperbolic orbit give e > 1 and a negative a.")
+    if a < 0 and e <= 1:
+        raise SpecError(f"`{key}.e` must exceed 1 for a hyperbolic orbit (a < 0), got {e}; "
+                        "for an ellipse give a positive a.")
+    if a == 0:
+        raise SpecError(f"`{key}.a` must be non-zero, got {body.a!r}.")
+    ang = [parse_quantity(f"{key}.{n}", getattr(body, n), "angle") * math.pi / 180.0
+           for n in ("i", "node", "peri", "mean_anomaly")]
+    return el.to_state(mu, a, e, *ang)
+
+
+def _mass(key, value):
+    m = parse_quantity(key, value, "mass")
+    if m < 0:
+        raise SpecError(f"`{key}` must be >= 0, got {value!r}.")
+    return m
+
+
+def build_system(sysspec):
+    """The initial System (barycentric frame) of a validated spec."""
+    from integrators.system import inertial_from_jacobi, jacobi_mu
+
+    if len(sysspec.bodies) < 1:
+        raise SpecError("`system.bodies` must list at least one body; add a [[system.bodies]] table.")
+    if len(sysspec.bodies) + 1 > defaults.MAX_BODIES:
+        raise SpecError(f"`system.bodies` lists {len(sysspec.bodies)} bodies; at most "
+                        f"{defaults.MAX_BODIES - 1} are allowed.")
+    names = [sysspec.star.name] + [b.name for b in sysspec.bodies]
+    seen = set()
+    for k, nm in enumerate(names):
+        if nm in seen:
+            key = "system.star.name" if k == 0 else f"system.bodies[{k - 1}].name"
+            raise SpecError(f"`{key}` repeats the name {nm!r}; body names must be unique.")
+        seen.add(nm)
+    m0 = _mass("system.star.mass", sysspec.star.mass)
+    if m0 <= 0:
+        raise SpecError(f"`system.star.mass` must be positive, got {sysspec.star.mass!r}.")
+    masses = [m0] + [_mass(f"system.bodies[{k}].mass", b.mass) for k, b in enumerate(sysspec.bodies)]
+    radii = [0.0 if b.radius is None else parse_quantity(f"{key}.radius", b.radius, "length")
+             for key, b in [("system.star", sysspec.star)]
+             + [(f"system.bodies[{k}]", b) for k, b in enumerate(sysspec.bodies)]]
+    gm = [G * m for m in masses]
+    n = len(gm)
+    rel_x = [[0.0] * 3 for _ in range(n)]
+    rel_v = [[0.0] * 3 for _ in range(n)]
+    import numpy as np
+
+    gm_arr = np.array(gm)
+    mu = jacobi_mu(gm_arr) if sysspec.frame == "jacobi" else gm_arr[0] + gm_arr
+    for k, b in enumerate(sysspec.bodies):
+        x, v = _body_state(f"system.bodies[{k}]", b, float(mu[k + 1]))
+        rel_x[k + 1], rel_v[k + 1] = list(x), list(v)
+    rel_x, rel_v = np.array(rel_x, dtype=float), np.array(rel_v, dtype=float)
+    if sysspec.frame == "jacobi":
+        rel_x = inertial_from_jacobi(gm_arr, rel_x)
+        rel_v = inertial_from_jacobi(gm_arr, rel_v)
+    for k in range(1, n):
+        if not np.any(rel_x[k] != rel_x[0]):
+            raise SpecError(f"`system.bodies[{k - 1}]` sits on the star; give it a distance.")
+    return System(names, gm_arr, rel_x, rel_v, 0.0, np.array(radii)).to_barycentric_frame()
+
+
+def resolve(spec):
+    """Resolve a validated spec to a :class:`Plan` (raises SpecError)."""
+    system = build_system(spec.system)
+    step = parse_quantity("method.step", spec.method.step, "time")
+    if not step > 0:
+        raise SpecError(f"`method.step` must be positive, got {spec.method.step!r}; "
+                        "give the step size and use `span.direction` for backward runs.")
+    dt = step if spec.span.direction == "forward" else -step
+    if spec.method.name != "wisdom_holman" and (spec.method.corrector or spec.method.relativity):
+        raise SpecError(f"`method.corrector` and `method.relativity` need method "
+                        f"'wisdom_holman', got method {spec.method.name!r}; remove them.")
+    length = parse_quantity("span.length", spec.span.length, "time")
+    if not length > 0:
+        raise SpecError(f"`span.length` must be positive, got {spec.span.length!r}; "
+                        "use `span.direction` for backward runs.")
+    total = round(length / step)
+    if total < 1:
+        raise SpecError(f"`span.length` is shorter than one step ({spec.span.length!r} < "
+                        f"{spec.method.step!r}); lengthen it.")
+    if total > 2**62:
+        raise SpecError(f"`span.length` needs {total:.3g} steps, more than 2^62; lengthen the step.")
+    output = _steps("span.output", spec.span.output, dt, defaults.DEFAULT_OUTPUT_STEPS)
+    chunk = _steps("span.chunk", spec.span.chunk, dt, output * defaults.DEFAULT_CHUNK_OUTPUTS)
+    if chunk % output:
+        raise SpecError(f"`span.chunk` must be a whole number of outputs, got {spec.span.chunk!r}"
+                        f" = {chunk / output:.6g} outputs of `span.output`; make it a multiple.")
+    st = spec.stops
+    star_radius = (parse_quantity("stops.star_radius", st.star_radius, "length")
+                   if st.star_radius is not None else float(system.radii[0]))
+    stops = StopConditions(
+        hill=st.hill,
+        eject_distance=(parse_quantity("stops.eject_distance", st.eject_distance, "length")
+                        if st.eject_distance is not None else 0.0),
+        unbound=st.unbound,
+        unbound_distance=parse_quantity("stops.unbound_distance", st.unbound_distance, "length"),
+        star_radius=star_radius,
+        max_ecc=st.max_ecc,
+    )
+    if stops.eject_distance < 0 or stops.star_radius < 0 or stops.unbound_distance < 0:
+        raise SpecError("`stops` distances must be >= 0.")
+    return Plan(system, spec.method.name, dt, spec.method.corrector, spec.method.relativity,
+                int(total), int(chunk), int(output), stops, spec.budget.energy,
+                spec.budget.angular_momentum, spec.budget.on_exceed)

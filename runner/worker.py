@@ -1,0 +1,258 @@
+"""Workers: claim jobs, integrate chunk by chunk, commit by the fenced protocol.
+
+One worker is one process running :meth:`Worker.run`. SIGTERM, SIGINT, SIGHUP
+and SIGUSR1 ask it to checkpoint at the next safe point (between kernel calls
+of at most MAX_STEPS_PER_CALL steps), release its lease and exit with
+EXIT_WORK_REMAINS if any work is left, 0 otherwise.
+"""
+
+import os
+import signal
+import socket
+import subprocess
+import sys
+import time
+
+import numpy as np
+
+from . import defaults, provenance
+from .errors import FencedError, StoreError
+from .ledger import angmom0
+from .sampling import SampleBuffer, sample_now
+from .spec import from_json, resolve
+from .status import ACTIVE, JobStatus
+
+STOP_SIGNALS = (signal.SIGTERM, signal.SIGINT, signal.SIGHUP, signal.SIGUSR1)
+
+
+class Worker:
+    """A worker over one ledger.
+
+    Parameters
+    ----------
+    ledger : Ledger
+    owner : str, optional
+        Lease owner name; default host:pid.
+    deadline : float, optional
+        Wall-clock time (epoch seconds) after which the worker checkpoints and exits.
+    job_id : int, optional
+        Work on this job only.
+    order : {"breadth", "depth"}
+        Claim the least advanced job first (breadth) or the most advanced (depth).
+    progress : callable, optional
+        Called as progress(job_row, step, rate_days_per_s) now and then.
+    clock : callable
+        Wall clock, for tests.
+    """
+
+    def __init__(self, ledger, owner=None, deadline=None, job_id=None, order="breadth",
+                 progress=None, clock=time.time, max_steps_per_call=defaults.MAX_STEPS_PER_CALL,
+                 heartbeat_seconds=defaults.HEARTBEAT_SECONDS):
+        self.ledger = ledger
+        self.owner = owner or f"{socket.gethostname()}:{os.getpid()}"
+        self.deadline = deadline
+        self.job_id = job_id
+        self.order = order
+        self.progress = progress
+        self.clock = clock
+        self.max_steps_per_call = int(max_steps_per_call)
+        self.heartbeat_seconds = float(heartbeat_seconds)
+        self.stop_requested = None
+        self.failed = False
+        self.results = []
+
+    # -- signals ------------------------------------------------------------------
+    def install_signal_handlers(self):
+        """Make the stop signals request a clean stop instead of killing the process."""
+        for sig in STOP_SIGNALS:
+            signal.signal(sig, self._on_signal)
+
+    def _on_signal(self, signum, _frame):
+        self.stop_requested = signal.Signals(signum).name
+
+    def _should_stop(self):
+        return self.stop_requested is not None or (
+            self.deadline is not None and self.clock() >= self.deadline)
+
+    # -- main loop ----------------------------------------------------------------
+    def run(self):
+        """Work until nothing is claimable, a deadline, or a stop signal. Returns an exit code."""
+        while not self._should_stop():
+            claim = self.ledger.claim(self.owner, now=self.clock(), job_id=self.job_id,
+                                      order=self.order)
+            if claim is None:
+                break
+            self.results.append((claim.job_id, self.run_claim(claim)))
+        return self.exit_code()
+
+    def exit_code(self):
+        """EXIT_WORK_REMAINS if stopped early with work left, EXIT_FAILED on failure, else 0."""
+        if self._should_stop():
+            counts = self.ledger.counts()
+            if any(counts.get(s.value, 0) for s in ACTIVE) if self.job_id is None else \
+                    JobStatus(self.ledger.job(self.job_id)["status"]) in ACTIVE:
+                return defaults.EXIT_WORK_REMAINS
+        return defaults.EXIT_FAILED if self.failed else 0
+
+    def run_claim(self, claim):
+        """Integrate one claimed job until it ends, is interrupted or is fenced out.
+
+        Returns the job's status afterwards (or "fenced").
+        """
+        row = self.ledger.job(claim.job_id)
+        try:
+            plan = resolve(from_json(row["spec_json"]))
+            integ, ck = self.ledger.load_integrator(claim.job_id)
+        except StoreError as err:
+            self.failed = True
+            self.ledger.release(claim, now=self.clock(), status=JobStatus.FAILED,
+                                reason=f"could not load the last checkpoint: {err}")
+            return JobStatus.FAILED
+        seg = self.ledger.start_segment(claim, integ.step, provenance.collect(), now=self.clock())
+        try:
+            status = self._chunks(claim, row, plan, integ, ck, seg)
+        except FencedError:
+            self.ledger.end_segment(seg, None, "fenced", now=self.clock())
+            return "fenced"
+        except StoreError as err:
+            # Nothing beyond the last commit is lost; hold the job with the reason.
+            self.ledger.release(claim, now=self.clock(), status=JobStatus.HELD,
+                                reason=f"checkpoint store write failed: {err}")
+            self.ledger.end_segment(seg, None, "store_error", now=self.clock())
+            return JobStatus.HELD
+        except Exception as err:
+            self.failed = True
+            self.ledger.release(claim, now=self.clock(), status=JobStatus.FAILED,
+                                reason=f"{type(err).__name__}: {err}")
+            self.ledger.end_segment(seg, None, "failed", now=self.clock())
+            raise
+        self.ledger.end_segment(seg, integ.step, status.value, now=self.clock())
+        return status
+
+    def _chunks(self, claim, row, plan, integ, ck, seg):
+        job_id = claim.job_id
+        e0 = row["energy0"]
+        l0 = angmom0(row)
+        out = int(row["output_steps"])
+        chunk = int(row["chunk_steps"])
+        total = int(row["total_steps"])
+        idx = int(ck["idx"])
+        n_samples = int(ck["n_samples"])
+        max_e, max_l = row["max_energy_error"], row["max_angmom_error"]
+        last_beat = self.clock()
+        n_bodies = len(integ.gm)
+        while True:
+            chunk_end = min((integ.step // chunk + 1) * chunk, total)
+            buf = SampleBuffer()
+            stop = None
+            request = None
+            interrupted = False
+            wall0 = self.clock()
+            step0 = integ.step
+            while integ.step < chunk_end:
+                target = min((integ.step // out + 1) * out, chunk_end,
+                             integ.step + self.max_steps_per_call)
+                res = integ.advance(target - integ.step)
+                if res.stopped:
+                    stop = res
+                    break
+                if integ.step % out == 0:
+                    buf.add(sample_now(integ, e0, l0))
+                now = self.clock()
+                if now - last_beat >= self.heartbeat_seconds:
+                    request = self.ledger.heartbeat(claim, now=now)
+                    last_beat = now
+                    if request in ("hold", "cancel"):
+                        interrupted = True
+                        break
+                if self._should_stop():
+                    interrupted = True
+                    break
+                if self.progress is not None:
+                    self.progress(row, integ.step, _rate(integ, step0, wall0, self.clock()))
+            # Fence check right before touching the store.
+            self.ledger.heartbeat(claim, now=self.clock())
+            last_beat = self.clock()
+            block = buf.block(n_bodies)
+            here = sample_now(integ, e0, l0)
+            e_err = float(abs(here["energy_error"][0]))
+            l_err = float(here["angmom_error"][0])
+            if len(block["time"]):
+                max_e = max(max_e, float(np.abs(block["energy_error"]).max()))
+                max_l = max(max_l, float(block["angmom_error"].max()))
+            max_e, max_l = max(max_e, e_err), max(max_l, l_err)
+            s_hash = self.ledger.store.write_samples(job_id, n_samples, block)
+            st_hash = self.ledger.store.write_checkpoint(job_id, idx + 1, claim.fence,
+                                                         integ.state_arrays())
+            then, outcome, reason = "continue", None, None
+            if stop is not None:
+                then = "stopped"
+                outcome = (stop.kind.value, integ.step, integ.time, stop.bodies)
+            elif integ.step >= total:
+                then = "done"
+            elif interrupted and request is None:
+                then = "release"
+            over = _over_budget(plan, max_e, max_l)
+            if over and then != "stopped" and plan.on_exceed != "continue":
+                if plan.on_exceed == "hold":
+                    then, reason = "held", over
+                else:
+                    then, reason = "stopped", over
+                    outcome = ("over_budget", integ.step, integ.time, ())
+            wall = self.clock() - wall0
+            result = self.ledger.commit_checkpoint(
+                claim, idx=idx + 1, step=integ.step, time_=integ.time, state_hash=st_hash,
+                samples_hash=s_hash, n_samples=n_samples + len(block["time"]),
+                energy_error=e_err, angmom_error=l_err, max_energy_error=max_e,
+                max_angmom_error=max_l, then=then, outcome=outcome, reason=reason,
+                segment_id=seg, wall_seconds=wall, rate=_rate(integ, step0, wall0, self.clock()),
+                now=self.clock())
+            idx += 1
+            n_samples += len(block["time"])
+            total = result.total_steps
+            if result.status != JobStatus.RUNNING:
+                return result.status
+
+
+def _rate(integ, step0, wall0, now):
+    """Simulated days per wall-clock second since (step0, wall0)."""
+    dt_wall = now - wall0
+    return abs((integ.step - step0) * integ.dt) / dt_wall if dt_wall > 0 else None
+
+
+def _over_budget(plan, max_e, max_l):
+    """A reason string if an error budget is exceeded, else None."""
+    if max_e > plan.energy_budget:
+        return f"energy error {max_e:.3g} exceeds the budget {plan.energy_budget:.3g}"
+    if plan.angmom_budget is not None and max_l > plan.angmom_budget:
+        return f"angular-momentum error {max_l:.3g} exceeds the budget {plan.angmom_budget:.3g}"
+    return None
+
+
+def run_pool(argv_one, n_workers):
+    """Run n_workers worker processes (each `argv_one`) and forward stop signals.
+
+    Returns the most telling exit code: EXIT_FAILED if any failed, else
+    EXIT_WORK_REMAINS if any says work remains, else 0.
+    """
+    procs = [subprocess.Popen(argv_one) for _ in range(n_workers)]
+
+    def forward(signum, _frame):
+        for p in procs:
+            if p.poll() is None:
+                p.send_signal(signum)
+
+    old = {sig: signal.signal(sig, forward) for sig in STOP_SIGNALS}
+    try:
+        codes = [p.wait() for p in procs]
+    finally:
+        for sig, h in old.items():
+            signal.signal(sig, h)
+    if any(c not in (0, defaults.EXIT_WORK_REMAINS) for c in codes):
+        return defaults.EXIT_FAILED
+    return defaults.EXIT_WORK_REMAINS if defaults.EXIT_WORK_REMAINS in codes else 0
+
+
+def self_command():
+    """argv that starts this program again (for worker subprocesses)."""
+    return [sys.executable, "-m", "runner.cli"]
