@@ -29,8 +29,22 @@ from .constants import TWO_PI
 _STUMPFF_REDUCED = 0.1
 # Halley iterations tried before the bracketed fallback.
 _HALLEY_MAX = 12
-# Relative change in s that counts as converged.
+# Relative change in s that counts as converged (bracketed fallback).
 _S_TOL = 4e-16
+# Relative Halley correction after which the next correction would be below
+# 1e-20: the G-functions are then shifted instead of evaluated again.
+_S_SHIFT = 1e-7
+
+
+# Reciprocals of the series denominators (k+1)(k+2): multiplying by these
+# is as exactly rounded as dividing and much cheaper.
+_R20, _R42, _R72, _R110, _R156, _R210, _R272 = (1.0 / 20.0, 1.0 / 42.0, 1.0 / 72.0,
+                                                1.0 / 110.0, 1.0 / 156.0, 1.0 / 210.0,
+                                                1.0 / 272.0)
+_R12, _R30, _R56, _R90, _R132, _R182, _R240 = (1.0 / 12.0, 1.0 / 30.0, 1.0 / 56.0,
+                                               1.0 / 90.0, 1.0 / 132.0, 1.0 / 182.0,
+                                               1.0 / 240.0)
+_R6 = 1.0 / 6.0
 
 
 @njit(cache=True, error_model="numpy")
@@ -38,7 +52,7 @@ def stumpff(x):
     """Stumpff functions c0..c3 of x, with +, -, *, / only.
 
     The argument is quartered n times until |x| <= 0.1, c2 and c3 are summed
-    as nested series (error below 1e-20 there), and the doubling formulas
+    as nested series (truncation below 1e-20 there), and the doubling formulas
     c0(4x) = 2 c0^2 - 1, c1(4x) = c0 c1, c2(4x) = c1^2 / 2,
     c3(4x) = (c2 + c0 c3) / 4 (Danby 1988, eq. 6.9.29) undo the reduction.
     """
@@ -46,10 +60,10 @@ def stumpff(x):
     while x > _STUMPFF_REDUCED or x < -_STUMPFF_REDUCED:
         x = x * 0.25
         n += 1
-    c3 = (1.0 - x / 20.0 * (1.0 - x / 42.0 * (1.0 - x / 72.0 * (1.0 - x / 110.0
-          * (1.0 - x / 156.0 * (1.0 - x / 210.0 * (1.0 - x / 272.0))))))) / 6.0
-    c2 = (1.0 - x / 12.0 * (1.0 - x / 30.0 * (1.0 - x / 56.0 * (1.0 - x / 90.0
-          * (1.0 - x / 132.0 * (1.0 - x / 182.0 * (1.0 - x / 240.0))))))) / 2.0
+    c3 = (1.0 - x * _R20 * (1.0 - x * _R42 * (1.0 - x * _R72 * (1.0 - x * _R110
+          * (1.0 - x * _R156 * (1.0 - x * _R210 * (1.0 - x * _R272))))))) * _R6
+    c2 = (1.0 - x * _R12 * (1.0 - x * _R30 * (1.0 - x * _R56 * (1.0 - x * _R90
+          * (1.0 - x * _R132 * (1.0 - x * _R182 * (1.0 - x * _R240))))))) * 0.5
     c1 = 1.0 - x * c3
     c0 = 1.0 - x * c2
     for _ in range(n):
@@ -62,7 +76,7 @@ def stumpff(x):
 
 @njit(cache=True, error_model="numpy")
 def _kepler_eq(s, beta, r0, eta0, zeta0, mu):
-    """Return f(s) + dt, f'(s) = r and f''(s) of the universal Kepler equation."""
+    """t(s), r(s) = t'(s), r'(s) and G0, G1, G2 of the universal Kepler equation."""
     c0, c1, c2, c3 = stumpff(beta * s * s)
     g1 = s * c1
     g2 = s * s * c2
@@ -70,40 +84,69 @@ def _kepler_eq(s, beta, r0, eta0, zeta0, mu):
     t = r0 * s + eta0 * g2 + zeta0 * g3
     r = r0 * c0 + eta0 * g1 + mu * g2
     rp = eta0 * c0 + zeta0 * g1
-    return t, r, rp
+    return t, r, rp, c0, g1, g2
 
 
 @njit(cache=True, error_model="numpy")
 def solve_universal(r0, eta0, beta, mu, dt):
-    """Solve the universal Kepler equation for s; returns (s, iterations, bracketed)."""
+    """Solve the universal Kepler equation for s.
+
+    Returns (s, r, G0, G1, G2, iterations, bracketed), r and the G-functions
+    taken at the returned s.
+    """
     zeta0 = mu - beta * r0
-    s = dt / r0 - eta0 * dt * dt / (2.0 * r0 * r0 * r0)
+    # Third-order series inversion of t(s) = r0 s + eta0 s^2/2 + zeta0 s^3/6.
+    ir0 = 1.0 / r0
+    s = dt * ir0 * (1.0 + dt * ir0 * ir0 * (-0.5 * eta0 + dt * ir0 * ir0
+                                             * (0.5 * eta0 * eta0 * ir0 - zeta0 * _R6)))
+    if beta > 0.0:
+        # dt is reduced below one period, so s lies within one period of s.
+        s_max = TWO_PI / np.sqrt(beta)
+        if s > s_max:
+            s = s_max
+        elif s < -s_max:
+            s = -s_max
+    ds_prev = np.inf
     for it in range(_HALLEY_MAX):
-        t, r, rp = _kepler_eq(s, beta, r0, eta0, zeta0, mu)
+        t, r, rp, g0, g1, g2 = _kepler_eq(s, beta, r0, eta0, zeta0, mu)
         f = t - dt
+        if f == 0.0:
+            return s, r, g0, g1, g2, it + 1, False
         ds = -f / r
         ds = -f / (r + 0.5 * ds * rp)
         s_new = s + ds
         if not (s_new == s_new) or not (r > 0.0):
             break
-        if abs(ds) <= _S_TOL * abs(s_new) or f == 0.0:
-            return s_new, it + 1, False
+        if abs(ds) <= _S_SHIFT * abs(s_new) and abs(ds) <= 1e-3 * abs(ds_prev):
+            # Halley converges cubically: once a correction is this small and
+            # at least 1000x smaller than the one before (the cubic regime is
+            # visible), the error of s_new is below 1e-20 relative. Shift the G-functions
+            # from s to s_new by Taylor's formula (dG_k/ds = G_(k-1),
+            # dG_0/ds = -beta G_1); the neglected term is O(ds^3).
+            h = ds
+            hh = 0.5 * h * h
+            n0 = g0 - beta * (g1 * h + g0 * hh)
+            n1 = g1 + g0 * h - beta * g1 * hh
+            n2 = g2 + g1 * h + g0 * hh
+            r = r0 * n0 + eta0 * n1 + mu * n2
+            return s_new, r, n0, n1, n2, it + 1, False
+        ds_prev = ds
         s = s_new
-    # Guarded fallback: f is strictly increasing in s, so bracket and bisect.
+    # Guarded fallback: t(s) is strictly increasing in s, so bracket and bisect.
     sign = 1.0 if dt >= 0.0 else -1.0
     lo = 0.0
     hi = sign * abs(dt) / r0
     if hi == 0.0:
-        return 0.0, _HALLEY_MAX, True
+        return 0.0, r0, 1.0, 0.0, 0.0, _HALLEY_MAX, True
     for _ in range(2000):
-        t, r, rp = _kepler_eq(hi, beta, r0, eta0, zeta0, mu)
+        t, r, rp, g0, g1, g2 = _kepler_eq(hi, beta, r0, eta0, zeta0, mu)
         if (t - dt) * sign >= 0.0:
             break
         lo = hi
         hi = 2.0 * hi
     s = 0.5 * (lo + hi)
     for _ in range(400):
-        t, r, rp = _kepler_eq(s, beta, r0, eta0, zeta0, mu)
+        t, r, rp, g0, g1, g2 = _kepler_eq(s, beta, r0, eta0, zeta0, mu)
         f = t - dt
         if f * sign > 0.0:
             hi = s
@@ -113,9 +156,9 @@ def solve_universal(r0, eta0, beta, mu, dt):
         if not ((s_n - lo) * (s_n - hi) < 0.0):
             s_n = 0.5 * (lo + hi)
         if s_n == s or abs(s_n - s) <= _S_TOL * abs(s_n):
-            return s_n, _HALLEY_MAX, True
+            break
         s = s_n
-    return s, _HALLEY_MAX, True
+    return s, r, g0, g1, g2, _HALLEY_MAX, True
 
 
 @njit(cache=True, error_model="numpy")
@@ -143,16 +186,11 @@ def drift_row(x, v, i, mu, dt):
     vsq = v0 * v0 + v1 * v1 + v2 * v2
     eta0 = x0 * v0 + x1 * v1 + x2 * v2
     beta = 2.0 * mu / r0 - vsq
-    if beta > 0.0:
-        # Whole periods change nothing: remove them so long arcs stay cheap.
+    if beta > 0.0 and dt * dt * beta * beta * beta > TWO_PI * TWO_PI * mu * mu:
+        # Longer than a period: whole periods change nothing, so remove them.
         period = TWO_PI * mu / (beta * np.sqrt(beta))
-        if abs(dt) > period:
-            dt = dt - np.trunc(dt / period) * period
-    s, _, _ = solve_universal(r0, eta0, beta, mu, dt)
-    c0, c1, c2, c3 = stumpff(beta * s * s)
-    g1 = s * c1
-    g2 = s * s * c2
-    r = r0 * c0 + eta0 * g1 + mu * g2
+        dt = dt - np.trunc(dt / period) * period
+    s, r, g0, g1, g2, _, _ = solve_universal(r0, eta0, beta, mu, dt)
     # f - 1 and g written to avoid the cancellation in 1 - f and dt - mu G3.
     fm1 = -mu * g2 / r0
     g = r0 * g1 + eta0 * g2

@@ -22,7 +22,7 @@ def _drift(x, v, h):
 
 
 @njit(cache=True, error_model="numpy")
-def leapfrog_steps(x, v, gm, dt, n_steps, pending, pairs, params, mu, acc, xj, vj):
+def leapfrog_steps(x, v, gm, dt, n_steps, pending, pairs, params, mu, acc, xj, vj, rh):
     """Take n_steps merged leapfrog steps; same return as wh_steps."""
     half = 0.5 * dt
     n = x.shape[0]
@@ -41,7 +41,7 @@ def leapfrog_steps(x, v, gm, dt, n_steps, pending, pairs, params, mu, acc, xj, v
                 for d in range(3):
                     xj[i, d] = x[i, d] - x[0, d]
                     vj[i, d] = v[i, d] - v[0, d]
-            code, a, b = check_stops(x, xj, vj, mu, pairs, params)
+            code, a, b = check_stops(x, xj, vj, mu, pairs, params, rh)
             if code != 0:
                 return k + 1, pending, code, a, b
     return n_steps, pending, 0, -1, -1
@@ -64,13 +64,14 @@ class Leapfrog(Integrator):
         self._acc = np.zeros((n, 3))
         self._hx = np.zeros((n, 3))
         self._hv = np.zeros((n, 3))
+        self._rh = np.zeros(n)
         self._mu = self.gm[0] + self.gm
         self._mu[0] = 0.0
 
     def _advance_impl(self, n):
         steps, self.pending, code, a, b = leapfrog_steps(
             self.x, self.v, self.gm, self.dt, n, self.pending, self._stop_pairs,
-            self._stop_params, self._mu, self._acc, self._hx, self._hv)
+            self._stop_params, self._mu, self._acc, self._hx, self._hv, self._rh)
         return steps, code, a, b
 
     def _synchronized_state(self):

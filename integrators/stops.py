@@ -87,10 +87,11 @@ class StopConditions:
 
 
 @njit(cache=True, error_model="numpy")
-def check_stops(xi, xj, vj, mu, pairs, params):
+def check_stops(xi, xj, vj, mu, pairs, params, rh):
     """Return (code, body_a, body_b) for the first condition met, or (0, -1, -1).
 
-    xi: inertial positions (n, 3); xj, vj: Jacobi state; mu: Jacobi Kepler mu.
+    xi: inertial positions (n, 3); xj, vj: Jacobi state; mu: Jacobi Kepler mu;
+    rh: scratch array (n,) for the distances from the star.
     """
     n = xi.shape[0]
     eject = params[2]
@@ -98,7 +99,6 @@ def check_stops(xi, xj, vj, mu, pairs, params):
     unbound_r = params[4]
     r_star = params[5]
     e_max = params[6]
-    rh = np.empty(n)
     for i in range(1, n):
         dx = xi[i, 0] - xi[0, 0]
         dy = xi[i, 1] - xi[0, 1]

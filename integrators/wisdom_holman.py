@@ -87,7 +87,7 @@ def kick(xj, vj, gm, mu, eta, h, gr_coef, xi, acc):
 
 
 @njit(cache=True, error_model="numpy")
-def wh_steps(xj, vj, gm, mu, eta, dt, n_steps, pending, gr_coef, pairs, params, xi, acc):
+def wh_steps(xj, vj, gm, mu, eta, dt, n_steps, pending, gr_coef, pairs, params, xi, acc, rh):
     """Take n_steps merged drift-kick-drift steps in place.
 
     Returns (steps taken, pending flag, stop code, body a, body b).
@@ -102,7 +102,7 @@ def wh_steps(xj, vj, gm, mu, eta, dt, n_steps, pending, gr_coef, pairs, params, 
             pending = True
         kick(xj, vj, gm, mu, eta, dt, gr_coef, xi, acc)
         if check:
-            code, a, b = check_stops(xi, xj, vj, mu, pairs, params)
+            code, a, b = check_stops(xi, xj, vj, mu, pairs, params, rh)
             if code != 0:
                 return k + 1, pending, code, a, b
     return n_steps, pending, 0, -1, -1
@@ -164,6 +164,7 @@ class WisdomHolman(Integrator):
         n = len(self.gm)
         self._xi = np.zeros((n, 3))
         self._acc = np.zeros((n, 3))
+        self._rh = np.zeros(n)
         self._inv = _stage_arrays(self.corrector, -1.0)
 
     def _gr_coef(self):
@@ -172,7 +173,7 @@ class WisdomHolman(Integrator):
     def _advance_impl(self, n):
         steps, self.pending, code, a, b = wh_steps(
             self.xj, self.vj, self.gm, self.mu, self.eta, self.dt, n, self.pending,
-            self.gr_coef, self._stop_pairs, self._stop_params, self._xi, self._acc)
+            self.gr_coef, self._stop_pairs, self._stop_params, self._xi, self._acc, self._rh)
         return steps, code, a, b
 
     def _synchronized_state(self):
