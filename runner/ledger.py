@@ -16,7 +16,7 @@ from sqlalchemy import and_, func, insert, or_, select, update
 from . import defaults
 from .db import checkpoints, create_schema, events, is_sqlite, jobs, make_engine, segments
 from .errors import FencedError, LedgerError, NotFoundError
-from .spec import canonical_json, resolve, spec_sha256
+from .faults import failpoint
 from .status import JobStatus, check_transition
 from .store import Store, chain_sha256
 
@@ -103,7 +103,10 @@ class Ledger:
         from a forward job's checkpoint); otherwise the spec's system is used.
         """
         now = _now(now)
-        plan = plan or resolve(spec)
+        if plan is None:
+            from .spec import resolve
+
+            plan = resolve(spec)
         integ = integrator if integrator is not None else plan.make_integrator()
         sysm = integ.synchronized()
         energy0 = integ.energy()
@@ -113,7 +116,7 @@ class Ledger:
         first = sample_now(integ, energy0, angmom0)
         with self.engine.begin() as conn:
             job_id = conn.execute(insert(jobs).values(
-                name=spec.name, spec_json=canonical_json(spec), spec_sha256=spec_sha256(spec),
+                name=spec.name, spec_json=_spec_json(spec), spec_sha256=_spec_sha(spec),
                 status=JobStatus.QUEUED.value, method=plan.method, n_bodies=sysm.n, dt=plan.dt,
                 total_steps=integ.step + plan.total_steps if parent else plan.total_steps,
                 chunk_steps=plan.chunk_steps, output_steps=plan.output_steps,
@@ -139,12 +142,18 @@ class Ledger:
     def claim(self, owner, now=None, job_id=None, order="breadth"):
         """Claim one runnable job (queued, or running with an expired lease).
 
+        A running job whose owner is a process on this host that no longer
+        exists is runnable at once (its lease cannot be renewed by anyone).
+
         One atomic update sets the owner, the lease expiry and a new fencing
         token. Returns a :class:`Claim` or None if nothing is runnable.
         """
         now = _now(now)
+        with self.engine.connect() as conn:
+            dead = _dead_local_owners(conn)
         runnable = or_(jobs.c.status == JobStatus.QUEUED.value,
-                       and_(jobs.c.status == JobStatus.RUNNING.value, jobs.c.lease_expires < now))
+                       and_(jobs.c.status == JobStatus.RUNNING.value,
+                            or_(jobs.c.lease_expires < now, jobs.c.id.in_(dead))))
         q = select(jobs.c.id, jobs.c.status, jobs.c.fence).where(runnable)
         if job_id is not None:
             q = q.where(jobs.c.id == job_id)
@@ -246,6 +255,7 @@ class Ledger:
                 fields.update(owner=None, lease_expires=None, requested=None)
             self._transition(conn, claim.job_id, JobStatus.RUNNING, new,
                              where=(jobs.c.fence == claim.fence,), **fields)
+            failpoint("in_commit")  # inside the open transaction: a kill here rolls back
             conn.execute(insert(checkpoints).values(
                 job_id=claim.job_id, idx=idx, step=step, time=time_, fence=claim.fence,
                 state_sha256=state_hash, chain_sha256=chain_sha256(prev, state_hash, samples_hash),
@@ -256,6 +266,8 @@ class Ledger:
                 self._event(conn, claim.job_id, kind, o_step, o_time, bodies, None, now)
             if then == "held" and reason:
                 self._event(conn, claim.job_id, "held", step, time_, (), {"reason": reason}, now)
+            failpoint("before_commit")
+        failpoint("after_commit")
         return CommitResult(new, total, requested)
 
     def release(self, claim, now=None, status=JobStatus.QUEUED, reason=None):
@@ -428,6 +440,39 @@ class Ledger:
             raise NotFoundError(f"job {job_id} has no checkpoint {checkpoint}.")
         arrays = self.store.read_checkpoint(job_id, ck["idx"], ck["fence"], ck["state_sha256"])
         return Integrator.from_state_arrays(arrays), ck
+
+
+def _dead_local_owners(conn):
+    """Ids of running jobs owned by a process of this host that is gone."""
+    import os
+    import socket
+
+    prefix = socket.gethostname() + ":"
+    dead = []
+    for job_id, owner in conn.execute(select(jobs.c.id, jobs.c.owner).where(and_(
+            jobs.c.status == JobStatus.RUNNING.value, jobs.c.owner.like(prefix + "%")))):
+        pid_text = owner[len(prefix):]
+        if not pid_text.isdigit():
+            continue
+        try:
+            os.kill(int(pid_text), 0)
+        except ProcessLookupError:
+            dead.append(job_id)
+        except PermissionError:
+            pass  # alive, someone else's
+    return dead
+
+
+def _spec_json(spec):
+    from .spec import canonical_json
+
+    return canonical_json(spec)
+
+
+def _spec_sha(spec):
+    from .spec import spec_sha256
+
+    return spec_sha256(spec)
 
 
 def angmom0(row):

@@ -6,6 +6,7 @@ of at most MAX_STEPS_PER_CALL steps), release its lease and exit with
 EXIT_WORK_REMAINS if any work is left, 0 otherwise.
 """
 
+import json
 import os
 import signal
 import socket
@@ -19,7 +20,7 @@ from . import defaults, provenance
 from .errors import FencedError, StoreError
 from .ledger import angmom0
 from .sampling import SampleBuffer, sample_now
-from .spec import from_json, resolve
+from .faults import failpoint
 from .status import ACTIVE, JobStatus
 
 STOP_SIGNALS = (signal.SIGTERM, signal.SIGINT, signal.SIGHUP, signal.SIGUSR1)
@@ -101,7 +102,9 @@ class Worker:
         """
         row = self.ledger.job(claim.job_id)
         try:
-            plan = resolve(from_json(row["spec_json"]))
+            # The budget is plain numbers in the stored spec: no unit parsing
+            # (and no astropy import) on the resume path.
+            plan = Budget.from_spec_json(row["spec_json"])
             integ, ck = self.ledger.load_integrator(claim.job_id)
         except StoreError as err:
             self.failed = True
@@ -153,6 +156,7 @@ class Worker:
                 target = min((integ.step // out + 1) * out, chunk_end,
                              integ.step + self.max_steps_per_call)
                 res = integ.advance(target - integ.step)
+                failpoint("first_step")
                 if res.stopped:
                     stop = res
                     break
@@ -181,9 +185,12 @@ class Worker:
                 max_e = max(max_e, float(np.abs(block["energy_error"]).max()))
                 max_l = max(max_l, float(block["angmom_error"].max()))
             max_e, max_l = max(max_e, e_err), max(max_l, l_err)
+            failpoint("before_store_write")
             s_hash = self.ledger.store.write_samples(job_id, n_samples, block)
+            failpoint("mid_store_write")
             st_hash = self.ledger.store.write_checkpoint(job_id, idx + 1, claim.fence,
                                                          integ.state_arrays())
+            failpoint("after_store_write")
             then, outcome, reason = "continue", None, None
             if stop is not None:
                 then = "stopped"
@@ -212,6 +219,21 @@ class Worker:
             total = result.total_steps
             if result.status != JobStatus.RUNNING:
                 return result.status
+
+
+class Budget:
+    """The error budget of a job and what to do when it is exceeded."""
+
+    def __init__(self, energy, angmom, on_exceed):
+        self.energy_budget = float(energy)
+        self.angmom_budget = None if angmom is None else float(angmom)
+        self.on_exceed = on_exceed
+
+    @classmethod
+    def from_spec_json(cls, text):
+        """From a job's stored canonical spec JSON."""
+        b = json.loads(text)["budget"]
+        return cls(b["energy"], b.get("angular_momentum"), b["on_exceed"])
 
 
 def _rate(integ, step0, wall0, now):

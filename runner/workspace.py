@@ -32,10 +32,10 @@ def init(path=None, url=None):
     return ws, Ledger(db_url(ws, url), ws / defaults.STORE_NAME)
 
 
-def open_ledger(path=None, url=None):
+def open_ledger(path=None, url=None, lease_seconds=defaults.LEASE_SECONDS):
     """Open an existing workspace's ledger."""
     ws = resolve_path(path)
     if not (ws / MARKER).exists():
         raise NotFoundError(f"no workspace at {ws}; run `orbitledger init` there first "
                             f"or point --workspace / ${defaults.ENV_WORKSPACE} at one.")
-    return Ledger(db_url(ws, url), ws / defaults.STORE_NAME)
+    return Ledger(db_url(ws, url), ws / defaults.STORE_NAME, lease_seconds=lease_seconds)

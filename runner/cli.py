@@ -1,0 +1,258 @@
+"""The `orbitledger` command: a thin shell over the runner's functions."""
+
+from pathlib import Path
+import sys
+import time
+from typing import Annotated, Optional
+
+import typer
+from rich.console import Console
+
+from . import defaults
+from .errors import OrbitLedgerError
+from .workspace import init as init_workspace, open_ledger
+
+app = typer.Typer(add_completion=False, no_args_is_help=True,
+                  help="Queue, run, resume and audit long planetary-system integrations.")
+# Wide tables when output goes to a file or pipe (rich would assume 80 columns).
+out = Console(width=None if sys.stdout.isatty() else 150)
+err = Console(stderr=True, width=None if sys.stderr.isatty() else 400)
+
+# Shared options, defined once.
+WorkspaceOpt = Annotated[Optional[Path], typer.Option(
+    "--workspace", "-w", envvar=defaults.ENV_WORKSPACE,
+    help="Workspace folder (default ./ledger).")]
+DbOpt = Annotated[Optional[str], typer.Option(
+    "--db", envvar=defaults.ENV_DB,
+    help="Database URL (default: the workspace's SQLite file).")]
+JobArg = Annotated[int, typer.Argument(help="Job id.", min=1)]
+
+
+def fail(message, code=2):
+    """Print one line to stderr and exit non-zero."""
+    err.print(f"error: {message}", markup=False, highlight=False, soft_wrap=True)
+    raise typer.Exit(code)
+
+
+def _guard(fn):
+    """Turn project errors into one line on stderr and exit code 2."""
+    import functools
+
+    @functools.wraps(fn)
+    def wrapper(*args, **kwargs):
+        try:
+            return fn(*args, **kwargs)
+        except OrbitLedgerError as exc:
+            fail(str(exc))
+    return wrapper
+
+
+@app.command()
+@_guard
+def init(workspace: WorkspaceOpt = None, db: DbOpt = None):
+    """Create a workspace: a SQLite ledger (unless --db) and a Zarr store folder."""
+    ws, ledger = init_workspace(workspace, db)
+    ledger.close()
+    out.print(f"workspace ready at {ws.resolve()}")
+
+
+@app.command()
+@_guard
+def submit(spec_file: Annotated[Path, typer.Argument(help="Job spec (TOML).")],
+           workspace: WorkspaceOpt = None, db: DbOpt = None,
+           priority: Annotated[int, typer.Option(help="Higher runs first.")] = 0):
+    """Validate a spec and queue it; prints the job id."""
+    from . import spec as spec_mod
+
+    spec = spec_mod.load(spec_file)  # validated before the ledger is touched
+    ledger = open_ledger(workspace, db)
+    try:
+        job_id = ledger.submit(spec, priority=priority)
+    finally:
+        ledger.close()
+    out.print(job_id)
+
+
+_WALL_UNITS = {"s": 1.0, "sec": 1.0, "min": 60.0, "m": 60.0, "h": 3600.0, "hr": 3600.0,
+               "d": 86400.0, "day": 86400.0}
+
+
+def _parse_wall(value):
+    """A wall-clock duration like '47 h', '30min' or '90 s' in seconds."""
+    import re
+
+    m = re.match(r"^\s*([0-9]*\.?[0-9]+(?:e[+-]?[0-9]+)?)\s*([a-z]+)\s*$", value)
+    if not m or m.group(2) not in _WALL_UNITS:
+        fail(f"--deadline must be a wall time such as '47 h', '30 min' or '90 s', got {value!r}.")
+    return float(m.group(1)) * _WALL_UNITS[m.group(2)]
+
+
+@app.command()
+@_guard
+def work(workspace: WorkspaceOpt = None, db: DbOpt = None,
+         workers: Annotated[int, typer.Option(min=1, help="Worker processes.")] = 1,
+         deadline: Annotated[Optional[str], typer.Option(
+             help="Checkpoint and stop after this wall time, e.g. '47 h'.")] = None,
+         job: Annotated[Optional[int], typer.Option(help="Work on this job only.")] = None,
+         order: Annotated[str, typer.Option(help="breadth (least advanced first) or depth.")]
+         = "breadth",
+         lease: Annotated[float, typer.Option(
+             min=1.0, help="Lease length in seconds; a crashed worker's job waits this long.")]
+         = defaults.LEASE_SECONDS,
+         quiet: Annotated[bool, typer.Option(help="No progress display.")] = False):
+    """Run workers until no work is left, a deadline, or a stop signal.
+
+    Exit code 0: nothing left to claim; 3: stopped with work remaining; 1: a worker failed.
+    """
+    from .worker import Worker, run_pool, self_command
+
+    if order not in ("breadth", "depth"):
+        fail(f"--order must be 'breadth' or 'depth', got {order!r}.")
+    end = None if deadline is None else time.time() + _parse_wall(deadline)
+    if workers > 1:
+        argv = self_command() + ["work", "--workers", "1", "--order", order, "--quiet",
+                                 "--lease", str(lease)]
+        if workspace:
+            argv += ["--workspace", str(workspace)]
+        if db:
+            argv += ["--db", db]
+        if end is not None:
+            argv += ["--deadline", f"{max(0.0, end - time.time()):.3f} s"]
+        if job is not None:
+            argv += ["--job", str(job)]
+        open_ledger(workspace, db).close()  # fail fast with one line if there is no workspace
+        raise typer.Exit(run_pool(argv, workers))
+    ledger = open_ledger(workspace, db, lease_seconds=lease)
+    beat = min(defaults.HEARTBEAT_SECONDS, lease / 4)
+    show = not quiet and out.is_terminal
+    try:
+        if show:
+            code = _work_with_progress(ledger, end, job, order, beat)
+        else:
+            w = Worker(ledger, deadline=end, job_id=job, order=order, heartbeat_seconds=beat)
+            w.install_signal_handlers()
+            code = w.run()
+    finally:
+        ledger.close()
+    raise typer.Exit(code)
+
+
+def _work_with_progress(ledger, end, job, order, beat):
+    from rich.progress import BarColumn, Progress, TextColumn, TimeRemainingColumn
+
+    from .report import myr_per_hour
+    from .units import format_time
+    from .worker import Worker
+
+    tasks = {}
+    last = [0.0]
+    with Progress(TextColumn("{task.description}"), BarColumn(), TextColumn("{task.percentage:>5.1f}%"),
+                  TextColumn("{task.fields[sim]}"), TextColumn("{task.fields[rate]}"),
+                  TimeRemainingColumn(), console=out) as bar:
+        def progress(row, step, rate):
+            now = time.time()
+            if now - last[0] < 0.2:
+                return
+            last[0] = now
+            if row["id"] not in tasks:
+                tasks[row["id"]] = bar.add_task(f"job {row['id']} {row['name']}",
+                                                total=row["total_steps"], sim="", rate="")
+            r = myr_per_hour(rate)
+            bar.update(tasks[row["id"]], completed=step, sim=format_time(step * row["dt"]),
+                       rate="" if r is None else f"{r:.3g} Myr/h")
+
+        w = Worker(ledger, deadline=end, job_id=job, order=order, progress=progress,
+                   heartbeat_seconds=beat)
+        w.install_signal_handlers()
+        return w.run()
+
+
+@app.command()
+@_guard
+def status(workspace: WorkspaceOpt = None, db: DbOpt = None):
+    """A table of all jobs."""
+    from .report import status_table
+
+    ledger = open_ledger(workspace, db)
+    try:
+        out.print(status_table(ledger.jobs()))
+    finally:
+        ledger.close()
+
+
+@app.command()
+@_guard
+def show(job_id: JobArg, workspace: WorkspaceOpt = None, db: DbOpt = None):
+    """One job in detail, with its provenance."""
+    from .report import show_tables
+
+    ledger = open_ledger(workspace, db)
+    try:
+        t, p, _ = show_tables(ledger, job_id)
+        out.print(t)
+        out.print(p)
+    finally:
+        ledger.close()
+
+
+@app.command()
+@_guard
+def extend(job_id: JobArg,
+           to: Annotated[Optional[str], typer.Option(help="New span length, e.g. '4 Myr'.")] = None,
+           by: Annotated[Optional[str], typer.Option(help="Add this much, e.g. '1 Myr'.")] = None,
+           workspace: WorkspaceOpt = None, db: DbOpt = None):
+    """Move a job's end to a later time; a done job is queued again."""
+    from .units import parse_quantity
+
+    if (to is None) == (by is None):
+        fail("give exactly one of --to (new span length) or --by (time to add).")
+    ledger = open_ledger(workspace, db)
+    try:
+        row = ledger.job(job_id)
+        step = abs(row["dt"])
+        if to is not None:
+            length = parse_quantity("--to", to, "time")
+            new_total = round(length / step)
+        else:
+            new_total = row["total_steps"] + round(parse_quantity("--by", by, "time") / step)
+        ledger.extend(job_id, new_total)
+        out.print(f"job {job_id} now runs to step {new_total}")
+    finally:
+        ledger.close()
+
+
+def _simple(verb):
+    def command(job_id: JobArg, workspace: WorkspaceOpt = None, db: DbOpt = None):
+        ledger = open_ledger(workspace, db)
+        try:
+            result = getattr(ledger, {"release": "unhold"}.get(verb, verb))(job_id)
+        finally:
+            ledger.close()
+        out.print(f"job {job_id}: {result or verb + 'd'}")
+    command.__name__ = verb
+    return command
+
+
+app.command("hold", help="Pause a job (a running one at its next safe point).")(_guard(_simple("hold")))
+app.command("release", help="Queue a held or failed job again.")(_guard(_simple("release")))
+app.command("cancel", help="Abandon a job (a running one at its next safe point).")(
+    _guard(_simple("cancel")))
+
+
+@app.command()
+@_guard
+def demo(workspace: Annotated[Path, typer.Option(help="Demo workspace folder.")]
+         = Path("demo-ledger")):
+    """Set up a demo workspace, queue two invented-system jobs, interrupt, resume, report."""
+    from .demo import run_demo
+
+    raise typer.Exit(run_demo(workspace, out))
+
+
+def main():
+    """Entry point."""
+    app()
+
+
+if __name__ == "__main__":
+    sys.exit(app())
