@@ -250,13 +250,13 @@ def _steps(key, value, dt, default=None):
     else:
         t = parse_quantity(key, value, "time")
         if t <= 0:
-            raise SpecError(f"`{key}` must be positive, got {value!r}.")
+            raise SpecError(f"`{key}` must be positive, got {value!r}; give a positive time or \"N steps\".")
         n = round(t / abs(dt))
         if abs(t / abs(dt) - n) > 1e-6 * max(1, n):
             raise SpecError(f"`{key}` must be a whole number of steps, got {value!r} = "
                             f"{t / abs(dt):.6g} steps of `method.step`; round it.")
     if n < 1:
-        raise SpecError(f"`{key}` must be at least one step, got {value!r}.")
+        raise SpecError(f"`{key}` must be at least one step, got {value!r}; lengthen it.")
     return n
 
 
@@ -282,7 +282,7 @@ def _body_state(key, body, mu):
     a = parse_quantity(f"{key}.a", body.a, "length")
     e = body.e
     if e < 0:
-        raise SpecError(f"`{key}.e` must be >= 0, got {e}.")
+        raise SpecError(f"`{key}.e` must be >= 0, got {e}; give an eccentricity of 0 or more.")
     if a > 0 and e >= 1:
         raise SpecError(f"`{key}.e` must be below 1 for an elliptic orbit (a > 0), got {e}; "
                         "for a hyperbolic orbit give e > 1 and a negative a.")
@@ -290,7 +290,7 @@ def _body_state(key, body, mu):
         raise SpecError(f"`{key}.e` must exceed 1 for a hyperbolic orbit (a < 0), got {e}; "
                         "for an ellipse give a positive a.")
     if a == 0:
-        raise SpecError(f"`{key}.a` must be non-zero, got {body.a!r}.")
+        raise SpecError(f"`{key}.a` must be non-zero, got {body.a!r}; give the semi-major axis.")
     ang = [parse_quantity(f"{key}.{n}", getattr(body, n), "angle") * math.pi / 180.0
            for n in ("i", "node", "peri", "mean_anomaly")]
     return el.to_state(mu, a, e, *ang)
@@ -299,7 +299,7 @@ def _body_state(key, body, mu):
 def _mass(key, value):
     m = parse_quantity(key, value, "mass")
     if m < 0:
-        raise SpecError(f"`{key}` must be >= 0, got {value!r}.")
+        raise SpecError(f"`{key}` must be >= 0, got {value!r}; give a mass of 0 or more.")
     return m
 
 
@@ -321,7 +321,8 @@ def build_system(sysspec):
         seen.add(nm)
     m0 = _mass("system.star.mass", sysspec.star.mass)
     if m0 <= 0:
-        raise SpecError(f"`system.star.mass` must be positive, got {sysspec.star.mass!r}.")
+        raise SpecError(f"`system.star.mass` must be positive, got {sysspec.star.mass!r}; "
+                        "give the star's mass, e.g. \"1 Msun\".")
     masses = [m0] + [_mass(f"system.bodies[{k}].mass", b.mass) for k, b in enumerate(sysspec.bodies)]
     radii = [0.0 if b.radius is None else parse_quantity(f"{key}.radius", b.radius, "length")
              for key, b in [("system.star", sysspec.star)]
@@ -386,7 +387,7 @@ def resolve(spec):
         max_ecc=st.max_ecc,
     )
     if stops.eject_distance < 0 or stops.star_radius < 0 or stops.unbound_distance < 0:
-        raise SpecError("`stops` distances must be >= 0.")
+        raise SpecError("`stops` distances must be >= 0; give 0 to turn a condition off.")
     return Plan(system, spec.method.name, dt, spec.method.corrector, spec.method.relativity,
                 int(total), int(chunk), int(output), stops, spec.budget.energy,
                 spec.budget.angular_momentum, spec.budget.on_exceed)

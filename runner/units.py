@@ -53,7 +53,7 @@ def parse_quantity(key, value, kind):
         raise SpecError(f"`{key}` must be a {kind}, got {value!r} ({q.unit.physical_type}); "
                         f"write it as {_EXAMPLES[kind]}.") from None
     if not math.isfinite(out):
-        raise SpecError(f"`{key}` must be finite, got {value!r}.")
+        raise SpecError(f"`{key}` must be finite, got {value!r}; give a finite number with a unit.")
     return out
 
 

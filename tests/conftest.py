@@ -1,7 +1,12 @@
 """Shared fixtures: published solar-system data for checks (tests only)."""
 
+import os
+import sys
+
 import numpy as np
 import pytest
+
+sys.path.insert(0, os.path.dirname(__file__))
 
 from integrators import System
 
@@ -39,3 +44,17 @@ def state_bytes(integrator):
     """All state arrays concatenated as bytes, for bit-for-bit comparisons."""
     arrs = integrator.state_arrays()
     return b"".join(k.encode() + np.ascontiguousarray(arrs[k]).tobytes() for k in sorted(arrs))
+
+
+# -- ledger backends ------------------------------------------------------------
+def _sqlite_url(tmp_path):
+    return f"sqlite:///{tmp_path}/ledger.sqlite"
+
+
+BACKENDS = {"sqlite": _sqlite_url}
+
+
+@pytest.fixture(params=sorted(BACKENDS))
+def ledger_url(request):
+    """A function tmp_path -> database URL, once per backend."""
+    return BACKENDS[request.param]

@@ -1,0 +1,86 @@
+"""The CLI through typer's runner, and once end to end in a subprocess."""
+
+import re
+
+from typer.testing import CliRunner
+
+from runner.cli import app
+from helpers import cli, small_spec_text
+
+runner = CliRunner()
+
+
+def _ws(tmp_path):
+    ws = tmp_path / "ws"
+    res = runner.invoke(app, ["init", "--workspace", str(ws)])
+    assert res.exit_code == 0, res.output
+    return ws
+
+
+def test_submit_work_status_show_extend(tmp_path):
+    ws = _ws(tmp_path)
+    spec = tmp_path / "j.toml"
+    spec.write_text(small_spec_text(name="cli-job"))
+    res = runner.invoke(app, ["submit", str(spec), "--workspace", str(ws)])
+    assert res.exit_code == 0 and res.output.strip() == "1"
+    res = runner.invoke(app, ["work", "--workspace", str(ws), "--quiet"])
+    assert res.exit_code == 0, res.output
+    res = runner.invoke(app, ["status", "--workspace", str(ws)])
+    assert res.exit_code == 0
+    assert re.search(r"1 .*cli-job .*done .*100\.0%", res.output), res.output
+    res = runner.invoke(app, ["show", "1", "--workspace", str(ws)])
+    assert res.exit_code == 0
+    for word in ("spec sha256", "Provenance", "numba", "survived"):
+        assert word in res.output, word
+    res = runner.invoke(app, ["extend", "1", "--by", "1000 yr", "--workspace", str(ws)])
+    assert res.exit_code == 0, res.output
+    res = runner.invoke(app, ["status", "--workspace", str(ws)])
+    assert "queued" in res.output
+
+
+def test_hold_release_cancel(tmp_path):
+    ws = _ws(tmp_path)
+    spec = tmp_path / "j.toml"
+    spec.write_text(small_spec_text())
+    runner.invoke(app, ["submit", str(spec), "--workspace", str(ws)])
+    assert runner.invoke(app, ["hold", "1", "--workspace", str(ws)]).exit_code == 0
+    res = runner.invoke(app, ["work", "--workspace", str(ws), "--quiet"])
+    assert res.exit_code == 0
+    assert "held" in runner.invoke(app, ["status", "--workspace", str(ws)]).output
+    assert runner.invoke(app, ["release", "1", "--workspace", str(ws)]).exit_code == 0
+    assert runner.invoke(app, ["cancel", "1", "--workspace", str(ws)]).exit_code == 0
+    res = runner.invoke(app, ["release", "1", "--workspace", str(ws)])
+    assert res.exit_code == 2 and "cancelled and cannot become queued" in res.stderr
+
+
+def test_errors_are_one_line(tmp_path):
+    res = runner.invoke(app, ["status", "--workspace", str(tmp_path / "nowhere")])
+    assert res.exit_code == 2
+    assert res.stderr.count("\n") == 1 and "run `orbitledger init`" in res.stderr
+    ws = _ws(tmp_path)
+    res = runner.invoke(app, ["show", "7", "--workspace", str(ws)])
+    assert res.exit_code == 2 and "no job 7" in res.stderr
+    res = runner.invoke(app, ["work", "--workspace", str(ws), "--deadline", "soon"])
+    assert res.exit_code == 2 and "--deadline" in res.stderr
+
+
+def test_workspace_from_environment(tmp_path, monkeypatch):
+    monkeypatch.setenv("ORBITLEDGER_WORKSPACE", str(tmp_path / "envws"))
+    assert runner.invoke(app, ["init"]).exit_code == 0
+    assert (tmp_path / "envws" / "ledger.sqlite").exists()
+    assert runner.invoke(app, ["status"]).exit_code == 0
+
+
+def test_end_to_end_in_a_subprocess(tmp_path):
+    ws = tmp_path / "ws"
+    spec = tmp_path / "j.toml"
+    spec.write_text(small_spec_text(name="e2e"))
+    assert cli("init", "--workspace", ws).returncode == 0
+    sub = cli("submit", spec, "--workspace", ws)
+    assert sub.returncode == 0 and sub.stdout.strip() == "1"
+    work = cli("work", "--workspace", ws, "--workers", "2")
+    assert work.returncode == 0, work.stderr
+    st = cli("status", "--workspace", ws)
+    assert st.returncode == 0 and "done" in st.stdout and "survived" in st.stdout
+    bad = cli("submit", tmp_path / "missing.toml", "--workspace", ws)
+    assert bad.returncode == 2 and bad.stderr.startswith("error: ")
