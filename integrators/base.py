@@ -106,6 +106,31 @@ class Integrator:
         """Orbital elements of the synchronized state; see System.elements."""
         return self.synchronized().elements(frame=frame, degrees=degrees)
 
+    def diagnostics(self):
+        """(energy, angular-momentum vector, heliocentric elements) of the synchronized state.
+
+        Energy in Msun au^2/d^2, angular momentum in Msun au^2/d, elements an
+        array (n-1, 6): a (au), e, i, node, peri, M (degrees).
+        """
+        from .constants import G
+
+        els = np.empty((len(self.gm) - 1, 6))
+        e, lx, ly, lz = self.diagnose_into(els)
+        return e / G, np.array([lx, ly, lz]) / G, els
+
+    def diagnose_into(self, els):
+        """G*energy and G*L components of the synchronized state; elements into els.
+
+        One compiled pass with no allocation: cheap enough for every output.
+        """
+        return self._diagnose_into(els)
+
+    def _diagnose_into(self, els):
+        from .diagnostics import diagnose
+
+        x, v = self._synchronized_state()
+        return diagnose(x, v, self.gm, self._gr_coef(), els)
+
     def _gr_coef(self):
         return 0.0
 

@@ -47,7 +47,7 @@ _R12, _R30, _R56, _R90, _R132, _R182, _R240 = (1.0 / 12.0, 1.0 / 30.0, 1.0 / 56.
 _R6 = 1.0 / 6.0
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def stumpff(x):
     """Stumpff functions c0..c3 of x, with +, -, *, / only.
 
@@ -74,7 +74,7 @@ def stumpff(x):
     return c0, c1, c2, c3
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def _kepler_eq(s, beta, r0, eta0, zeta0, mu):
     """t(s), r(s) = t'(s), r'(s) and G0, G1, G2 of the universal Kepler equation."""
     c0, c1, c2, c3 = stumpff(beta * s * s)
@@ -87,7 +87,7 @@ def _kepler_eq(s, beta, r0, eta0, zeta0, mu):
     return t, r, rp, c0, g1, g2
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def solve_universal(r0, eta0, beta, mu, dt):
     """Solve the universal Kepler equation for s.
 

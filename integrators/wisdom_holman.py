@@ -16,10 +16,11 @@ from numba import njit
 
 from . import correctors
 from .base import Integrator
+from .diagnostics import diagnose
 from .kepler import drift_row
 from .nbody import accelerations, gr_coefficient
 from .stops import check_stops
-from .system import inertial_from_jacobi, jacobi_from_inertial, jacobi_mu
+from .system import jacobi_from_inertial, jacobi_mu
 
 
 @njit(cache=True, error_model="numpy")
@@ -117,6 +118,39 @@ def apply_stages(xj, vj, gm, mu, eta, dt, gr_coef, a_arr, c_arr, xi, acc):
         drift_all(xj, vj, mu, -a_arr[s] * dt)
 
 
+@njit(cache=True, error_model="numpy")
+def synchronize(xj, vj, gm, mu, eta, dt, pending, gr_coef, a_arr, c_arr, xi, acc, xo, vo):
+    """Physical inertial state of the (unchanged) internal state into xo, vo.
+
+    Works on copies: the pending half-drift and the inverse corrector are
+    applied to xo/vo only.
+    """
+    cx = xj.copy()
+    cv = vj.copy()
+    if pending:
+        drift_all(cx, cv, mu, 0.5 * dt)
+    apply_stages(cx, cv, gm, mu, eta, dt, gr_coef, a_arr, c_arr, xi, acc)
+    to_inertial(cx, gm, eta, xo)
+    to_inertial(cv, gm, eta, vo)
+
+
+@njit(cache=True, error_model="numpy")
+def wh_diagnose(xj, vj, gm, mu, eta, dt, pending, gr_coef, a_arr, c_arr, cx, cv, xi, acc,
+                xo, vo, els):
+    """Synchronize into scratch copies and diagnose in one compiled call.
+
+    Returns (G*energy, G*Lx, G*Ly, G*Lz); elements go into els (n-1, 6).
+    """
+    cx[:, :] = xj
+    cv[:, :] = vj
+    if pending:
+        drift_all(cx, cv, mu, 0.5 * dt)
+    apply_stages(cx, cv, gm, mu, eta, dt, gr_coef, a_arr, c_arr, xi, acc)
+    to_inertial(cx, gm, eta, xo)
+    to_inertial(cv, gm, eta, vo)
+    return diagnose(xo, vo, gm, gr_coef, els)
+
+
 def _stage_arrays(order, sign):
     st = correctors.stages(order, sign)
     return (np.array([a for a, _ in st], dtype=np.float64),
@@ -177,15 +211,21 @@ class WisdomHolman(Integrator):
         return steps, code, a, b
 
     def _synchronized_state(self):
-        xj = self.xj.copy()
-        vj = self.vj.copy()
-        if self.pending:
-            drift_all(xj, vj, self.mu, 0.5 * self.dt)
-        if self.corrector:
-            a, c = self._inv
-            apply_stages(xj, vj, self.gm, self.mu, self.eta, self.dt, self.gr_coef,
-                         a, c, self._xi.copy(), self._acc.copy())
-        return inertial_from_jacobi(self.gm, xj), inertial_from_jacobi(self.gm, vj)
+        n = len(self.gm)
+        xo = np.empty((n, 3))
+        vo = np.empty((n, 3))
+        a, c = self._inv
+        synchronize(self.xj, self.vj, self.gm, self.mu, self.eta, self.dt, self.pending,
+                    self.gr_coef, a, c, np.empty((n, 3)), np.empty((n, 3)), xo, vo)
+        return xo, vo
+
+    def _diagnose_into(self, els):
+        if not hasattr(self, "_diag_scratch"):
+            n = len(self.gm)
+            self._diag_scratch = tuple(np.empty((n, 3)) for _ in range(6))
+        a, c = self._inv
+        return wh_diagnose(self.xj, self.vj, self.gm, self.mu, self.eta, self.dt, self.pending,
+                           self.gr_coef, a, c, *self._diag_scratch, els)
 
     def _internal_arrays(self):
         return {"xj": self.xj.copy(), "vj": self.vj.copy(),

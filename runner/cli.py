@@ -8,9 +8,8 @@ from typing import Annotated, Optional
 import typer
 from rich.console import Console
 
-from . import defaults
+from . import defaults, stopflag
 from .errors import OrbitLedgerError
-from .workspace import init as init_workspace, open_ledger
 
 app = typer.Typer(add_completion=False, no_args_is_help=True,
                   help="Queue, run, resume and audit long planetary-system integrations.")
@@ -26,6 +25,20 @@ DbOpt = Annotated[Optional[str], typer.Option(
     "--db", envvar=defaults.ENV_DB,
     help="Database URL (default: the workspace's SQLite file).")]
 JobArg = Annotated[int, typer.Argument(help="Job id.", min=1)]
+# True when running as the `orbitledger` program (not inside a test's CliRunner).
+_AS_PROGRAM = [False]
+
+
+def init_workspace(path, url):
+    from .workspace import init
+
+    return init(path, url)
+
+
+def open_ledger(path, url, **kw):
+    from .workspace import open_ledger as _open
+
+    return _open(path, url, **kw)
 
 
 def fail(message, code=2):
@@ -104,6 +117,8 @@ def work(workspace: WorkspaceOpt = None, db: DbOpt = None,
 
     Exit code 0: nothing left to claim; 3: stopped with work remaining; 1: a worker failed.
     """
+    if workers == 1:
+        stopflag.install()  # before the heavy imports: a stop during start-up is clean
     from .worker import Worker, run_pool, self_command
 
     if order not in ("breadth", "depth"):
@@ -121,7 +136,10 @@ def work(workspace: WorkspaceOpt = None, db: DbOpt = None,
         if job is not None:
             argv += ["--job", str(job)]
         open_ledger(workspace, db).close()  # fail fast with one line if there is no workspace
-        raise typer.Exit(run_pool(argv, workers))
+        code = run_pool(argv, workers)
+        if _AS_PROGRAM[0]:
+            stopflag.exit_now(code)
+        raise typer.Exit(code)
     ledger = open_ledger(workspace, db, lease_seconds=lease)
     beat = min(defaults.HEARTBEAT_SECONDS, lease / 4)
     show = not quiet and out.is_terminal
@@ -134,6 +152,8 @@ def work(workspace: WorkspaceOpt = None, db: DbOpt = None,
             code = w.run()
     finally:
         ledger.close()
+    if _AS_PROGRAM[0]:
+        stopflag.exit_now(code)
     raise typer.Exit(code)
 
 
@@ -250,9 +270,10 @@ def demo(workspace: Annotated[Path, typer.Option(help="Demo workspace folder.")]
 
 
 def main():
-    """Entry point."""
+    """Entry point of the `orbitledger` program."""
+    _AS_PROGRAM[0] = True
     app()
 
 
 if __name__ == "__main__":
-    sys.exit(app())
+    main()

@@ -9,7 +9,6 @@ SELECT ... FOR UPDATE SKIP LOCKED.
 from sqlalchemy import (BigInteger, Column, Float, ForeignKey, Index, Integer, MetaData,
                         String, Table, Text, create_engine, event)
 from sqlalchemy.engine import make_url
-from sqlalchemy.pool import NullPool
 
 from . import defaults
 from .errors import LedgerError
@@ -134,8 +133,12 @@ def make_engine(url):
         raise LedgerError(f"database URL {redact(url)} could not be parsed; give "
                           "sqlite:///path or postgresql+psycopg://user@host/db.") from None
     if parsed.get_backend_name() == "sqlite":
-        engine = create_engine(url, poolclass=NullPool,
-                               connect_args={"timeout": defaults.SQLITE_BUSY_MS / 1000})
+        # A small pool: the PRAGMAs below run once per connection, not per
+        # transaction. Worker processes are started fresh, never forked with
+        # open connections.
+        engine = create_engine(url, pool_size=2, max_overflow=4,
+                               connect_args={"timeout": defaults.SQLITE_BUSY_MS / 1000,
+                                             "check_same_thread": False})
 
         @event.listens_for(engine, "connect")
         def _on_connect(dbapi_conn, _record):

@@ -23,7 +23,7 @@ DEFAULT_OUTPUT_STEPS = 1_000
 # Chunk (checkpoint interval) when a spec gives none, in outputs.
 DEFAULT_CHUNK_OUTPUTS = 1_000
 # Samples per Zarr chunk along the sample dimension.
-SAMPLE_CHUNK = 4_096
+SAMPLE_CHUNK = 1_024
 # Exit code of `work` when work remains (stopped by signal or deadline).
 EXIT_WORK_REMAINS = 3
 # Exit code of `work` when a worker failed.

@@ -149,22 +149,21 @@ class Ledger:
         token. Returns a :class:`Claim` or None if nothing is runnable.
         """
         now = _now(now)
-        with self.engine.connect() as conn:
-            dead = _dead_local_owners(conn)
-        runnable = or_(jobs.c.status == JobStatus.QUEUED.value,
-                       and_(jobs.c.status == JobStatus.RUNNING.value,
-                            or_(jobs.c.lease_expires < now, jobs.c.id.in_(dead))))
-        q = select(jobs.c.id, jobs.c.status, jobs.c.fence).where(runnable)
-        if job_id is not None:
-            q = q.where(jobs.c.id == job_id)
-        if order == "breadth":
-            q = q.order_by(jobs.c.priority.desc(), jobs.c.steps_done, jobs.c.id)
-        else:
-            q = q.order_by(jobs.c.priority.desc(), jobs.c.steps_done.desc(), jobs.c.id)
-        q = q.limit(1)
-        if not is_sqlite(self.engine):
-            q = q.with_for_update(skip_locked=True)
         with self.engine.begin() as conn:
+            dead = _dead_local_owners(conn)
+            runnable = or_(jobs.c.status == JobStatus.QUEUED.value,
+                           and_(jobs.c.status == JobStatus.RUNNING.value,
+                                or_(jobs.c.lease_expires < now, jobs.c.id.in_(dead))))
+            q = select(jobs.c.id, jobs.c.status, jobs.c.fence).where(runnable)
+            if job_id is not None:
+                q = q.where(jobs.c.id == job_id)
+            if order == "breadth":
+                q = q.order_by(jobs.c.priority.desc(), jobs.c.steps_done, jobs.c.id)
+            else:
+                q = q.order_by(jobs.c.priority.desc(), jobs.c.steps_done.desc(), jobs.c.id)
+            q = q.limit(1)
+            if not is_sqlite(self.engine):
+                q = q.with_for_update(skip_locked=True)
             row = conn.execute(q).mappings().first()
             if row is None:
                 return None

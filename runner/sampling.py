@@ -2,40 +2,68 @@
 
 import numpy as np
 
-from integrators.nbody import angular_momentum, energy
+from integrators.constants import G
+
+
+class SampleBuffer:
+    """Samples gathered during one chunk, in preallocated arrays, written at commit.
+
+    Parameters
+    ----------
+    n_bodies : int
+        Bodies including the star.
+    energy0, angmom0 : float, array (3,)
+        The job's initial energy (Msun au^2/d^2) and angular momentum.
+    capacity : int
+        Rows to preallocate (grows if needed).
+    """
+
+    def __init__(self, n_bodies, energy0, angmom0, capacity=16):
+        self.nb = n_bodies - 1
+        self.e0g = energy0 * G
+        self.l0g = np.asarray(angmom0, dtype=np.float64) * G
+        self.l0n = float(np.linalg.norm(self.l0g))
+        self.n = 0
+        self._alloc(max(1, int(capacity)))
+
+    def _alloc(self, cap):
+        old = getattr(self, "arrays", None)
+        self.arrays = {"time": np.empty(cap), "step": np.empty(cap, dtype=np.int64),
+                       "energy_error": np.empty(cap), "angmom_error": np.empty(cap),
+                       "elements": np.empty((cap, self.nb, 6))}
+        if old is not None:
+            for k in old:
+                self.arrays[k][: self.n] = old[k][: self.n]
+
+    def __len__(self):
+        return self.n
+
+    def clear(self):
+        """Forget the rows (keep the memory)."""
+        self.n = 0
+
+    def add(self, integ):
+        """Append one sample of the integrator's synchronized state."""
+        k = self.n
+        if k == len(self.arrays["time"]):
+            self._alloc(2 * k)
+        a = self.arrays
+        e, lx, ly, lz = integ.diagnose_into(a["elements"][k])
+        a["time"][k] = integ.time
+        a["step"][k] = integ.step
+        a["energy_error"][k] = (e - self.e0g) / abs(self.e0g)
+        l0 = self.l0g
+        a["angmom_error"][k] = ((lx - l0[0]) ** 2 + (ly - l0[1]) ** 2
+                                + (lz - l0[2]) ** 2) ** 0.5 / self.l0n
+        self.n = k + 1
+
+    def block(self):
+        """The rows so far as a dict of arrays (views)."""
+        return {k: v[: self.n] for k, v in self.arrays.items()}
 
 
 def sample_now(integ, energy0, angmom0):
     """One sample of the integrator's synchronized state, as a block of one row."""
-    s = integ.synchronized()
-    e = energy(s.x, s.v, s.gm, integ._gr_coef())
-    lv = angular_momentum(s.x, s.v, s.gm)
-    l0 = np.asarray(angmom0, dtype=np.float64)
-    return {
-        "time": np.array([integ.time]),
-        "step": np.array([integ.step], dtype=np.int64),
-        "energy_error": np.array([(e - energy0) / abs(energy0)]),
-        "angmom_error": np.array([np.linalg.norm(lv - l0) / np.linalg.norm(l0)]),
-        "elements": s.elements()[None, :, :],
-    }
-
-
-class SampleBuffer:
-    """Samples gathered during one chunk, written to the store at commit."""
-
-    def __init__(self):
-        self.rows = []
-
-    def add(self, block):
-        self.rows.append(block)
-
-    def __len__(self):
-        return len(self.rows)
-
-    def block(self, n_bodies):
-        """All rows as one block (dict of arrays), empty arrays if none."""
-        if not self.rows:
-            return {"time": np.zeros(0), "step": np.zeros(0, dtype=np.int64),
-                    "energy_error": np.zeros(0), "angmom_error": np.zeros(0),
-                    "elements": np.zeros((0, n_bodies - 1, 6))}
-        return {k: np.concatenate([r[k] for r in self.rows]) for k in self.rows[0]}
+    buf = SampleBuffer(len(integ.gm), energy0, angmom0, capacity=1)
+    buf.add(integ)
+    return {k: v.copy() for k, v in buf.block().items()}

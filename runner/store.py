@@ -2,8 +2,11 @@
 
 Layout of ``store/job-00000042/``::
 
-    checkpoints/00000007-3/<key>   exact integrator state arrays of checkpoint 7,
-                                   written under fencing token 3 (never rewritten)
+    checkpoints/00000007-3         exact integrator state of checkpoint 7, written
+                                   under fencing token 3 (never rewritten): one
+                                   uint8 array holding every state array's raw
+                                   bytes; its attribute "layout" lists each
+                                   array's key, dtype, shape and byte offset
     samples/time, step, energy_error, angmom_error   (sample,)
     samples/elements                                 (sample, body, element)
 
@@ -117,6 +120,7 @@ class Store:
 
     def __init__(self, root):
         self.root = Path(root)
+        self._open = {}
 
     def job_path(self, job_id):
         """Folder of a job's Zarr group."""
@@ -126,27 +130,38 @@ class Store:
         path = self.job_path(job_id)
         if mode == "r" and not path.exists():
             raise StoreError(f"job {job_id} has no Zarr group at {path}.")
-        return zarr.open_group(str(path), mode=mode)
+        if mode == "r":
+            return zarr.open_group(str(path), mode="r")
+        # Writers reuse their handle: opening a group re-reads its metadata.
+        key = int(job_id)
+        if key not in self._open:
+            self._open[key] = zarr.open_group(str(path), mode="a")
+        return self._open[key]
 
     # -- creation -------------------------------------------------------------
     def create_job(self, job_id, body_names):
         """Create (or reset) a job's group with empty sample arrays."""
         try:
             path = self.job_path(job_id)
+            self._open.pop(int(job_id), None)
+            self._open.pop(("samples", int(job_id)), None)
             g = zarr.open_group(str(path), mode="w")
             g.attrs["body_names"] = list(body_names)
             g.attrs["element_names"] = ELEMENT_NAMES
             g.attrs["units"] = {"time": "d", "a": "au", "angles": "deg"}
             s = g.create_group("samples")
             for key, (dtype, dims) in _SERIES.items():
+                # Uncompressed: appends rewrite partly filled chunks, and float
+                # time series compress poorly anyway.
                 s.create_array(key, shape=(0,), dtype=dtype, chunks=(defaults.SAMPLE_CHUNK,),
-                               dimension_names=dims)
+                               dimension_names=dims, compressors=None)
             nb = len(body_names) - 1
             s.create_array("elements", shape=(0, nb, 6), dtype="f8",
                            chunks=(defaults.SAMPLE_CHUNK, nb, 6),
-                           dimension_names=["sample", "body", "element"])
+                           dimension_names=["sample", "body", "element"], compressors=None)
             s.attrs["body_names"] = list(body_names[1:])
             g.create_group("checkpoints")
+            self._open[int(job_id)] = g
         except OSError as err:
             raise StoreError(f"could not create the store for job {job_id}: {err}") from err
 
@@ -161,16 +176,23 @@ class Store:
 
         t0 = _time.time() - 1.0
         storable = to_storable(arrays)
+        layout, parts, offset = [], [], 0
+        for key in sorted(storable):
+            arr = storable[key]
+            layout.append([key, arr.dtype.str, list(arr.shape), offset, arr.nbytes])
+            parts.append(arr.tobytes())
+            offset += arr.nbytes
+        blob = np.frombuffer(b"".join(parts), dtype=np.uint8)
+        digest = state_sha256(storable)
+        name = self._ck_name(idx, fence)
         try:
             g = self._group(job_id)
-            ck = g.require_group("checkpoints").create_group(self._ck_name(idx, fence),
-                                                             overwrite=True)
-            for key, arr in storable.items():
-                ck.create_array(key, data=arr, compressors=None)
-            digest = state_sha256(storable)
-            ck.attrs["state_sha256"] = digest
+            ck = g["checkpoints"].create_array(
+                name, shape=blob.shape, dtype="u1", chunks=blob.shape, compressors=None,
+                overwrite=True, attributes={"layout": layout, "state_sha256": digest})
+            ck[...] = blob
             if durable:
-                _fsync_tree(self.job_path(job_id) / "checkpoints" / self._ck_name(idx, fence), t0)
+                _fsync_tree(self.job_path(job_id) / "checkpoints" / name, t0)
         except OSError as err:
             raise StoreError(f"could not write checkpoint {idx} of job {job_id}: {err}") from err
         return digest
@@ -180,7 +202,11 @@ class Store:
         name = self._ck_name(idx, fence)
         try:
             ck = self._group(job_id, "r")["checkpoints"][name]
-            storable = {key: np.asarray(ck[key][...]) for key in ck.array_keys()}
+            blob = np.asarray(ck[...]).tobytes()
+            storable = {}
+            for key, dtype, shape, offset, nbytes in ck.attrs["layout"]:
+                storable[key] = np.frombuffer(blob[offset:offset + nbytes],
+                                              dtype=np.dtype(dtype)).reshape(shape).copy()
         except (KeyError, OSError, ValueError) as err:
             raise StoreError(f"checkpoint {idx} of job {job_id} could not be read "
                              f"({type(err).__name__}: {err}).") from None
@@ -203,9 +229,7 @@ class Store:
         t0 = _time.time() - 1.0
         n = len(block["time"])
         try:
-            s = self._group(job_id)["samples"]
-            for key in list(_SERIES) + ["elements"]:
-                arr = s[key]
+            for key, arr in self._sample_arrays(job_id).items():
                 shape = list(arr.shape)
                 shape[0] = start + n
                 arr.resize(tuple(shape))
@@ -216,6 +240,13 @@ class Store:
         except OSError as err:
             raise StoreError(f"could not write samples of job {job_id}: {err}") from err
         return samples_sha256(block)
+
+    def _sample_arrays(self, job_id):
+        key = ("samples", int(job_id))
+        if key not in self._open:
+            s = self._group(job_id)["samples"]
+            self._open[key] = {k: s[k] for k in list(_SERIES) + ["elements"]}
+        return self._open[key]
 
     def read_samples(self, job_id, n=None, start=0):
         """Committed samples as a dict of arrays (rows start..n)."""

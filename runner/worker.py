@@ -16,14 +16,14 @@ import time
 
 import numpy as np
 
-from . import defaults, provenance
+from . import defaults, provenance, stopflag
 from .errors import FencedError, StoreError
 from .ledger import angmom0
 from .sampling import SampleBuffer, sample_now
 from .faults import failpoint
 from .status import ACTIVE, JobStatus
 
-STOP_SIGNALS = (signal.SIGTERM, signal.SIGINT, signal.SIGHUP, signal.SIGUSR1)
+STOP_SIGNALS = stopflag.STOP_SIGNALS
 
 
 class Worker:
@@ -59,19 +59,19 @@ class Worker:
         self.max_steps_per_call = int(max_steps_per_call)
         self.heartbeat_seconds = float(heartbeat_seconds)
         self.stop_requested = None
+        self._use_flag = False
         self.failed = False
         self.results = []
 
     # -- signals ------------------------------------------------------------------
     def install_signal_handlers(self):
         """Make the stop signals request a clean stop instead of killing the process."""
-        for sig in STOP_SIGNALS:
-            signal.signal(sig, self._on_signal)
-
-    def _on_signal(self, signum, _frame):
-        self.stop_requested = signal.Signals(signum).name
+        stopflag.install()
+        self._use_flag = True
 
     def _should_stop(self):
+        if self._use_flag and stopflag.requested():
+            self.stop_requested = stopflag.requested()
         return self.stop_requested is not None or (
             self.deadline is not None and self.clock() >= self.deadline)
 
@@ -143,10 +143,10 @@ class Worker:
         n_samples = int(ck["n_samples"])
         max_e, max_l = row["max_energy_error"], row["max_angmom_error"]
         last_beat = self.clock()
-        n_bodies = len(integ.gm)
+        buf = SampleBuffer(len(integ.gm), e0, l0, capacity=min(chunk // out + 1, 4096))
         while True:
             chunk_end = min((integ.step // chunk + 1) * chunk, total)
-            buf = SampleBuffer()
+            buf.clear()
             stop = None
             request = None
             interrupted = False
@@ -161,7 +161,7 @@ class Worker:
                     stop = res
                     break
                 if integ.step % out == 0:
-                    buf.add(sample_now(integ, e0, l0))
+                    buf.add(integ)
                 now = self.clock()
                 if now - last_beat >= self.heartbeat_seconds:
                     request = self.ledger.heartbeat(claim, now=now)
@@ -177,7 +177,7 @@ class Worker:
             # Fence check right before touching the store.
             self.ledger.heartbeat(claim, now=self.clock())
             last_beat = self.clock()
-            block = buf.block(n_bodies)
+            block = buf.block()
             here = sample_now(integ, e0, l0)
             e_err = float(abs(here["energy_error"][0]))
             l_err = float(here["angmom_error"][0])

@@ -90,3 +90,14 @@ def test_bad_elements_are_named():
         el.to_state(1.0, 1.0, 1.0, 0, 0, 0, 0)
     with pytest.raises(ValueError, match="unique"):
         System(["a", "a"], [1.0, 0.0], np.zeros((2, 3)), np.zeros((2, 3)))
+
+
+def test_compiled_elements_match_reference_conversion():
+    from integrators.diagnostics import heliocentric_elements
+
+    s = System.from_elements(["Tessaly", "b", "c", "d"], [0.9, 1e-3, 3e-4, 1e-5],
+                             [[1.0, 0.05, 1.0, 10, 20, 30], [2.5, 0.0, 0.0, 40, 50, 60],
+                              [4.0, 0.3, 120.0, 200, 300, 350]])
+    out = np.empty((3, 6))
+    heliocentric_elements(s.x, s.v, s.gm, out)
+    np.testing.assert_allclose(out, s.elements(), rtol=1e-12, atol=1e-9)

@@ -94,9 +94,13 @@ def test_sigterm_checkpoints_releases_and_exits_3(tmp_path):
     ws, led = init(tmp_path / "ws")
     jid = led.submit(small_spec(**medium))
     terms = 0
+    rng = random.Random(5)
     while led.job(jid)["status"] != "done":
         proc = _spawn(ws)
-        time.sleep(1.6)
+        # Signal once this worker holds the job (not during its start-up).
+        while proc.poll() is None and not str(led.job(jid)["owner"]).endswith(f":{proc.pid}"):
+            time.sleep(0.05)
+        time.sleep(rng.uniform(0.1, 0.6))
         if proc.poll() is None:
             proc.send_signal([signal.SIGTERM, signal.SIGINT, signal.SIGHUP,
                               signal.SIGUSR1][terms % 4])
