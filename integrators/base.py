@@ -75,12 +75,38 @@ class Integrator:
 
     def advance(self, n_steps):
         """Take up to n_steps steps; stop early if a stop condition is met."""
+        n_steps = self._check_steps(n_steps)
+        if n_steps == 0:
+            return AdvanceResult(0, StopKind.DONE, (), self.step)
+        steps, code, a, b, _ = self._advance_impl(n_steps)
+        return self._result(steps, code, a, b)
+
+    def advance_sampled(self, n_steps, every, out_g, out_el, row0):
+        """Advance like :meth:`advance`, diagnosing a synchronized copy at every
+        absolute step that is a multiple of `every`, inside the compiled loop.
+
+        Row r of out_g receives (step, G*energy, G*Lx, G*Ly, G*Lz) and row r
+        of out_el the heliocentric elements (degrees), for r from row0.
+        The arrays must have room for n_steps // every + 1 more rows.
+        Returns (AdvanceResult, next free row). Samples never touch the live
+        state, so the trajectory is the same with or without them.
+        """
+        n_steps = self._check_steps(n_steps)
+        if n_steps == 0:
+            return AdvanceResult(0, StopKind.DONE, (), self.step), row0
+        if every < 1 or len(out_g) < row0 + n_steps // every + 1:
+            raise ValueError("sample arrays too small for the requested steps and cadence.")
+        steps, code, a, b, rows = self._advance_impl(n_steps, every, out_g, out_el, row0)
+        return self._result(steps, code, a, b), int(rows)
+
+    @staticmethod
+    def _check_steps(n_steps):
         n_steps = int(n_steps)
         if n_steps < 0:
             raise ValueError(f"n_steps must be >= 0, got {n_steps}.")
-        if n_steps == 0:
-            return AdvanceResult(0, StopKind.DONE, (), self.step)
-        steps, code, a, b = self._advance_impl(n_steps)
+        return n_steps
+
+    def _result(self, steps, code, a, b):
         self.step += int(steps)
         bodies = tuple(int(k) for k in (a, b) if k >= 0)
         return AdvanceResult(int(steps), KIND_BY_CODE[code], bodies, self.step)

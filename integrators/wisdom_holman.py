@@ -88,13 +88,38 @@ def kick(xj, vj, gm, mu, eta, h, gr_coef, xi, acc):
 
 
 @njit(cache=True, error_model="numpy")
-def wh_steps(xj, vj, gm, mu, eta, dt, n_steps, pending, gr_coef, pairs, params, xi, acc, rh):
+def wh_diagnose(xj, vj, gm, mu, eta, dt, pending, gr_coef, a_arr, c_arr, cx, cv, xi, acc,
+                xo, vo, els):
+    """Synchronize into scratch copies and diagnose in one compiled call.
+
+    Returns (G*energy, G*Lx, G*Ly, G*Lz); elements go into els (n-1, 6).
+    """
+    cx[:, :] = xj
+    cv[:, :] = vj
+    if pending:
+        drift_all(cx, cv, mu, 0.5 * dt)
+    apply_stages(cx, cv, gm, mu, eta, dt, gr_coef, a_arr, c_arr, xi, acc)
+    to_inertial(cx, gm, eta, xo)
+    to_inertial(cv, gm, eta, vo)
+    return diagnose(xo, vo, gm, gr_coef, els)
+
+
+@njit(cache=True, error_model="numpy")
+def wh_steps(xj, vj, gm, mu, eta, dt, n_steps, pending, gr_coef, pairs, params, xi, acc, rh,
+             step0, every, a_inv, c_inv, scratch, out_g, out_el, row0):
     """Take n_steps merged drift-kick-drift steps in place.
 
-    Returns (steps taken, pending flag, stop code, body a, body b).
+    With every > 0, after each step whose absolute number (step0 + k + 1) is
+    a multiple of every, a synchronized copy is diagnosed into row `rows` of
+    out_g (step, G*energy, G*Lx, G*Ly, G*Lz) and out_el (elements): outputs
+    never touch the live state. Returns (steps taken, pending flag, stop
+    code, body a, body b, next free row).
     """
     half = 0.5 * dt
     check = params[0] > 0.0
+    rows = row0
+    # Steps until the next sample (a countdown: no integer division per step).
+    until = every - step0 % every if every > 0 else -1
     for k in range(n_steps):
         if pending:
             drift_all(xj, vj, mu, dt)
@@ -105,8 +130,20 @@ def wh_steps(xj, vj, gm, mu, eta, dt, n_steps, pending, gr_coef, pairs, params, 
         if check:
             code, a, b = check_stops(xi, xj, vj, mu, pairs, params, rh)
             if code != 0:
-                return k + 1, pending, code, a, b
-    return n_steps, pending, 0, -1, -1
+                return k + 1, pending, code, a, b, rows
+        until -= 1
+        if until == 0:
+            until = every
+            e, lx, ly, lz = wh_diagnose(xj, vj, gm, mu, eta, dt, pending, gr_coef, a_inv, c_inv,
+                                        scratch[0], scratch[1], scratch[2], scratch[3],
+                                        scratch[4], scratch[5], out_el[rows])
+            out_g[rows, 0] = step0 + k + 1
+            out_g[rows, 1] = e
+            out_g[rows, 2] = lx
+            out_g[rows, 3] = ly
+            out_g[rows, 4] = lz
+            rows += 1
+    return n_steps, pending, 0, -1, -1, rows
 
 
 @njit(cache=True, error_model="numpy")
@@ -132,23 +169,6 @@ def synchronize(xj, vj, gm, mu, eta, dt, pending, gr_coef, a_arr, c_arr, xi, acc
     apply_stages(cx, cv, gm, mu, eta, dt, gr_coef, a_arr, c_arr, xi, acc)
     to_inertial(cx, gm, eta, xo)
     to_inertial(cv, gm, eta, vo)
-
-
-@njit(cache=True, error_model="numpy")
-def wh_diagnose(xj, vj, gm, mu, eta, dt, pending, gr_coef, a_arr, c_arr, cx, cv, xi, acc,
-                xo, vo, els):
-    """Synchronize into scratch copies and diagnose in one compiled call.
-
-    Returns (G*energy, G*Lx, G*Ly, G*Lz); elements go into els (n-1, 6).
-    """
-    cx[:, :] = xj
-    cv[:, :] = vj
-    if pending:
-        drift_all(cx, cv, mu, 0.5 * dt)
-    apply_stages(cx, cv, gm, mu, eta, dt, gr_coef, a_arr, c_arr, xi, acc)
-    to_inertial(cx, gm, eta, xo)
-    to_inertial(cv, gm, eta, vo)
-    return diagnose(xo, vo, gm, gr_coef, els)
 
 
 def _stage_arrays(order, sign):
@@ -200,15 +220,21 @@ class WisdomHolman(Integrator):
         self._acc = np.zeros((n, 3))
         self._rh = np.zeros(n)
         self._inv = _stage_arrays(self.corrector, -1.0)
+        self._diag_scratch = np.empty((6, n, 3))
+        self._no_out = (np.empty((0, 5)), np.empty((0, n - 1, 6)))
 
     def _gr_coef(self):
         return self.gr_coef
 
-    def _advance_impl(self, n):
-        steps, self.pending, code, a, b = wh_steps(
+    def _advance_impl(self, n, every=0, out_g=None, out_el=None, row0=0):
+        if out_g is None:
+            out_g, out_el = self._no_out
+        a_inv, c_inv = self._inv
+        steps, self.pending, code, a, b, rows = wh_steps(
             self.xj, self.vj, self.gm, self.mu, self.eta, self.dt, n, self.pending,
-            self.gr_coef, self._stop_pairs, self._stop_params, self._xi, self._acc, self._rh)
-        return steps, code, a, b
+            self.gr_coef, self._stop_pairs, self._stop_params, self._xi, self._acc, self._rh,
+            self.step, every, a_inv, c_inv, self._diag_scratch, out_g, out_el, row0)
+        return steps, code, a, b, rows
 
     def _synchronized_state(self):
         n = len(self.gm)
@@ -220,9 +246,6 @@ class WisdomHolman(Integrator):
         return xo, vo
 
     def _diagnose_into(self, els):
-        if not hasattr(self, "_diag_scratch"):
-            n = len(self.gm)
-            self._diag_scratch = tuple(np.empty((n, 3)) for _ in range(6))
         a, c = self._inv
         return wh_diagnose(self.xj, self.vj, self.gm, self.mu, self.eta, self.dt, self.pending,
                            self.gr_coef, a, c, *self._diag_scratch, els)

@@ -128,7 +128,8 @@ class Ledger:
                 created_at=now, updated_at=now)).inserted_primary_key[0]
             # The store is written inside the open transaction: if it fails the
             # job row is rolled back and nothing is left in the ledger.
-            self.store.create_job(job_id, sysm.names)
+            self.store.create_job(job_id, sysm.names,
+                                  capacity=plan.total_steps // plan.output_steps + 1)
             digest = self.store.write_checkpoint(job_id, 0, 0, integ.state_arrays())
             s_hash = self.store.write_samples(job_id, 0, first)
             conn.execute(insert(checkpoints).values(

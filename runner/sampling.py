@@ -49,13 +49,33 @@ class SampleBuffer:
             self._alloc(2 * k)
         a = self.arrays
         e, lx, ly, lz = integ.diagnose_into(a["elements"][k])
-        a["time"][k] = integ.time
+        a["time"][k] = integ.t0 + integ.step * integ.dt
         a["step"][k] = integ.step
         a["energy_error"][k] = (e - self.e0g) / abs(self.e0g)
         l0 = self.l0g
         a["angmom_error"][k] = ((lx - l0[0]) ** 2 + (ly - l0[1]) ** 2
                                 + (lz - l0[2]) ** 2) ** 0.5 / self.l0n
         self.n = k + 1
+
+    def advance(self, integ, n_steps, every):
+        """Advance integ by up to n_steps, sampling at multiples of every inside the kernel."""
+        need = self.n + n_steps // every + 1
+        if need > len(self.arrays["time"]):
+            self._alloc(max(need, 2 * len(self.arrays["time"])))
+        if not hasattr(self, "_g") or len(self._g) < len(self.arrays["time"]):
+            self._g = np.empty((len(self.arrays["time"]), 5))
+        start = self.n
+        res, rows = integ.advance_sampled(n_steps, every, self._g, self.arrays["elements"], start)
+        if rows > start:
+            g = self._g[start:rows]
+            a = self.arrays
+            a["step"][start:rows] = g[:, 0].astype(np.int64)
+            a["time"][start:rows] = integ.t0 + a["step"][start:rows] * integ.dt
+            a["energy_error"][start:rows] = (g[:, 1] - self.e0g) / abs(self.e0g)
+            d = g[:, 2:5] - self.l0g
+            a["angmom_error"][start:rows] = np.sqrt((d * d).sum(axis=1)) / self.l0n
+            self.n = rows
+        return res
 
     def block(self):
         """The rows so far as a dict of arrays (views)."""

@@ -139,8 +139,13 @@ class Store:
         return self._open[key]
 
     # -- creation -------------------------------------------------------------
-    def create_job(self, job_id, body_names):
-        """Create (or reset) a job's group with empty sample arrays."""
+    def create_job(self, job_id, body_names, capacity=0):
+        """Create (or reset) a job's group with sample arrays of `capacity` rows.
+
+        Sizing the arrays for the whole run up front costs no disk (unwritten
+        Zarr chunks do not exist) and spares a resize per commit; unwritten
+        rows read as NaN (step -1).
+        """
         try:
             path = self.job_path(job_id)
             self._open.pop(int(job_id), None)
@@ -153,10 +158,11 @@ class Store:
             for key, (dtype, dims) in _SERIES.items():
                 # Uncompressed: appends rewrite partly filled chunks, and float
                 # time series compress poorly anyway.
-                s.create_array(key, shape=(0,), dtype=dtype, chunks=(defaults.SAMPLE_CHUNK,),
-                               dimension_names=dims, compressors=None)
+                s.create_array(key, shape=(capacity,), dtype=dtype,
+                               chunks=(defaults.SAMPLE_CHUNK,), dimension_names=dims,
+                               compressors=None, fill_value=-1 if dtype == "i8" else np.nan)
             nb = len(body_names) - 1
-            s.create_array("elements", shape=(0, nb, 6), dtype="f8",
+            s.create_array("elements", shape=(capacity, nb, 6), dtype="f8", fill_value=np.nan,
                            chunks=(defaults.SAMPLE_CHUNK, nb, 6),
                            dimension_names=["sample", "body", "element"], compressors=None)
             s.attrs["body_names"] = list(body_names[1:])
@@ -220,8 +226,11 @@ class Store:
 
     # -- samples --------------------------------------------------------------
     def write_samples(self, job_id, start, block, durable=True):
-        """Write a block of samples at rows start.. (truncating anything beyond start).
+        """Write a block of samples at rows start...
 
+        The arrays grow geometrically, so rows beyond the committed count may
+        hold fill values or uncommitted data until :meth:`trim_samples` cuts
+        them when the job ends; readers use the ledger's committed count.
         Returns the SHA-256 of the block.
         """
         import time as _time
@@ -229,17 +238,29 @@ class Store:
         t0 = _time.time() - 1.0
         n = len(block["time"])
         try:
-            for key, arr in self._sample_arrays(job_id).items():
-                shape = list(arr.shape)
-                shape[0] = start + n
-                arr.resize(tuple(shape))
-                if n:
-                    arr[start:start + n] = block[key]
+            arrays = self._sample_arrays(job_id)
+            need = start + n
+            if arrays["time"].shape[0] < need:
+                cap = max(need, 2 * arrays["time"].shape[0], defaults.SAMPLE_CHUNK)
+                for arr in arrays.values():
+                    arr.resize((cap,) + tuple(arr.shape[1:]))
+            if n:
+                for key, arr in arrays.items():
+                    arr[start:need] = block[key]
             if durable:
                 _fsync_tree(self.job_path(job_id) / "samples", t0)
         except OSError as err:
             raise StoreError(f"could not write samples of job {job_id}: {err}") from err
         return samples_sha256(block)
+
+    def trim_samples(self, job_id, n):
+        """Cut the sample arrays to exactly the n committed rows."""
+        try:
+            for arr in self._sample_arrays(job_id).values():
+                if arr.shape[0] != n:
+                    arr.resize((n,) + tuple(arr.shape[1:]))
+        except OSError as err:
+            raise StoreError(f"could not trim samples of job {job_id}: {err}") from err
 
     def _sample_arrays(self, job_id):
         key = ("samples", int(job_id))
@@ -252,6 +273,9 @@ class Store:
         """Committed samples as a dict of arrays (rows start..n)."""
         s = self._group(job_id, "r")["samples"]
         stop = s["time"].shape[0] if n is None else n
+        if stop > s["time"].shape[0]:
+            raise StoreError(f"job {job_id} has {s['time'].shape[0]} stored samples, fewer "
+                             f"than the {stop} committed; the store is damaged.")
         return {key: np.asarray(s[key][start:stop]) for key in list(_SERIES) + ["elements"]}
 
     def body_names(self, job_id):

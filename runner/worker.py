@@ -153,15 +153,12 @@ class Worker:
             wall0 = self.clock()
             step0 = integ.step
             while integ.step < chunk_end:
-                target = min((integ.step // out + 1) * out, chunk_end,
-                             integ.step + self.max_steps_per_call)
-                res = integ.advance(target - integ.step)
+                res = buf.advance(integ, min(chunk_end, integ.step + self.max_steps_per_call)
+                                  - integ.step, out)
                 failpoint("first_step")
                 if res.stopped:
                     stop = res
                     break
-                if integ.step % out == 0:
-                    buf.add(integ)
                 now = self.clock()
                 if now - last_beat >= self.heartbeat_seconds:
                     request = self.ledger.heartbeat(claim, now=now)
@@ -218,6 +215,9 @@ class Worker:
             n_samples += len(block["time"])
             total = result.total_steps
             if result.status != JobStatus.RUNNING:
+                if result.status in (JobStatus.DONE, JobStatus.STOPPED, JobStatus.CANCELLED):
+                    # Finished: leave exactly the committed rows for readers.
+                    self.ledger.store.trim_samples(job_id, n_samples)
                 return result.status
 
 

@@ -1,0 +1,105 @@
+"""Worker benchmark: the cost of `work` over the bare kernel, and resume latency.
+
+1. A job of 10^6 steps with the default chunking and outputs (a sample every
+   1000 steps, a checkpoint every 1000 samples), run by an in-process Worker
+   on a fresh SQLite ledger, against the bare kernel taking the same 10^6
+   steps in one call. Alternated, best of 7 each.
+2. Resume latency: from starting `orbitledger work` on a job with committed
+   checkpoints to its first kernel step (the process is killed there by the
+   `first_step` failpoint).
+
+Run:  .venv/bin/python tests/benchmarks/bench_work.py
+"""
+
+import os
+import platform
+import shutil
+import subprocess
+import sys
+import tempfile
+import time
+
+HERE = os.path.dirname(os.path.abspath(__file__))
+ROOT = os.path.dirname(os.path.dirname(HERE))
+sys.path.insert(0, ROOT)
+
+from runner import spec as spec_mod  # noqa: E402
+from runner.ledger import Ledger  # noqa: E402
+from runner.worker import Worker  # noqa: E402
+
+STEPS = 1_000_000
+
+
+def job_spec(spec_file, length):
+    """A jobs/ spec with the default chunk and output and a span of STEPS steps."""
+    spec = spec_mod.load(os.path.join(ROOT, "jobs", spec_file))
+    span = spec.span.model_copy(update={"length": length, "chunk": None, "output": None})
+    return spec.model_copy(update={"span": span})
+
+
+def bare(spec):
+    integ = spec_mod.resolve(spec).make_integrator()
+    t = time.perf_counter()
+    integ.advance(STEPS)
+    return time.perf_counter() - t
+
+
+def worker(spec, tmp):
+    shutil.rmtree(tmp, ignore_errors=True)
+    led = Ledger(f"sqlite:///{tmp}.sqlite", tmp)
+    jid = led.submit(spec)
+    t = time.perf_counter()
+    Worker(led).run()
+    wall = time.perf_counter() - t
+    row = led.job(jid)
+    assert row["status"] == "done" and row["steps_done"] == STEPS, row
+    led.close()
+    os.remove(f"{tmp}.sqlite")
+    return wall, row["n_samples"], row["n_checkpoints"]
+
+
+def resume_latency(spec, tmp, repeats=5):
+    shutil.rmtree(tmp, ignore_errors=True)
+    from runner.workspace import init
+
+    ws, led = init(tmp)
+    led.submit(spec)
+    w = Worker(led, max_steps_per_call=10_000)
+    w.deadline = time.time() + 0.5
+    w.run()  # leave it part-way, with committed checkpoints
+    led.close()
+    times = []
+    for _ in range(repeats):
+        env = dict(os.environ, ORBITLEDGER_FAILPOINTS="first_step:1")
+        t = time.perf_counter()
+        subprocess.run([sys.executable, "-m", "runner.cli", "work", "--workspace", str(ws),
+                        "--quiet"], env=env, cwd=ROOT)
+        times.append(time.perf_counter() - t)
+    return min(times), max(times)
+
+
+def main():
+    tmp = tempfile.mkdtemp()
+    print(f"# {time.strftime('%Y-%m-%d')} {platform.node()} python {platform.python_version()}")
+    cases = [("four giants, dt 0.5 yr", job_spec("veyra-giants.toml", "500000 yr")),
+             ("eight planets, dt 4 d", job_spec("veyra-full.toml", "4000000 d"))]
+    print("| job (10^6 steps) | bare kernel | work | overhead | samples | checkpoints |")
+    print("|---|---|---|---|---|---|")
+    for label, spec in cases:
+        bare(spec)  # compile and warm
+        worker(spec, os.path.join(tmp, "w"))
+        b, w = [], []
+        for _ in range(7):
+            b.append(bare(spec))
+            wall, ns, nc = worker(spec, os.path.join(tmp, "w"))
+            w.append(wall)
+        print(f"| {label} | {min(b):.3f} s | {min(w):.3f} s | {100 * (min(w) / min(b) - 1):+.1f}% "
+              f"| {ns} | {nc + 1} |")
+    lo, hi = resume_latency(cases[0][1], os.path.join(tmp, "r"))
+    print(f"\nresume: start of `orbitledger work` to the first kernel step: {lo:.2f} s best, "
+          f"{hi:.2f} s worst of 5")
+    shutil.rmtree(tmp, ignore_errors=True)
+
+
+if __name__ == "__main__":
+    main()
