@@ -31,6 +31,7 @@ class Claim:
     fence: int
     owner: str
     lease_expires: float
+    segment_id: int | None = None
 
 
 @dataclass(frozen=True)
@@ -140,14 +141,16 @@ class Ledger:
         return int(job_id)
 
     # -- claim / heartbeat ----------------------------------------------------------
-    def claim(self, owner, now=None, job_id=None, order="breadth"):
+    def claim(self, owner, now=None, job_id=None, order="breadth", provenance=None):
         """Claim one runnable job (queued, or running with an expired lease).
 
         A running job whose owner is a process on this host that no longer
         exists is runnable at once (its lease cannot be renewed by anyone).
 
         One atomic update sets the owner, the lease expiry and a new fencing
-        token. Returns a :class:`Claim` or None if nothing is runnable.
+        token. With ``provenance`` (see :mod:`runner.provenance`) the segment
+        of work is opened in the same transaction. Returns a :class:`Claim`
+        or None if nothing is runnable.
         """
         now = _now(now)
         with self.engine.begin() as conn:
@@ -176,7 +179,21 @@ class Ledger:
             if row["status"] == JobStatus.RUNNING.value:
                 self._event(conn, row["id"], "lease_taken_over", None, None, None,
                             {"new_owner": owner, "fence": fence}, now)
-        return Claim(int(row["id"]), fence, owner, expires)
+            seg = None
+            if provenance is not None:
+                start = conn.execute(select(jobs.c.steps_done).where(
+                    jobs.c.id == row["id"])).scalar()
+                seg = self._insert_segment(conn, row["id"], fence, owner, start, provenance, now)
+        return Claim(int(row["id"]), fence, owner, expires, seg)
+
+    def check_fence(self, claim):
+        """Raise FencedError unless the claim's fencing token is still current (read only)."""
+        with self.engine.connect() as conn:
+            row = conn.execute(select(jobs.c.fence, jobs.c.status).where(
+                jobs.c.id == claim.job_id)).first()
+        if row is None or row[0] != claim.fence or row[1] != JobStatus.RUNNING.value:
+            raise FencedError(f"job {claim.job_id}: lease with token {claim.fence} "
+                              "is no longer held; discarding uncommitted work.")
 
     def heartbeat(self, claim, now=None):
         """Extend the lease; returns the job's pending request ('hold', 'cancel' or None).
@@ -199,14 +216,17 @@ class Ledger:
     def commit_checkpoint(self, claim, *, idx, step, time_, state_hash, samples_hash,
                           n_samples, energy_error, angmom_error, max_energy_error,
                           max_angmom_error, then, outcome=None, reason=None,
-                          segment_id=None, wall_seconds=0.0, rate=None, now=None):
+                          segment_id=None, wall_seconds=0.0, rate=None, now=None,
+                          end_reason=None):
         """Record checkpoint idx and advance progress, only under the current fence.
 
         ``then`` says what the worker wants next: "continue", "release" (work
         remains, let another worker take it), "done", "stopped" (with
         ``outcome`` = (kind, step, time, bodies)), "held" (with ``reason``).
         A pending user request (hold, cancel) and an extension made meanwhile
-        are applied here. Returns a :class:`CommitResult`.
+        are applied here. If the job stops running, the segment is closed in
+        the same transaction (``end_reason`` defaults to the new status).
+        Returns a :class:`CommitResult`.
         """
         now = _now(now)
         with self.engine.begin() as conn:
@@ -266,6 +286,9 @@ class Ledger:
                 self._event(conn, claim.job_id, kind, o_step, o_time, bodies, None, now)
             if then == "held" and reason:
                 self._event(conn, claim.job_id, "held", step, time_, (), {"reason": reason}, now)
+            if segment_id is not None and new != JobStatus.RUNNING:
+                conn.execute(update(segments).where(segments.c.id == segment_id).values(
+                    end_step=step, ended_at=now, end_reason=end_reason or new.value))
             failpoint("before_commit")
         failpoint("after_commit")
         return CommitResult(new, total, requested)
@@ -356,12 +379,17 @@ class Ledger:
         """Record the start of a stretch of work by this worker; returns its id."""
         now = _now(now)
         with self.engine.begin() as conn:
-            return int(conn.execute(insert(segments).values(
-                job_id=claim.job_id, fence=claim.fence, worker=claim.owner, host=prov["host"],
-                pid=prov["pid"], user=prov.get("user"), argv=prov.get("argv"),
-                versions=json.dumps(prov.get("versions", {}), sort_keys=True),
-                platform=prov.get("platform"), cpu=prov.get("cpu"), start_step=start_step,
-                started_at=now)).inserted_primary_key[0])
+            return self._insert_segment(conn, claim.job_id, claim.fence, claim.owner, start_step,
+                                        prov, now)
+
+    @staticmethod
+    def _insert_segment(conn, job_id, fence, owner, start_step, prov, now):
+        return int(conn.execute(insert(segments).values(
+            job_id=job_id, fence=fence, worker=owner, host=prov["host"],
+            pid=prov["pid"], user=prov.get("user"), argv=prov.get("argv"),
+            versions=json.dumps(prov.get("versions", {}), sort_keys=True),
+            platform=prov.get("platform"), cpu=prov.get("cpu"), start_step=start_step,
+            started_at=now)).inserted_primary_key[0])
 
     def end_segment(self, segment_id, end_step, reason, now=None):
         """Record the end of a stretch of work."""

@@ -80,7 +80,7 @@ class Worker:
         """Work until nothing is claimable, a deadline, or a stop signal. Returns an exit code."""
         while not self._should_stop():
             claim = self.ledger.claim(self.owner, now=self.clock(), job_id=self.job_id,
-                                      order=self.order)
+                                      order=self.order, provenance=provenance.collect())
             if claim is None:
                 break
             self.results.append((claim.job_id, self.run_claim(claim)))
@@ -110,8 +110,13 @@ class Worker:
             self.failed = True
             self.ledger.release(claim, now=self.clock(), status=JobStatus.FAILED,
                                 reason=f"could not load the last checkpoint: {err}")
+            if claim.segment_id is not None:
+                self.ledger.end_segment(claim.segment_id, None, "load_failed", now=self.clock())
             return JobStatus.FAILED
-        seg = self.ledger.start_segment(claim, integ.step, provenance.collect(), now=self.clock())
+        seg = claim.segment_id
+        if seg is None:
+            seg = self.ledger.start_segment(claim, integ.step, provenance.collect(),
+                                            now=self.clock())
         try:
             status = self._chunks(claim, row, plan, integ, ck, seg)
         except FencedError:
@@ -129,7 +134,6 @@ class Worker:
                                 reason=f"{type(err).__name__}: {err}")
             self.ledger.end_segment(seg, None, "failed", now=self.clock())
             raise
-        self.ledger.end_segment(seg, integ.step, status.value, now=self.clock())
         return status
 
     def _chunks(self, claim, row, plan, integ, ck, seg):
@@ -171,9 +175,9 @@ class Worker:
                     break
                 if self.progress is not None:
                     self.progress(row, integ.step, _rate(integ, step0, wall0, self.clock()))
-            # Fence check right before touching the store.
-            self.ledger.heartbeat(claim, now=self.clock())
-            last_beat = self.clock()
+            # Fence check right before touching the store (read only; the
+            # commit that follows renews the lease).
+            self.ledger.check_fence(claim)
             block = buf.block()
             here = sample_now(integ, e0, l0)
             e_err = float(abs(here["energy_error"][0]))
