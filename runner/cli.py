@@ -80,10 +80,13 @@ def submit(spec_file: Annotated[Path, typer.Argument(help="Job spec (TOML).")],
     spec = spec_mod.load(spec_file)  # validated before the ledger is touched
     ledger = open_ledger(workspace, db)
     try:
-        job_id = ledger.submit(spec, priority=priority)
+        if spec.ensemble is not None and spec.member is None:
+            ens_id, ids = ledger.submit_ensemble(spec, priority=priority)
+            out.print(f"ensemble {ens_id}: jobs {ids[0]}..{ids[-1]}")
+        else:
+            out.print(ledger.submit(spec, priority=priority))
     finally:
         ledger.close()
-    out.print(job_id)
 
 
 _WALL_UNITS = {"s": 1.0, "sec": 1.0, "min": 60.0, "m": 60.0, "h": 3600.0, "hr": 3600.0,
@@ -189,13 +192,60 @@ def _work_with_progress(ledger, end, job, order, beat):
 
 @app.command()
 @_guard
-def status(workspace: WorkspaceOpt = None, db: DbOpt = None):
+def status(workspace: WorkspaceOpt = None, db: DbOpt = None,
+           ensemble: Annotated[Optional[int], typer.Option(help="Only this ensemble's members.")]
+           = None):
     """A table of all jobs."""
     from .report import status_table
 
     ledger = open_ledger(workspace, db)
     try:
-        out.print(status_table(ledger.jobs()))
+        out.print(status_table(ledger.jobs(ensemble_id=ensemble)))
+    finally:
+        ledger.close()
+
+
+@app.command()
+@_guard
+def outcomes(ensemble_id: Annotated[int, typer.Argument(help="Ensemble id.", min=1)],
+             workspace: WorkspaceOpt = None, db: DbOpt = None,
+             plot: Annotated[Optional[Path], typer.Option(
+                 help="Write the survival curve here (.png or .svg).")] = None,
+             html: Annotated[Optional[Path], typer.Option(
+                 help="Write a self-contained HTML report here.")] = None):
+    """An ensemble's outcomes: counts, instability fraction, survival curve."""
+    from rich.table import Table
+
+    from . import plots
+    from .outcomes import ensemble_section, summarise, summary_rows
+
+    ledger = open_ledger(workspace, db)
+    try:
+        ens = ledger.ensemble(ensemble_id)
+        s = summarise(ledger.jobs(ensemble_id=ensemble_id))
+        t = Table(title=f"Ensemble {ensemble_id}: {ens['name']} ({s.n} members)",
+                  header_style="bold")
+        for col in ("outcome", "members", "times (yr)"):
+            t.add_column(col)
+        for r in summary_rows(s):
+            t.add_row(*map(str, r))
+        out.print(t)
+        out.print(f"instability fraction {s.unstable}/{s.n} = {s.fraction:.3f}, 95% Wilson "
+                  f"interval {s.ci[0]:.3f}-{s.ci[1]:.3f}; median time to instability "
+                  + ("not reached" if s.median is None else f"{s.median:.4g} yr")
+                  + " (Kaplan-Meier, unfinished members censored)")
+        if plot is not None:
+            if plot.suffix.lower() not in (".png", ".svg"):
+                fail(f"--plot must end in .png or .svg, got {plot.name!r}.")
+            plots.save(plots.survival_figure(s, f"ensemble {ensemble_id}: {ens['name']}"), plot)
+            out.print(f"survival curve written to {plot}")
+        if html is not None:
+            section, _ = ensemble_section(ledger, ensemble_id)
+            tmp = html.with_name(html.name + ".part")
+            tmp.write_text(plots.page(f"orbitledger ensemble {ensemble_id}: {ens['name']}",
+                                      [("Outcomes", section)]), encoding="utf-8")
+            tmp.replace(html)  # atomic: never a half-written report
+            out.print(f"report written to {html}")
     finally:
         ledger.close()
 

@@ -112,6 +112,18 @@ events = Table(
 Index("ix_events_job", events.c.job_id)
 
 
+ensembles = Table(
+    "ensembles", metadata,
+    Column("id", Integer, primary_key=True, autoincrement=True),
+    Column("name", String(100), nullable=False),
+    Column("spec_json", Text, nullable=False),
+    Column("spec_sha256", String(64), nullable=False),
+    Column("members", Integer, nullable=False),
+    Column("created_at", Float, nullable=False),
+    sqlite_autoincrement=True,
+)
+
+
 def is_sqlite(engine):
     """True for the embedded SQLite backend."""
     return engine.dialect.name == "sqlite"

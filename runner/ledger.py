@@ -14,7 +14,8 @@ import numpy as np
 from sqlalchemy import and_, func, insert, or_, select, update
 
 from . import defaults
-from .db import checkpoints, create_schema, events, is_sqlite, jobs, make_engine, segments
+from .db import (checkpoints, create_schema, ensembles, events, is_sqlite, jobs, make_engine,
+                 segments)
 from .errors import FencedError, LedgerError, NotFoundError
 from .faults import failpoint
 from .status import JobStatus, check_transition
@@ -96,14 +97,38 @@ class Ledger:
         return row
 
     # -- submit -------------------------------------------------------------------
-    def submit(self, spec, now=None, priority=0, ensemble_id=None, plan=None,
-               integrator=None, parent=None):
+    def submit(self, spec, now=None, priority=0, plan=None, integrator=None, parent=None):
         """Queue a validated spec; writes checkpoint 0 and the first sample. Returns the id.
 
-        ``integrator`` may give the exact starting state (e.g. a backward run
-        from a forward job's checkpoint); otherwise the spec's system is used.
+        A spec with an [ensemble] section (and no member index) is submitted
+        as an ensemble: use :meth:`submit_ensemble`. ``integrator`` may give
+        the exact starting state (e.g. a backward run from a forward job's
+        checkpoint); otherwise the spec's system is used.
         """
+        if spec.ensemble is not None and spec.member is None:
+            return self.submit_ensemble(spec, now=now, priority=priority)[1][0]
         now = _now(now)
+        with self.engine.begin() as conn:
+            return self._submit_in(conn, spec, now, priority, None, plan, integrator, parent)
+
+    def submit_ensemble(self, spec, now=None, priority=0):
+        """Create an ensemble and all its members in one transaction.
+
+        Returns (ensemble id, [member job ids]).
+        """
+        from .ensemble import member_spec
+
+        now = _now(now)
+        members = [member_spec(spec, k) for k in range(spec.ensemble.members)]
+        with self.engine.begin() as conn:
+            ens_id = int(conn.execute(insert(ensembles).values(
+                name=spec.name, spec_json=_spec_json(spec), spec_sha256=_spec_sha(spec),
+                members=spec.ensemble.members, created_at=now)).inserted_primary_key[0])
+            ids = [self._submit_in(conn, m, now, priority, ens_id, None, None, None)
+                   for m in members]
+        return ens_id, ids
+
+    def _submit_in(self, conn, spec, now, priority, ensemble_id, plan, integrator, parent):
         if plan is None:
             from .spec import resolve
 
@@ -115,30 +140,44 @@ class Ledger:
         from .sampling import sample_now
 
         first = sample_now(integ, energy0, angmom0)
-        with self.engine.begin() as conn:
-            job_id = conn.execute(insert(jobs).values(
-                name=spec.name, spec_json=_spec_json(spec), spec_sha256=_spec_sha(spec),
-                status=JobStatus.QUEUED.value, method=plan.method, n_bodies=sysm.n, dt=plan.dt,
-                total_steps=integ.step + plan.total_steps if parent else plan.total_steps,
-                chunk_steps=plan.chunk_steps, output_steps=plan.output_steps,
-                steps_done=integ.step, n_checkpoints=0, n_samples=1, energy0=energy0,
-                angmom0=json.dumps([float(q) for q in angmom0]), fence=0, priority=priority,
-                ensemble_id=ensemble_id,
-                parent_job_id=None if parent is None else parent[0],
-                parent_checkpoint=None if parent is None else parent[1],
-                created_at=now, updated_at=now)).inserted_primary_key[0]
-            # The store is written inside the open transaction: if it fails the
-            # job row is rolled back and nothing is left in the ledger.
-            self.store.create_job(job_id, sysm.names,
-                                  capacity=plan.total_steps // plan.output_steps + 1)
-            digest = self.store.write_checkpoint(job_id, 0, 0, integ.state_arrays())
-            s_hash = self.store.write_samples(job_id, 0, first)
-            conn.execute(insert(checkpoints).values(
-                job_id=job_id, idx=0, step=integ.step, time=integ.time, fence=0,
-                state_sha256=digest, chain_sha256=chain_sha256(GENESIS, digest, s_hash),
-                samples_sha256=s_hash, n_samples=1, energy_error=0.0, angmom_error=0.0,
-                created_at=now))
+        total = integ.step + plan.total_steps if parent else plan.total_steps
+        job_id = conn.execute(insert(jobs).values(
+            name=spec.name, spec_json=_spec_json(spec), spec_sha256=_spec_sha(spec),
+            status=JobStatus.QUEUED.value, method=plan.method, n_bodies=sysm.n, dt=plan.dt,
+            total_steps=total, chunk_steps=plan.chunk_steps, output_steps=plan.output_steps,
+            steps_done=integ.step, n_checkpoints=0, n_samples=1, energy0=energy0,
+            angmom0=json.dumps([float(q) for q in angmom0]), fence=0, priority=priority,
+            ensemble_id=ensemble_id,
+            parent_job_id=None if parent is None else parent[0],
+            parent_checkpoint=None if parent is None else parent[1],
+            created_at=now, updated_at=now)).inserted_primary_key[0]
+        # The store is written inside the open transaction: if it fails the
+        # job row is rolled back and nothing is left in the ledger.
+        self.store.create_job(job_id, sysm.names,
+                              capacity=(total - integ.step) // plan.output_steps + 1)
+        digest = self.store.write_checkpoint(job_id, 0, 0, integ.state_arrays())
+        s_hash = self.store.write_samples(job_id, 0, first)
+        conn.execute(insert(checkpoints).values(
+            job_id=job_id, idx=0, step=integ.step, time=integ.time, fence=0,
+            state_sha256=digest, chain_sha256=chain_sha256(GENESIS, digest, s_hash),
+            samples_sha256=s_hash, n_samples=1, energy_error=0.0, angmom_error=0.0,
+            created_at=now))
         return int(job_id)
+
+    def ensemble(self, ensemble_id):
+        """One ensemble's row as a dict."""
+        with self.engine.connect() as conn:
+            row = conn.execute(select(ensembles).where(
+                ensembles.c.id == ensemble_id)).mappings().first()
+        if row is None:
+            raise NotFoundError(f"no ensemble {ensemble_id} in this ledger.")
+        return dict(row)
+
+    def ensembles(self):
+        """All ensembles' rows."""
+        with self.engine.connect() as conn:
+            return [dict(r) for r in conn.execute(select(ensembles).order_by(ensembles.c.id))
+                    .mappings()]
 
     # -- claim / heartbeat ----------------------------------------------------------
     def claim(self, owner, now=None, job_id=None, order="breadth", provenance=None):

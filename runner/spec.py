@@ -107,6 +107,30 @@ class StopSpec(_Strict):
         return v
 
 
+PERTURBABLE = ("a", "e", "i", "mean_anomaly", "x", "y", "z")
+
+
+class PerturbSpec(_Strict):
+    body: str
+    quantity: Literal["a", "e", "i", "mean_anomaly", "x", "y", "z"]
+    rule: Literal["step", "normal", "uniform"] = "step"
+    size: str | float
+    relative: bool = False
+
+
+class EnsembleSpec(_Strict):
+    members: int
+    seed: int = 0
+    perturb: PerturbSpec
+
+    @field_validator("members")
+    @classmethod
+    def _members(cls, v):
+        if not 1 <= v <= 100_000:
+            raise ValueError("must be between 1 and 100000")
+        return v
+
+
 class JobSpec(_Strict):
     """A validated job spec (structure and types; see :func:`resolve` for meaning)."""
 
@@ -117,6 +141,8 @@ class JobSpec(_Strict):
     span: SpanSpec
     budget: BudgetSpec = BudgetSpec()
     stops: StopSpec = StopSpec()
+    ensemble: EnsembleSpec | None = None
+    member: int | None = None
 
     @field_validator("name")
     @classmethod
@@ -303,8 +329,12 @@ def _mass(key, value):
     return m
 
 
-def build_system(sysspec):
-    """The initial System (barycentric frame) of a validated spec."""
+def build_system(sysspec, ensemble=None, member=None):
+    """The initial System (barycentric frame) of a validated spec.
+
+    With an ensemble rule and a member index, that member's perturbation is
+    applied (see :mod:`runner.ensemble`).
+    """
     from integrators.system import inertial_from_jacobi, jacobi_mu
 
     if len(sysspec.bodies) < 1:
@@ -335,9 +365,19 @@ def build_system(sysspec):
 
     gm_arr = np.array(gm)
     mu = jacobi_mu(gm_arr) if sysspec.frame == "jacobi" else gm_arr[0] + gm_arr
+    target, offset = None, 0.0
+    if ensemble is not None:
+        from .ensemble import member_offset
+
+        target, offset = member_offset(sysspec, ensemble, member)
     for k, b in enumerate(sysspec.bodies):
+        if k == target and ensemble.perturb.quantity in ("a", "e", "i", "mean_anomaly"):
+            b = _perturbed_elements(f"system.bodies[{k}]", b, ensemble.perturb, offset)
         x, v = _body_state(f"system.bodies[{k}]", b, float(mu[k + 1]))
-        rel_x[k + 1], rel_v[k + 1] = list(x), list(v)
+        x, v = list(x), list(v)
+        if k == target and ensemble.perturb.quantity in ("x", "y", "z"):
+            x["xyz".index(ensemble.perturb.quantity)] += offset
+        rel_x[k + 1], rel_v[k + 1] = x, v
     rel_x, rel_v = np.array(rel_x, dtype=float), np.array(rel_v, dtype=float)
     if sysspec.frame == "jacobi":
         rel_x = inertial_from_jacobi(gm_arr, rel_x)
@@ -348,9 +388,27 @@ def build_system(sysspec):
     return System(names, gm_arr, rel_x, rel_v, 0.0, np.array(radii)).to_barycentric_frame()
 
 
+def _perturbed_elements(key, body, rule, offset):
+    """A copy of a body spec with one element shifted by offset (internal units)."""
+    if body.a is None:
+        raise SpecError(f"`ensemble.perturb.quantity` {rule.quantity!r} needs `{key}` to be "
+                        "given by orbital elements; perturb x, y or z instead.")
+    if rule.quantity == "a":
+        a = parse_quantity(f"{key}.a", body.a, "length")
+        return body.model_copy(update={"a": f"{a + offset!r} au"})
+    if rule.quantity == "e":
+        return body.model_copy(update={"e": body.e + offset})
+    ang = parse_quantity(f"{key}.{rule.quantity}", getattr(body, rule.quantity), "angle")
+    return body.model_copy(update={rule.quantity: f"{ang + offset!r} deg"})
+
+
 def resolve(spec):
     """Resolve a validated spec to a :class:`Plan` (raises SpecError)."""
-    system = build_system(spec.system)
+    if spec.member is not None and spec.ensemble is None:
+        raise SpecError(f"`member` is {spec.member} but the spec has no [ensemble] section; "
+                        "remove `member` or add the ensemble rule.")
+    system = build_system(spec.system, spec.ensemble,
+                          spec.member if spec.ensemble is not None else None)
     step = parse_quantity("method.step", spec.method.step, "time")
     if not step > 0:
         raise SpecError(f"`method.step` must be positive, got {spec.method.step!r}; "

@@ -200,6 +200,10 @@ class Worker:
                 then = "done"
             elif interrupted and request is None:
                 then = "release"
+            elif self.order == "breadth" and row["ensemble_id"] is not None:
+                # Fair progress: hand the member back after each chunk so the
+                # least advanced member is always the next one worked on.
+                then = "release"
             over = _over_budget(plan, max_e, max_l)
             if over and then != "stopped" and plan.on_exceed != "continue":
                 if plan.on_exceed == "hold":

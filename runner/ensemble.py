@@ -1,0 +1,87 @@
+"""Ensembles: many perturbed clones of one system, and the statistics of their outcomes.
+
+A spec with an ``[ensemble]`` section describes its members: member k is the
+same spec with ``member = k``, and resolving it shifts one quantity of one
+body by the member's offset. The rule is deterministic (a step, or draws
+from numpy's PCG64 generator with the given seed), so the same spec always
+creates the same members, bit for bit.
+
+Offsets, for member k = 0 .. members-1 and size s (internal units, or
+relative to the unperturbed value when ``relative = true``):
+
+- ``step``:    k * s (member 0 is the unperturbed system)
+- ``normal``:  s * z_k, z the k-th standard normal draw of PCG64(seed)
+- ``uniform``: s * u_k, u_k uniform on [-1, 1) from PCG64(seed)
+"""
+
+import numpy as np
+
+from .errors import SpecError
+from .units import parse_quantity
+
+# Unit kind of the perturbation size, by quantity.
+_KIND = {"a": "length", "i": "angle", "mean_anomaly": "angle", "x": "length", "y": "length",
+         "z": "length", "e": None}
+
+
+def _size(rule, base):
+    """The perturbation size in internal units (au or degrees), or relative * base."""
+    key = "ensemble.perturb.size"
+    if rule.relative:
+        if isinstance(rule.size, str):
+            raise SpecError(f"`{key}` must be a plain number when `relative = true`, got "
+                            f"{rule.size!r}; write e.g. size = 1e-12.")
+        if base is None:
+            raise SpecError(f"`ensemble.perturb.relative` cannot be used with quantity "
+                            f"{rule.quantity!r}; give an absolute size with a unit.")
+        return float(rule.size) * base
+    kind = _KIND[rule.quantity]
+    if kind is None:
+        if isinstance(rule.size, str):
+            raise SpecError(f"`{key}` for the eccentricity is a plain number, got {rule.size!r}.")
+        return float(rule.size)
+    if not isinstance(rule.size, str):
+        raise SpecError(f"`{key}` needs a unit for quantity {rule.quantity!r}, got {rule.size!r};"
+                        f" write e.g. \"1 cm\" or \"1e-9 deg\", or set relative = true.")
+    return parse_quantity(key, rule.size, kind)  # au or degrees
+
+
+def draws(rule_kind, seed, members):
+    """The unit offsets of all members (deterministic)."""
+    if rule_kind == "step":
+        return np.arange(members, dtype=np.float64)
+    rng = np.random.Generator(np.random.PCG64(seed))
+    if rule_kind == "normal":
+        return rng.standard_normal(members)
+    return rng.uniform(-1.0, 1.0, members)
+
+
+def member_offset(sysspec, ens, member):
+    """(index of the perturbed body among sysspec.bodies, offset in internal units)."""
+    rule = ens.perturb
+    names = [b.name for b in sysspec.bodies]
+    if rule.body not in names:
+        raise SpecError(f"`ensemble.perturb.body` names {rule.body!r}, which is not one of the "
+                        f"bodies {names}; use one of those names.")
+    k = names.index(rule.body)
+    if member is not None and not 0 <= member < ens.members:
+        raise SpecError(f"`member` must be in 0..{ens.members - 1}, got {member}; "
+                        "members are numbered from 0.")
+    body = sysspec.bodies[k]
+    base = None
+    if rule.quantity == "a" and body.a is not None:
+        base = parse_quantity(f"system.bodies[{k}].a", body.a, "length")
+    elif rule.quantity == "e" and body.e is not None:
+        base = body.e
+    elif rule.quantity in ("i", "mean_anomaly"):
+        base = parse_quantity(f"system.bodies[{k}].{rule.quantity}", getattr(body, rule.quantity),
+                              "angle")
+    size = _size(rule, base)  # checked even for the ensemble's own spec
+    if member is None:
+        return None, 0.0
+    return k, float(size * draws(rule.rule, ens.seed, ens.members)[member])
+
+
+def member_spec(spec, k):
+    """The spec of member k of an ensemble spec."""
+    return spec.model_copy(update={"member": k, "name": f"{spec.name}-m{k:04d}"})

@@ -1,0 +1,133 @@
+"""Outcomes of an ensemble: counts, instability fraction, survival curve.
+
+A member is *unstable* when a stop condition ended it (close encounter,
+ejection, collision with the star, eccentricity limit) and its time is the
+stop time. Every other member is *censored* at the time it has reached: it
+survived so far (finished, still running, held, over budget, cancelled).
+Statistics:
+
+- instability fraction k/n with the Wilson score interval (Wilson 1927),
+  via scipy.stats.binomtest(k, n).proportion_ci(method="wilson");
+- survival curve by Kaplan-Meier (Kaplan & Meier 1958) with unfinished
+  members right-censored, via scipy.stats.ecdf on CensoredData, with its
+  pointwise confidence band (Greenwood's formula, scipy's default);
+- median time to instability: the first time the survival curve falls to
+  0.5 or below, when it does.
+"""
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .status import JobStatus
+
+UNSTABLE = ("close_encounter", "ejection", "star_collision", "eccentricity")
+YEAR_D = 365.25
+
+
+@dataclass
+class Summary:
+    """Outcome statistics of an ensemble (times in years)."""
+
+    n: int
+    counts: dict
+    unstable: int
+    fraction: float
+    ci: tuple
+    times: np.ndarray          # time reached or stop time of every member, years
+    events: np.ndarray         # True where the member went unstable
+    km_t: np.ndarray           # Kaplan-Meier step times, years
+    km_s: np.ndarray           # survival probability just after each time
+    km_lo: np.ndarray
+    km_hi: np.ndarray
+    median: float | None       # median time to instability, years
+    rows: list
+
+
+def member_outcome(row):
+    """(label, time in years, unstable?) of one member job row."""
+    if row["status"] == JobStatus.STOPPED.value and row["outcome"] in UNSTABLE:
+        return row["outcome"], abs(row["outcome_time"]) / YEAR_D, True
+    t = abs(row["steps_done"] * row["dt"]) / YEAR_D
+    if row["status"] == JobStatus.DONE.value:
+        return "survived", t, False
+    if row["outcome"] == "over_budget":
+        return "over_budget", t, False
+    return f"survived so far ({row['status']})", t, False
+
+
+def kaplan_meier(times, events, confidence=0.95):
+    """Kaplan-Meier survival (t, S, lo, hi) via scipy.stats.ecdf on censored data."""
+    from scipy import stats
+
+    times = np.asarray(times, dtype=float)
+    events = np.asarray(events, dtype=bool)
+    if not events.any():
+        return np.zeros(0), np.zeros(0), np.zeros(0), np.zeros(0)
+    data = stats.CensoredData(uncensored=times[events], right=times[~events])
+    res = stats.ecdf(data)
+    sf = res.sf
+    ci = sf.confidence_interval(confidence_level=confidence)
+    q = np.asarray(sf.quantiles)
+    # scipy lists censoring times too; the curve only steps at event times.
+    keep = np.isin(q, np.unique(times[events]))
+    return (q[keep], np.asarray(sf.probabilities)[keep],
+            np.nan_to_num(np.asarray(ci.low.probabilities)[keep], nan=0.0),
+            np.nan_to_num(np.asarray(ci.high.probabilities)[keep], nan=1.0))
+
+
+def wilson(k, n, confidence=0.95):
+    """Wilson score interval of k successes in n trials, via scipy.stats.binomtest."""
+    from scipy import stats
+
+    ci = stats.binomtest(k, n).proportion_ci(confidence_level=confidence, method="wilson")
+    return float(ci.low), float(ci.high)
+
+
+def summarise(rows, confidence=0.95):
+    """A :class:`Summary` of member job rows."""
+    n = len(rows)
+    labels, times, events = [], [], []
+    for r in rows:
+        lab, t, ev = member_outcome(r)
+        labels.append(lab)
+        times.append(t)
+        events.append(ev)
+    times = np.array(times)
+    events = np.array(events, dtype=bool)
+    counts = {}
+    for lab in labels:
+        counts[lab] = counts.get(lab, 0) + 1
+    k = int(events.sum())
+    ci = wilson(k, n, confidence) if n else (0.0, 1.0)
+    km_t, km_s, lo, hi = kaplan_meier(times, events, confidence)
+    below = np.nonzero(km_s <= 0.5)[0]
+    median = float(km_t[below[0]]) if len(below) else None
+    return Summary(n, counts, k, k / n if n else 0.0, ci, times, events, km_t, km_s, lo, hi,
+                   median, [dict(r, label=lab) for r, lab in zip(rows, labels)])
+
+
+def summary_rows(summary):
+    """Rows (outcome, members, times in yr) for tables."""
+    by = {}
+    for r, t, ev in zip(summary.rows, summary.times, summary.events):
+        by.setdefault(r["label"], []).append(t)
+    return [(lab, len(ts), ", ".join(f"{t:.4g}" for t in sorted(ts)[:12])
+             + (" ..." if len(ts) > 12 else "")) for lab, ts in sorted(by.items())]
+
+
+def ensemble_section(ledger, ensemble_id):
+    """HTML section of an ensemble's outcomes (table, statistics, survival plot)."""
+    from . import plots
+
+    ens = ledger.ensemble(ensemble_id)
+    s = summarise(ledger.jobs(ensemble_id=ensemble_id))
+    stats_rows = [("members", s.n), ("unstable", s.unstable),
+                  ("instability fraction", f"{s.fraction:.3f}"),
+                  ("95% Wilson interval", f"{s.ci[0]:.3f} - {s.ci[1]:.3f}"),
+                  ("median time to instability",
+                   "not reached" if s.median is None else f"{s.median:.4g} yr")]
+    img = plots.png_data_uri(plots.survival_figure(s, f"ensemble {ensemble_id}: {ens['name']}"))
+    return (plots.table_html(["outcome", "members", "times (yr)"], summary_rows(s))
+            + plots.table_html(["statistic", "value"], stats_rows)
+            + f"<img alt='survival curve' src='{img}'>"), s
