@@ -21,9 +21,9 @@ from runner.workspace import init
 from helpers import (ROOT, assert_no_double_commit, final_state, samples_bytes,
                      small_spec, small_spec_text)
 
-KILL_POINTS = ["before_store_write", "mid_store_write", "after_store_write", "in_commit",
-               "before_commit", "after_commit", "first_step"]
-LONG = dict(length="150000 yr", chunk="100000 steps", output="2000 steps")
+KILL_POINTS = ["mid_store_write", "in_commit", "before_commit", "before_store_write",
+               "after_store_write", "after_commit", "first_step"]
+LONG = dict(length="400000 yr", chunk="100000 steps", output="2000 steps")
 
 
 def _spawn(ws, failpoints=None):
@@ -57,7 +57,7 @@ def test_sigkill_at_random_moments_resumes_bit_for_bit(tmp_path):
     for attempt in range(40):
         if led.job(jid)["status"] == "done" or (kills >= 14 and attempt > 20):
             break
-        mode = KILL_POINTS[attempt % len(KILL_POINTS)] if attempt % 2 else None
+        mode = KILL_POINTS[(attempt - attempt // 3) % len(KILL_POINTS)] if attempt % 3 else None
         if mode:
             # A point not hit yet is armed at its first occurrence, so every
             # kind of moment is certainly exercised; later ones vary.
@@ -92,7 +92,7 @@ def test_sigkill_at_random_moments_resumes_bit_for_bit(tmp_path):
 
 
 def test_sigterm_checkpoints_releases_and_exits_3(tmp_path):
-    medium = dict(LONG, length="60000 yr")
+    medium = dict(LONG, length="150000 yr")
     ref, ref_id = _reference(tmp_path, **medium)
     ws, led = init(tmp_path / "ws")
     jid = led.submit(small_spec(**medium))
