@@ -47,14 +47,59 @@ def state_bytes(integrator):
 
 
 # -- ledger backends ------------------------------------------------------------
-def _sqlite_url(tmp_path):
-    return f"sqlite:///{tmp_path}/ledger.sqlite"
+# SQLite files in tmp_path, and a real PostgreSQL server on loopback started
+# once per test session by tests/services/pg.sh (or the server named by
+# $ORBITLEDGER_TEST_PG_URL). Each test gets a database of its own.
+import socket
+import subprocess
+import tempfile
+import uuid
+
+SERVICES = os.path.join(os.path.dirname(__file__), "services")
 
 
-BACKENDS = {"sqlite": _sqlite_url}
+def _free_port():
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
 
 
-@pytest.fixture(params=sorted(BACKENDS))
+@pytest.fixture(scope="session")
+def pg_server():
+    """Admin URL of a running PostgreSQL server."""
+    url = os.environ.get("ORBITLEDGER_TEST_PG_URL")
+    if url:
+        yield url
+        return
+    base = tempfile.mkdtemp(prefix="orbitledger-pg-")
+    os.chmod(base, 0o755)
+    out = subprocess.run(["bash", os.path.join(SERVICES, "pg.sh"), "start", base + "/pg",
+                          str(_free_port())], capture_output=True, text=True, timeout=300)
+    if out.returncode != 0:
+        pytest.fail(f"could not start PostgreSQL for the tests: {out.stderr.strip()}")
+    try:
+        yield out.stdout.strip().splitlines()[-1]
+    finally:
+        subprocess.run(["bash", os.path.join(SERVICES, "pg.sh"), "stop", base + "/pg"],
+                       capture_output=True, timeout=120)
+
+
+def new_pg_database(admin_url):
+    """Create an empty database on the server; returns its URL."""
+    import sqlalchemy as sa
+
+    name = "t_" + uuid.uuid4().hex[:16]
+    eng = sa.create_engine(admin_url, isolation_level="AUTOCOMMIT")
+    with eng.connect() as conn:
+        conn.exec_driver_sql(f'CREATE DATABASE "{name}"')
+    eng.dispose()
+    return admin_url.rsplit("/", 1)[0] + "/" + name
+
+
+@pytest.fixture(params=["sqlite", "postgresql"])
 def ledger_url(request):
     """A function tmp_path -> database URL, once per backend."""
-    return BACKENDS[request.param]
+    if request.param == "sqlite":
+        return lambda tmp_path: f"sqlite:///{tmp_path}/ledger.sqlite"
+    admin = request.getfixturevalue("pg_server")
+    return lambda tmp_path: new_pg_database(admin)
