@@ -509,6 +509,48 @@ class Ledger:
         return Integrator.from_state_arrays(arrays), ck
 
 
+def repair_by_replay(ledger, job_id, claim=None):
+    """Recover a job whose last checkpoint in the store is damaged.
+
+    Walks back to the newest checkpoint whose stored state still matches its
+    recorded hash, then integrates forward from it; every later checkpoint
+    must be reproduced bit for bit (its hash equals the recorded one) and is
+    rewritten in the store. Returns (integrator at the last checkpoint, its
+    row, [indices rewritten]). Raises StoreError if nothing can be recovered.
+    """
+    from integrators import Integrator
+
+    from .errors import StoreError
+
+    cks = ledger.checkpoints(job_id)
+    good = None
+    for ck in reversed(cks):
+        try:
+            arrays = ledger.store.read_checkpoint(job_id, ck["idx"], ck["fence"],
+                                                  ck["state_sha256"])
+            good = ck
+            break
+        except StoreError:
+            continue
+    if good is None:
+        raise StoreError(f"job {job_id}: no stored checkpoint matches its recorded hash.")
+    integ = Integrator.from_state_arrays(arrays)
+    rewritten = []
+    for ck in cks[good["idx"] + 1:]:
+        integ.advance(ck["step"] - integ.step)
+        if claim is not None:
+            ledger.check_fence(claim)
+        digest = ledger.store.write_checkpoint(job_id, ck["idx"], ck["fence"],
+                                               integ.state_arrays())
+        if digest != ck["state_sha256"]:
+            raise StoreError(f"job {job_id}: replay from checkpoint {good['idx']} did not "
+                             f"reproduce checkpoint {ck['idx']}; the run cannot be repaired.")
+        rewritten.append(ck["idx"])
+    ledger.record_event(job_id, "repaired", integ.step, integ.time, (),
+                        {"from_checkpoint": good["idx"], "rewritten": rewritten})
+    return integ, cks[-1], rewritten
+
+
 def _dead_local_owners(conn):
     """Ids of running jobs owned by a process of this host that is gone."""
     import os

@@ -61,6 +61,13 @@ def versions():
     }
 
 
+def redact_argv(argv):
+    """The command line with any password in a URL replaced by ***."""
+    import re
+
+    return [re.sub(r"(://[^:/@\s]+):[^@/\s]+@", r"\1:***@", a) for a in argv]
+
+
 def collect():
     """Provenance of this process now (dict)."""
     try:
@@ -71,7 +78,8 @@ def collect():
         "host": socket.gethostname(),
         "pid": os.getpid(),
         "user": user,
-        "argv": " ".join(sys.argv),
+        # Never record a database password (it may be on the command line).
+        "argv": " ".join(redact_argv(sys.argv)),
         "versions": versions(),
         "platform": platform.platform(),
         "cpu": cpu_model(),

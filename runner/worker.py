@@ -18,7 +18,7 @@ import numpy as np
 
 from . import defaults, provenance, stopflag
 from .errors import FencedError, StoreError
-from .ledger import angmom0
+from .ledger import angmom0, repair_by_replay
 from .sampling import SampleBuffer, sample_now
 from .faults import failpoint
 from .status import ACTIVE, JobStatus
@@ -101,11 +101,16 @@ class Worker:
         Returns the job's status afterwards (or "fenced").
         """
         row = self.ledger.job(claim.job_id)
+        # The budget is plain numbers in the stored spec: no unit parsing (and
+        # no astropy import) on the resume path.
+        plan = Budget.from_spec_json(row["spec_json"])
         try:
-            # The budget is plain numbers in the stored spec: no unit parsing
-            # (and no astropy import) on the resume path.
-            plan = Budget.from_spec_json(row["spec_json"])
-            integ, ck = self.ledger.load_integrator(claim.job_id)
+            try:
+                integ, ck = self.ledger.load_integrator(claim.job_id)
+            except StoreError:
+                # Damaged or truncated checkpoint: fall back to the last good
+                # one and replay from there, checking every recorded hash.
+                integ, ck, _ = repair_by_replay(self.ledger, claim.job_id, claim)
         except StoreError as err:
             self.failed = True
             self.ledger.release(claim, now=self.clock(), status=JobStatus.FAILED,
