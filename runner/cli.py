@@ -11,7 +11,7 @@ from rich.console import Console
 from . import defaults, stopflag
 from .errors import OrbitLedgerError
 
-app = typer.Typer(add_completion=False, no_args_is_help=True,
+app = typer.Typer(add_completion=False, no_args_is_help=True, pretty_exceptions_show_locals=False,
                   help="Queue, run, resume and audit long planetary-system integrations.")
 # Wide tables when output goes to a file or pipe (rich would assume 80 columns).
 out = Console(width=None if sys.stdout.isatty() else 150)
@@ -307,6 +307,35 @@ app.command("hold", help="Pause a job (a running one at its next safe point).")(
 app.command("release", help="Queue a held or failed job again.")(_guard(_simple("release")))
 app.command("cancel", help="Abandon a job (a running one at its next safe point).")(
     _guard(_simple("cancel")))
+
+
+@app.command()
+@_guard
+def batch(workspace: WorkspaceOpt = None, db: DbOpt = None,
+          tasks: Annotated[int, typer.Option(help="Array tasks (one worker each).")] = 1,
+          time_limit: Annotated[str, typer.Option("--time", help="Wall time per task, e.g. '48 h'.")]
+          = "24 h",
+          margin: Annotated[float, typer.Option(
+              help="Seconds before the limit at which SLURM sends SIGUSR1.")] = 300.0,
+          partition: Annotated[Optional[str], typer.Option(help="SLURM partition.")] = None,
+          output: Annotated[Optional[Path], typer.Option(
+              help="Script file (default <workspace>/slurm/orbitledger.sbatch).")] = None,
+          do_submit: Annotated[bool, typer.Option("--submit", help="Also sbatch it.")] = False):
+    """Write (and with --submit, submit) a SLURM array script of workers."""
+    from . import cluster
+    from .workspace import resolve_path
+
+    ws = resolve_path(workspace)
+    open_ledger(workspace, db).close()  # the workspace must exist
+    url = cluster.resolve_url(ws, db)
+    cluster.check_shared_db(url)
+    text = cluster.script(ws, tasks, _parse_wall(time_limit), margin, partition=partition)
+    (ws / "slurm").mkdir(exist_ok=True)
+    path = output or ws / "slurm" / "orbitledger.sbatch"
+    cluster.write(path, text)
+    out.print(f"script written to {path}")
+    if do_submit:
+        out.print(f"submitted SLURM job {cluster.submit(path, url)}")
 
 
 @app.command()

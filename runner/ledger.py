@@ -66,7 +66,16 @@ class Ledger:
         self.engine = make_engine(url)
         self.store = Store(store_root)
         self.lease_seconds = float(lease_seconds)
-        create_schema(self.engine)
+        from sqlalchemy.exc import SQLAlchemyError
+
+        from .db import redact
+
+        try:
+            create_schema(self.engine)
+        except SQLAlchemyError as err:
+            reason = str(getattr(err, "orig", err)).strip().splitlines()[0]
+            raise LedgerError(f"cannot open the ledger database {redact(url)}: {reason}; "
+                              "check the URL and that the server is running.") from None
 
     def close(self):
         """Release database connections."""
