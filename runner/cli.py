@@ -311,6 +311,51 @@ app.command("cancel", help="Abandon a job (a running one at its next safe point)
 
 @app.command()
 @_guard
+def verify(job_id: JobArg, workspace: WorkspaceOpt = None, db: DbOpt = None):
+    """Check a job's hash chain, stored checkpoints and samples against the ledger."""
+    from .audit import verify as run_verify
+
+    ledger = open_ledger(workspace, db)
+    try:
+        rep = run_verify(ledger, job_id)
+    finally:
+        ledger.close()
+    if rep.ok:
+        out.print(f"job {job_id}: {rep.checked} checkpoints verified: chain, states and "
+                  "samples match the ledger")
+        return
+    fail(f"job {job_id}: checkpoint {rep.first_bad} is bad: {rep.problem} "
+         f"({len(rep.problems)} problem(s) in all).", code=1)
+
+
+@app.command()
+@_guard
+def replay(job_id: JobArg, workspace: WorkspaceOpt = None, db: DbOpt = None,
+           checkpoint: Annotated[Optional[list[int]], typer.Option(
+               help="Replay from this checkpoint to the next (repeatable).")] = None,
+           sample: Annotated[Optional[int], typer.Option(
+               help="Replay this many randomly chosen stretches.")] = None):
+    """Re-run stretches between checkpoints and require them bit for bit."""
+    from .audit import replay as run_replay
+
+    ledger = open_ledger(workspace, db)
+    try:
+        try:
+            res = run_replay(ledger, job_id, indices=checkpoint, sample=sample)
+        except ValueError as exc:
+            fail(str(exc))
+    finally:
+        ledger.close()
+    bad = [k for k, ok in res if not ok]
+    for k, ok in res:
+        out.print(f"checkpoint {k} -> {k + 1}: {'reproduced bit for bit' if ok else 'DIFFERS'}")
+    if bad:
+        fail(f"job {job_id}: replay from checkpoint {bad[0]} does not reproduce checkpoint "
+             f"{bad[0] + 1}.", code=1)
+
+
+@app.command()
+@_guard
 def batch(workspace: WorkspaceOpt = None, db: DbOpt = None,
           tasks: Annotated[int, typer.Option(help="Array tasks (one worker each).")] = 1,
           time_limit: Annotated[str, typer.Option("--time", help="Wall time per task, e.g. '48 h'.")]

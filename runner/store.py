@@ -276,7 +276,11 @@ class Store:
         if stop > s["time"].shape[0]:
             raise StoreError(f"job {job_id} has {s['time'].shape[0]} stored samples, fewer "
                              f"than the {stop} committed; the store is damaged.")
-        return {key: np.asarray(s[key][start:stop]) for key in list(_SERIES) + ["elements"]}
+        try:
+            return {key: np.asarray(s[key][start:stop]) for key in list(_SERIES) + ["elements"]}
+        except Exception as err:  # noqa: BLE001 - zarr raises codec errors of many types
+            raise StoreError(f"samples of job {job_id} are damaged and could not be read "
+                             f"({type(err).__name__}: {err}).") from None
 
     def body_names(self, job_id):
         """Body names (star first) recorded when the job's group was created."""
