@@ -311,6 +311,31 @@ app.command("cancel", help="Abandon a job (a running one at its next safe point)
 
 @app.command()
 @_guard
+def audit(job_id: JobArg, workspace: WorkspaceOpt = None, db: DbOpt = None):
+    """Energy and angular-momentum budgets: growth law, projection, verdict."""
+    from rich.table import Table
+
+    from .energy_audit import audit_job
+
+    ledger = open_ledger(workspace, db)
+    try:
+        verdicts = audit_job(ledger, job_id)
+    finally:
+        ledger.close()
+    t = Table(title=f"Job {job_id}: error budgets", header_style="bold")
+    for col in ("quantity", "max so far", "budget", "growth t^alpha", "projected at end", "verdict"):
+        t.add_column(col)
+    for v in verdicts:
+        t.add_row(v.quantity, f"{v.max_error:.3e}", "-" if v.budget is None else f"{v.budget:.1e}",
+                  "-" if v.fit is None else f"{v.fit.alpha:.2f} +/- {v.fit.alpha_err:.2f}",
+                  "-" if v.projected is None else f"{v.projected:.3e}", v.verdict)
+    out.print(t)
+    out.print("alpha near 0: bounded oscillation; near 1/2: round-off random walk (Brouwer 1937);"
+              " near 1: systematic drift.")
+
+
+@app.command()
+@_guard
 def verify(job_id: JobArg, workspace: WorkspaceOpt = None, db: DbOpt = None):
     """Check a job's hash chain, stored checkpoints and samples against the ledger."""
     from .audit import verify as run_verify

@@ -67,3 +67,11 @@ def test_tampered_chain_is_named(tmp_path):
     rep = verify(led, j)
     assert rep.first_bad == 3 and "chain" in rep.problem
     led.close()
+
+
+def test_audit_command_reports_verdicts(tmp_path):
+    ws, led, j = _job(tmp_path)
+    led.close()
+    r = CliRunner().invoke(app, ["audit", "1", "--workspace", str(ws)])
+    assert r.exit_code == 0, r.output
+    assert "energy" in r.output and "within budget" in r.output
