@@ -160,6 +160,22 @@ class Integrator:
     def _gr_coef(self):
         return 0.0
 
+    def reversed(self):
+        """A new integrator continuing from this internal state in the other direction.
+
+        The pending half-drift (if any) is applied first, so the new one
+        starts synchronized at this time with step -dt and its step counter
+        at 0. Coordinates stay the internal ones (corrector applied), so a
+        forward run followed by its reverse retraces the same map.
+        """
+        arrays = {k: np.array(v) for k, v in self.state_arrays().items()}
+        arrays["t0"] = np.array([self.time])
+        arrays["dt"] = np.array([-self.dt])
+        arrays["step"] = np.array([0], dtype=np.int64)
+        back = Integrator.from_state_arrays(arrays)
+        back._settle_pending(self.dt)  # each method applies its own half-drift
+        return back
+
     # -- exact state capture -------------------------------------------------
     def state_arrays(self):
         """Everything needed to continue bit for bit, as plain numpy arrays.

@@ -98,6 +98,11 @@ class Leapfrog(Integrator):
             _drift(x, self.v, 0.5 * self.dt)
         return x, self.v.copy()
 
+    def _settle_pending(self, dt_forward):
+        if self.pending:
+            _drift(self.x, self.v, 0.5 * dt_forward)
+            self.pending = False
+
     def _internal_arrays(self):
         return {"x": self.x.copy(), "v": self.v.copy(),
                 "pending": np.array([int(self.pending)], dtype=np.int64)}

@@ -250,6 +250,11 @@ class WisdomHolman(Integrator):
         return wh_diagnose(self.xj, self.vj, self.gm, self.mu, self.eta, self.dt, self.pending,
                            self.gr_coef, a, c, *self._diag_scratch, els)
 
+    def _settle_pending(self, dt_forward):
+        if self.pending:
+            drift_all(self.xj, self.vj, self.mu, 0.5 * dt_forward)
+            self.pending = False
+
     def _internal_arrays(self):
         return {"xj": self.xj.copy(), "vj": self.vj.copy(),
                 "pending": np.array([int(self.pending)], dtype=np.int64),

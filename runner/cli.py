@@ -336,6 +336,44 @@ def audit(job_id: JobArg, workspace: WorkspaceOpt = None, db: DbOpt = None):
 
 @app.command()
 @_guard
+def backward(job_id: JobArg, workspace: WorkspaceOpt = None, db: DbOpt = None,
+             checkpoint: Annotated[Optional[int], typer.Option(
+                 help="Start from this checkpoint (default: the last).")] = None):
+    """Queue a backward run from a checkpoint of a job, back to its start."""
+    ledger = open_ledger(workspace, db)
+    try:
+        new = ledger.submit_backward(job_id, checkpoint)
+    finally:
+        ledger.close()
+    out.print(new)
+
+
+@app.command()
+@_guard
+def reversibility(job_id: Annotated[int, typer.Argument(help="A finished backward job.", min=1)],
+                  workspace: WorkspaceOpt = None, db: DbOpt = None):
+    """How far a backward run misses its forward job's start."""
+    from rich.table import Table
+
+    from .compare import reversibility as residual
+
+    ledger = open_ledger(workspace, db)
+    try:
+        r = residual(ledger, job_id)
+    finally:
+        ledger.close()
+    t = Table(title=f"Reversibility of job {job_id} over {r['time'] / 365.25:.4g} yr",
+              header_style="bold")
+    for col in ("body", "|dx| (au)", "|dx|/r", "|dv| (au/d)", "|dv|/v"):
+        t.add_column(col)
+    for k, name in enumerate(r["bodies"]):
+        t.add_row(name, f"{r['dx'][k]:.3e}", f"{r['dx_rel'][k]:.3e}", f"{r['dv'][k]:.3e}",
+                  f"{r['dv_rel'][k]:.3e}")
+    out.print(t)
+
+
+@app.command()
+@_guard
 def verify(job_id: JobArg, workspace: WorkspaceOpt = None, db: DbOpt = None):
     """Check a job's hash chain, stored checkpoints and samples against the ledger."""
     from .audit import verify as run_verify

@@ -173,6 +173,33 @@ class Ledger:
             created_at=now))
         return int(job_id)
 
+    def submit_backward(self, job_id, checkpoint=None, now=None):
+        """Queue a backward job from a committed checkpoint of a forward job.
+
+        It starts from that checkpoint's exact internal state and runs back to
+        the forward job's start. Returns the new job id.
+        """
+        from .spec import from_json, resolve
+
+        integ, ck = self.load_integrator(job_id, checkpoint)
+        if ck["step"] == 0:
+            raise LedgerError(f"job {job_id} checkpoint {ck['idx']} is at the start; choose a "
+                              "later checkpoint to run backward from.")
+        row = self.job(job_id)
+        fwd = from_json(row["spec_json"])
+        direction = "backward" if row["dt"] > 0 else "forward"
+        days = abs(ck["step"] * row["dt"])
+        span = fwd.span.model_copy(update={"direction": direction, "length": f"{days!r} d"})
+        name = f"{fwd.name}-back{ck['idx']}"[:100]
+        spec = fwd.model_copy(update={"span": span, "name": name})
+        plan = resolve(spec)
+        if plan.total_steps != ck["step"]:
+            raise LedgerError(f"job {job_id}: could not express {ck['step']} steps back as a span.")
+        back = integ.reversed()
+        with self.engine.begin() as conn:
+            return self._submit_in(conn, spec, _now(now), row["priority"], None, plan, back,
+                                   (job_id, ck["idx"]))
+
     def ensemble(self, ensemble_id):
         """One ensemble's row as a dict."""
         with self.engine.connect() as conn:
