@@ -336,6 +336,32 @@ def audit(job_id: JobArg, workspace: WorkspaceOpt = None, db: DbOpt = None):
 
 @app.command()
 @_guard
+def export(job_id: JobArg, to: Annotated[Path, typer.Option(help="JSON file to write.")],
+           workspace: WorkspaceOpt = None, db: DbOpt = None):
+    """Write a job's record as JSON: spec, status, checkpoints, provenance of every segment, events."""
+    import json
+
+    ledger = open_ledger(workspace, db)
+    try:
+        row = ledger.job(job_id)
+        record = {
+            "job": {k: v for k, v in row.items() if k != "spec_json"},
+            "spec": json.loads(row["spec_json"]),
+            "checkpoints": ledger.checkpoints(job_id),
+            "segments": [dict(s, versions=json.loads(s["versions"] or "{}"))
+                         for s in ledger.segments(job_id)],
+            "events": ledger.events(job_id),
+        }
+    finally:
+        ledger.close()
+    tmp = to.with_name(to.name + ".part")
+    tmp.write_text(json.dumps(record, indent=1, sort_keys=True, default=str))
+    tmp.replace(to)
+    out.print(f"job {job_id} exported to {to}")
+
+
+@app.command()
+@_guard
 def backward(job_id: JobArg, workspace: WorkspaceOpt = None, db: DbOpt = None,
              checkpoint: Annotated[Optional[int], typer.Option(
                  help="Start from this checkpoint (default: the last).")] = None):

@@ -84,3 +84,24 @@ def test_end_to_end_in_a_subprocess(tmp_path):
     assert st.returncode == 0 and "done" in st.stdout and "survived" in st.stdout
     bad = cli("submit", tmp_path / "missing.toml", "--workspace", ws)
     assert bad.returncode == 2 and bad.stderr.startswith("error: ")
+
+
+def test_export_carries_provenance(tmp_path):
+    import json
+
+    ws = _ws(tmp_path)
+    spec = tmp_path / "j.toml"
+    spec.write_text(small_spec_text())
+    runner.invoke(app, ["submit", str(spec), "--workspace", str(ws)])
+    runner.invoke(app, ["work", "--workspace", str(ws), "--quiet"])
+    res = runner.invoke(app, ["export", "1", "--to", str(tmp_path / "j.json"),
+                              "--workspace", str(ws)])
+    assert res.exit_code == 0, res.output
+    rec = json.loads((tmp_path / "j.json").read_text())
+    assert rec["job"]["spec_sha256"] and rec["spec"]["method"]["corrector"] == 3
+    seg = rec["segments"][0]
+    for key in ("host", "pid", "user", "argv", "platform", "cpu", "started_at", "ended_at"):
+        assert seg[key] not in (None, ""), key
+    for lib in ("python", "numpy", "numba", "zarr", "sqlalchemy", "orbitledger"):
+        assert lib in seg["versions"], lib
+    assert len(rec["checkpoints"]) == rec["job"]["n_checkpoints"] + 1
