@@ -336,6 +336,62 @@ def audit(job_id: JobArg, workspace: WorkspaceOpt = None, db: DbOpt = None):
 
 @app.command()
 @_guard
+def report(job_id: JobArg, to: Annotated[Path, typer.Option(help="HTML file to write.")],
+           workspace: WorkspaceOpt = None, db: DbOpt = None,
+           compare: Annotated[Optional[int], typer.Option(
+               help="Add the divergence from this job.")] = None):
+    """Write a static, self-contained HTML report of a job."""
+    from .job_report import job_report
+
+    ledger = open_ledger(workspace, db)
+    try:
+        page = job_report(ledger, job_id, compare)
+    finally:
+        ledger.close()
+    tmp = to.with_name(to.name + ".part")
+    tmp.write_text(page, encoding="utf-8")
+    tmp.replace(to)  # atomic: never a half-written report
+    out.print(f"report written to {to}")
+
+
+@app.command("compare")
+@_guard
+def compare_cmd(job_a: JobArg, job_b: Annotated[int, typer.Argument(help="Other job id.", min=1)],
+                workspace: WorkspaceOpt = None, db: DbOpt = None,
+                plot: Annotated[Optional[Path], typer.Option(help="Divergence plot (.png/.svg).")]
+                = None):
+    """Divergence of two jobs of one system; element ranges side by side."""
+    from rich.table import Table
+
+    from . import plots
+    from .compare import compare_jobs, element_ranges
+
+    ledger = open_ledger(workspace, db)
+    try:
+        t, d, fit = compare_jobs(ledger, job_a, job_b)
+        ra, rb = element_ranges(ledger, job_a), element_ranges(ledger, job_b)
+        names = ledger.store.body_names(job_a)[1:]
+    finally:
+        ledger.close()
+    if fit["kind"] == "exponential":
+        out.print(f"exponential divergence: Lyapunov time {fit['lyapunov_time']:.4g} ± "
+                  f"{fit['lyapunov_time_err']:.2g} yr (fitted before saturation)")
+    else:
+        out.print(f"linear divergence (distance ~ t^{fit['power']:.2f}): no sign of chaos here")
+    tab = Table(title=f"Element ranges: job {job_a} | job {job_b}", header_style="bold")
+    for col in ("body", "a (au)", "e", "i (deg)"):
+        tab.add_column(col)
+    for b, name in enumerate(names):
+        tab.add_row(name, *[f"{ra[k][b][0]:.5g}-{ra[k][b][1]:.5g} | {rb[k][b][0]:.5g}-"
+                            f"{rb[k][b][1]:.5g}" for k in (0, 1, 2)])
+    out.print(tab)
+    if plot is not None:
+        plots.save(plots.divergence_figure(t, d, fit, f"jobs {job_a} and {job_b}"), plot)
+        out.print(f"plot written to {plot}")
+
+
+@app.command()
+@_guard
 def export(job_id: JobArg, to: Annotated[Path, typer.Option(help="JSON file to write.")],
            workspace: WorkspaceOpt = None, db: DbOpt = None):
     """Write a job's record as JSON: spec, status, checkpoints, provenance of every segment, events."""

@@ -62,7 +62,7 @@ def png_data_uri(fig):
 
 _CSS = ("body{font-family:sans-serif;max-width:60em;margin:2em auto;color:#222}"
         "table{border-collapse:collapse;margin:1em 0}td,th{border:1px solid #bbb;padding:.25em .6em;"
-        "text-align:left}th{background:#eee}img{max-width:100%}")
+        "text-align:left;word-break:break-word;max-width:22em}th{background:#eee}img{max-width:100%}")
 
 
 def table_html(headers, rows):
@@ -79,3 +79,60 @@ def page(title, sections):
     return (f"<!DOCTYPE html><html><head><meta charset='utf-8'><title>{html.escape(title)}"
             f"</title><style>{_CSS}</style></head><body><h1>{html.escape(title)}</h1>{body}"
             "</body></html>")
+
+
+def energy_figure(samples, title):
+    """|dE/E| against time on log-log axes, with a t^(1/2) reference line."""
+    plt = _figure()
+    fig, ax = plt.subplots(figsize=(7, 4.2), dpi=110)
+    t = np.abs(samples["time"] - samples["time"][0]) / 365.25
+    e = np.abs(samples["energy_error"])
+    keep = (t > 0) & (e > 0)
+    ax.loglog(t[keep], e[keep], lw=0.8, label="|dE/E|")
+    if keep.sum() > 1:
+        t0, e0 = t[keep][0], np.median(e[keep][: max(3, keep.sum() // 50)])
+        ref = e0 * np.sqrt(t[keep] / t0)
+        ax.loglog(t[keep], ref, "--", color="gray", label="t^1/2 (Brouwer 1937)")
+    ax.set_xlabel("time (yr)")
+    ax.set_ylabel("relative energy error")
+    ax.set_title(title)
+    ax.legend(fontsize=8)
+    fig.tight_layout()
+    return fig
+
+
+def elements_figure(samples, names, title):
+    """Semi-major axis, eccentricity and inclination of every body against time."""
+    plt = _figure()
+    fig, axes = plt.subplots(3, 1, figsize=(7, 7), dpi=110, sharex=True)
+    t = (samples["time"] - samples["time"][0]) / 365.25
+    for b, name in enumerate(names):
+        for ax, k in zip(axes, (0, 1, 2)):
+            ax.plot(t, samples["elements"][:, b, k], lw=0.8, label=name)
+    for ax, lab in zip(axes, ("a (au)", "e", "i (deg)")):
+        ax.set_ylabel(lab)
+    axes[0].set_title(title)
+    axes[0].legend(fontsize=7, ncol=4)
+    axes[-1].set_xlabel("time (yr)")
+    fig.tight_layout()
+    return fig
+
+
+def divergence_figure(t, d, fit, title):
+    """Phase-space distance of two runs, with the fitted Lyapunov growth if exponential."""
+    plt = _figure()
+    fig, ax = plt.subplots(figsize=(7, 4.2), dpi=110)
+    ax.semilogy(t, d, lw=1, label="scaled phase-space distance")
+    if fit.get("lyapunov_time"):
+        n = fit["samples"]
+        tt = np.asarray(t[:n])
+        lam = 1.0 / fit["lyapunov_time"]
+        c = np.exp(np.mean(np.log(np.maximum(d[:n], 1e-300)) - lam * tt))
+        ax.semilogy(tt, c * np.exp(lam * tt), "--",
+                    label=f"exp(t / {fit['lyapunov_time']:.3g} yr)")
+    ax.set_xlabel("time (yr)")
+    ax.set_ylabel("distance")
+    ax.set_title(title + f" ({fit['kind']} growth)")
+    ax.legend(fontsize=8)
+    fig.tight_layout()
+    return fig

@@ -1,0 +1,60 @@
+"""The HTML report opens in headless Chromium and renders its plots."""
+
+import os
+import shutil
+import subprocess
+
+import numpy as np
+import pytest
+from typer.testing import CliRunner
+
+from runner.cli import app
+from runner.worker import Worker
+from runner.workspace import init
+from conftest import SERVICES
+from helpers import small_spec
+
+
+@pytest.fixture(scope="module")
+def chromium():
+    out = subprocess.run(["bash", os.path.join(SERVICES, "chromium.sh")], capture_output=True,
+                         text=True, timeout=900)
+    if out.returncode != 0 or not shutil.which("chromium"):
+        pytest.fail(f"could not install Chromium for the report test: {out.stderr[-400:]}")
+    return shutil.which("chromium")
+
+
+def test_report_renders_in_headless_chromium(tmp_path, chromium):
+    ws, led = init(tmp_path / "ws")
+    # 20000 steps: a whole number of outputs, so the backward run samples the
+    # same times as the forward one.
+    led.submit(small_spec(length="200000 d"))
+    Worker(led).run()
+    led.submit_backward(1)
+    Worker(led).run()
+    led.close()
+    page = tmp_path / "report.html"
+    r = CliRunner().invoke(app, ["report", "1", "--to", str(page), "--compare", "2",
+                                 "--workspace", str(ws)])
+    assert r.exit_code == 0, r.output
+    html = page.read_text()
+    assert html.count("data:image/png;base64,") == 3  # self-contained: no external files
+    for word in ("Provenance", "Error budgets", "Divergence from job 2", "numba"):
+        assert word in html
+    shot = tmp_path / "shot.png"
+    subprocess.run([chromium, "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic",
+                    "--no-first-run", "--disable-background-networking",
+                    "--disable-component-update", "--disable-sync",
+                    f"--user-data-dir={tmp_path / 'profile'}", "--hide-scrollbars",
+                    "--window-size=1200,3200", f"--screenshot={shot}", page.as_uri()],
+                   capture_output=True, timeout=120, check=True)
+    import matplotlib.image as mpimg
+
+    img = mpimg.imread(str(shot))[..., :3]
+    assert img.shape[0] >= 3000 and img.shape[1] >= 1000
+    non_white = (img.sum(axis=2) < 2.9).mean()
+    assert non_white > 0.03  # not blank
+    # Plot lines in matplotlib's default blue (#1f77b4) are on the page: the
+    # images were decoded and drawn, not just the tables.
+    blue = (img[..., 2] > 0.55) & (img[..., 0] < 0.3) & (img[..., 1] > 0.3)
+    assert blue.sum() > 2000, blue.sum()
