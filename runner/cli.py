@@ -354,6 +354,32 @@ def report(job_id: JobArg, to: Annotated[Path, typer.Option(help="HTML file to w
     out.print(f"report written to {to}")
 
 
+@app.command()
+@_guard
+def plot(job_id: JobArg, to: Annotated[Path, typer.Option(help="Image file (.png or .svg).")],
+         kind: Annotated[str, typer.Option(help="energy or elements.")] = "energy",
+         workspace: WorkspaceOpt = None, db: DbOpt = None):
+    """Plot a job's energy error (log-log, with a t^1/2 line) or its elements over time."""
+    from . import plots
+
+    if kind not in ("energy", "elements"):
+        fail(f"--kind must be 'energy' or 'elements', got {kind!r}.")
+    if to.suffix.lower() not in (".png", ".svg"):
+        fail(f"--to must end in .png or .svg, got {to.name!r}.")
+    ledger = open_ledger(workspace, db)
+    try:
+        row = ledger.job(job_id)
+        samples = ledger.store.read_samples(job_id, row["n_samples"])
+        names = ledger.store.body_names(job_id)[1:]
+    finally:
+        ledger.close()
+    title = f"job {job_id}: {row['name']}"
+    fig = plots.energy_figure(samples, title) if kind == "energy" else \
+        plots.elements_figure(samples, names, title)
+    plots.save(fig, to)
+    out.print(f"plot written to {to}")
+
+
 @app.command("compare")
 @_guard
 def compare_cmd(job_a: JobArg, job_b: Annotated[int, typer.Argument(help="Other job id.", min=1)],

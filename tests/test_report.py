@@ -58,3 +58,18 @@ def test_report_renders_in_headless_chromium(tmp_path, chromium):
     # images were decoded and drawn, not just the tables.
     blue = (img[..., 2] > 0.55) & (img[..., 0] < 0.3) & (img[..., 1] > 0.3)
     assert blue.sum() > 2000, blue.sum()
+
+
+def test_plots_as_png_and_svg(tmp_path):
+    ws, led = init(tmp_path / "ws")
+    led.submit(small_spec())
+    Worker(led).run()
+    led.close()
+    for kind in ("energy", "elements"):
+        for ext in ("png", "svg"):
+            f = tmp_path / f"{kind}.{ext}"
+            r = CliRunner().invoke(app, ["plot", "1", "--kind", kind, "--to", str(f),
+                                         "--workspace", str(ws)])
+            assert r.exit_code == 0, r.output
+            head = f.read_bytes()[:8]
+            assert head.startswith(b"\x89PNG") if ext == "png" else b"<?xml" in head
