@@ -41,6 +41,14 @@ def open_ledger(path, url, **kw):
     return _open(path, url, **kw)
 
 
+def write_atomic(path, text):
+    """Write a text file so that readers never see it half-written."""
+    path = Path(path)
+    tmp = path.with_name(path.name + ".part")
+    tmp.write_text(text, encoding="utf-8")
+    tmp.replace(path)
+
+
 def fail(message, code=2):
     """Print one line to stderr and exit non-zero."""
     err.print(f"error: {message}", markup=False, highlight=False, soft_wrap=True)
@@ -241,10 +249,8 @@ def outcomes(ensemble_id: Annotated[int, typer.Argument(help="Ensemble id.", min
             out.print(f"survival curve written to {plot}")
         if html is not None:
             section, _ = ensemble_section(ledger, ensemble_id)
-            tmp = html.with_name(html.name + ".part")
-            tmp.write_text(plots.page(f"orbitledger ensemble {ensemble_id}: {ens['name']}",
-                                      [("Outcomes", section)]), encoding="utf-8")
-            tmp.replace(html)  # atomic: never a half-written report
+            write_atomic(html, plots.page(f"orbitledger ensemble {ensemble_id}: {ens['name']}",
+                                          [("Outcomes", section)]))
             out.print(f"report written to {html}")
     finally:
         ledger.close()
@@ -348,9 +354,7 @@ def report(job_id: JobArg, to: Annotated[Path, typer.Option(help="HTML file to w
         page = job_report(ledger, job_id, compare)
     finally:
         ledger.close()
-    tmp = to.with_name(to.name + ".part")
-    tmp.write_text(page, encoding="utf-8")
-    tmp.replace(to)  # atomic: never a half-written report
+    write_atomic(to, page)
     out.print(f"report written to {to}")
 
 
@@ -436,9 +440,7 @@ def export(job_id: JobArg, to: Annotated[Path, typer.Option(help="JSON file to w
         }
     finally:
         ledger.close()
-    tmp = to.with_name(to.name + ".part")
-    tmp.write_text(json.dumps(record, indent=1, sort_keys=True, default=str))
-    tmp.replace(to)
+    write_atomic(to, json.dumps(record, indent=1, sort_keys=True, default=str))
     out.print(f"job {job_id} exported to {to}")
 
 

@@ -500,11 +500,14 @@ class Ledger:
         with self.engine.connect() as conn:
             return [dict(r) for r in conn.execute(q).mappings()]
 
+    def _job_rows(self, table, job_id, order):
+        with self.engine.connect() as conn:
+            return [dict(r) for r in conn.execute(select(table).where(
+                table.c.job_id == job_id).order_by(order)).mappings()]
+
     def checkpoints(self, job_id):
         """A job's committed checkpoints, in order."""
-        with self.engine.connect() as conn:
-            return [dict(r) for r in conn.execute(select(checkpoints).where(
-                checkpoints.c.job_id == job_id).order_by(checkpoints.c.idx)).mappings()]
+        return self._job_rows(checkpoints, job_id, checkpoints.c.idx)
 
     def last_checkpoint(self, job_id):
         """The last committed checkpoint row."""
@@ -517,15 +520,11 @@ class Ledger:
 
     def segments(self, job_id):
         """A job's segments, in order."""
-        with self.engine.connect() as conn:
-            return [dict(r) for r in conn.execute(select(segments).where(
-                segments.c.job_id == job_id).order_by(segments.c.id)).mappings()]
+        return self._job_rows(segments, job_id, segments.c.id)
 
     def events(self, job_id):
         """A job's events, in order."""
-        with self.engine.connect() as conn:
-            return [dict(r) for r in conn.execute(select(events).where(
-                events.c.job_id == job_id).order_by(events.c.id)).mappings()]
+        return self._job_rows(events, job_id, events.c.id)
 
     def counts(self):
         """Number of jobs by status."""
