@@ -86,15 +86,12 @@ def submit(spec_file: Annotated[Path, typer.Argument(help="Job spec (TOML).")],
     from . import spec as spec_mod
 
     spec = spec_mod.load(spec_file)  # validated before the ledger is touched
-    ledger = open_ledger(workspace, db)
-    try:
+    with open_ledger(workspace, db) as ledger:
         if spec.ensemble is not None and spec.member is None:
             ens_id, ids = ledger.submit_ensemble(spec, priority=priority)
             out.print(f"ensemble {ens_id}: jobs {ids[0]}..{ids[-1]}")
         else:
             out.print(ledger.submit(spec, priority=priority))
-    finally:
-        ledger.close()
 
 
 _WALL_UNITS = {"s": 1.0, "sec": 1.0, "min": 60.0, "m": 60.0, "h": 3600.0, "hr": 3600.0,
@@ -151,18 +148,15 @@ def work(workspace: WorkspaceOpt = None, db: DbOpt = None,
         if _AS_PROGRAM[0]:
             stopflag.exit_now(code)
         raise typer.Exit(code)
-    ledger = open_ledger(workspace, db, lease_seconds=lease)
     beat = min(defaults.HEARTBEAT_SECONDS, lease / 4)
     show = not quiet and out.is_terminal
-    try:
+    with open_ledger(workspace, db, lease_seconds=lease) as ledger:
         if show:
             code = _work_with_progress(ledger, end, job, order, beat)
         else:
             w = Worker(ledger, deadline=end, job_id=job, order=order, heartbeat_seconds=beat)
             w.install_signal_handlers()
             code = w.run()
-    finally:
-        ledger.close()
     if _AS_PROGRAM[0]:
         stopflag.exit_now(code)
     raise typer.Exit(code)
@@ -206,11 +200,8 @@ def status(workspace: WorkspaceOpt = None, db: DbOpt = None,
     """A table of all jobs."""
     from .report import status_table
 
-    ledger = open_ledger(workspace, db)
-    try:
+    with open_ledger(workspace, db) as ledger:
         out.print(status_table(ledger.jobs(ensemble_id=ensemble)))
-    finally:
-        ledger.close()
 
 
 @app.command()
@@ -227,8 +218,7 @@ def outcomes(ensemble_id: Annotated[int, typer.Argument(help="Ensemble id.", min
     from . import plots
     from .outcomes import ensemble_section, summarise, summary_rows
 
-    ledger = open_ledger(workspace, db)
-    try:
+    with open_ledger(workspace, db) as ledger:
         ens = ledger.ensemble(ensemble_id)
         s = summarise(ledger.jobs(ensemble_id=ensemble_id))
         t = Table(title=f"Ensemble {ensemble_id}: {ens['name']} ({s.n} members)",
@@ -252,8 +242,6 @@ def outcomes(ensemble_id: Annotated[int, typer.Argument(help="Ensemble id.", min
             write_atomic(html, plots.page(f"orbitledger ensemble {ensemble_id}: {ens['name']}",
                                           [("Outcomes", section)]))
             out.print(f"report written to {html}")
-    finally:
-        ledger.close()
 
 
 @app.command()
@@ -262,13 +250,10 @@ def show(job_id: JobArg, workspace: WorkspaceOpt = None, db: DbOpt = None):
     """One job in detail, with its provenance."""
     from .report import show_tables
 
-    ledger = open_ledger(workspace, db)
-    try:
+    with open_ledger(workspace, db) as ledger:
         t, p, _ = show_tables(ledger, job_id)
         out.print(t)
         out.print(p)
-    finally:
-        ledger.close()
 
 
 @app.command()
@@ -282,8 +267,7 @@ def extend(job_id: JobArg,
 
     if (to is None) == (by is None):
         fail("give exactly one of --to (new span length) or --by (time to add).")
-    ledger = open_ledger(workspace, db)
-    try:
+    with open_ledger(workspace, db) as ledger:
         row = ledger.job(job_id)
         step = abs(row["dt"])
         if to is not None:
@@ -293,17 +277,12 @@ def extend(job_id: JobArg,
             new_total = row["total_steps"] + round(parse_quantity("--by", by, "time") / step)
         ledger.extend(job_id, new_total)
         out.print(f"job {job_id} now runs to step {new_total}")
-    finally:
-        ledger.close()
 
 
 def _simple(verb):
     def command(job_id: JobArg, workspace: WorkspaceOpt = None, db: DbOpt = None):
-        ledger = open_ledger(workspace, db)
-        try:
+        with open_ledger(workspace, db) as ledger:
             result = getattr(ledger, {"release": "unhold"}.get(verb, verb))(job_id)
-        finally:
-            ledger.close()
         out.print(f"job {job_id}: {result or verb + 'd'}")
     command.__name__ = verb
     return command
@@ -323,11 +302,8 @@ def audit(job_id: JobArg, workspace: WorkspaceOpt = None, db: DbOpt = None):
 
     from .energy_audit import audit_job
 
-    ledger = open_ledger(workspace, db)
-    try:
+    with open_ledger(workspace, db) as ledger:
         verdicts = audit_job(ledger, job_id)
-    finally:
-        ledger.close()
     t = Table(title=f"Job {job_id}: error budgets", header_style="bold")
     for col in ("quantity", "max so far", "budget", "growth t^alpha", "projected at end", "verdict"):
         t.add_column(col)
@@ -349,11 +325,8 @@ def report(job_id: JobArg, to: Annotated[Path, typer.Option(help="HTML file to w
     """Write a static, self-contained HTML report of a job."""
     from .job_report import job_report
 
-    ledger = open_ledger(workspace, db)
-    try:
+    with open_ledger(workspace, db) as ledger:
         page = job_report(ledger, job_id, compare)
-    finally:
-        ledger.close()
     write_atomic(to, page)
     out.print(f"report written to {to}")
 
@@ -370,13 +343,10 @@ def plot(job_id: JobArg, to: Annotated[Path, typer.Option(help="Image file (.png
         fail(f"--kind must be 'energy' or 'elements', got {kind!r}.")
     if to.suffix.lower() not in (".png", ".svg"):
         fail(f"--to must end in .png or .svg, got {to.name!r}.")
-    ledger = open_ledger(workspace, db)
-    try:
+    with open_ledger(workspace, db) as ledger:
         row = ledger.job(job_id)
         samples = ledger.store.read_samples(job_id, row["n_samples"])
         names = ledger.store.body_names(job_id)[1:]
-    finally:
-        ledger.close()
     title = f"job {job_id}: {row['name']}"
     fig = plots.energy_figure(samples, title) if kind == "energy" else \
         plots.elements_figure(samples, names, title)
@@ -396,13 +366,10 @@ def compare_cmd(job_a: JobArg, job_b: Annotated[int, typer.Argument(help="Other 
     from . import plots
     from .compare import compare_jobs, element_ranges
 
-    ledger = open_ledger(workspace, db)
-    try:
+    with open_ledger(workspace, db) as ledger:
         t, d, fit = compare_jobs(ledger, job_a, job_b)
         ra, rb = element_ranges(ledger, job_a), element_ranges(ledger, job_b)
         names = ledger.store.body_names(job_a)[1:]
-    finally:
-        ledger.close()
     if fit["kind"] == "exponential":
         out.print(f"exponential divergence: Lyapunov time {fit['lyapunov_time']:.4g} ± "
                   f"{fit['lyapunov_time_err']:.2g} yr (fitted before saturation)")
@@ -427,8 +394,7 @@ def export(job_id: JobArg, to: Annotated[Path, typer.Option(help="JSON file to w
     """Write a job's record as JSON: spec, status, checkpoints, provenance of every segment, events."""
     import json
 
-    ledger = open_ledger(workspace, db)
-    try:
+    with open_ledger(workspace, db) as ledger:
         row = ledger.job(job_id)
         record = {
             "job": {k: v for k, v in row.items() if k != "spec_json"},
@@ -438,8 +404,6 @@ def export(job_id: JobArg, to: Annotated[Path, typer.Option(help="JSON file to w
                          for s in ledger.segments(job_id)],
             "events": ledger.events(job_id),
         }
-    finally:
-        ledger.close()
     write_atomic(to, json.dumps(record, indent=1, sort_keys=True, default=str))
     out.print(f"job {job_id} exported to {to}")
 
@@ -450,11 +414,8 @@ def backward(job_id: JobArg, workspace: WorkspaceOpt = None, db: DbOpt = None,
              checkpoint: Annotated[Optional[int], typer.Option(
                  help="Start from this checkpoint (default: the last).")] = None):
     """Queue a backward run from a checkpoint of a job, back to its start."""
-    ledger = open_ledger(workspace, db)
-    try:
+    with open_ledger(workspace, db) as ledger:
         new = ledger.submit_backward(job_id, checkpoint)
-    finally:
-        ledger.close()
     out.print(new)
 
 
@@ -467,11 +428,8 @@ def reversibility(job_id: Annotated[int, typer.Argument(help="A finished backwar
 
     from .compare import reversibility as residual
 
-    ledger = open_ledger(workspace, db)
-    try:
+    with open_ledger(workspace, db) as ledger:
         r = residual(ledger, job_id)
-    finally:
-        ledger.close()
     t = Table(title=f"Reversibility of job {job_id} over {r['time'] / 365.25:.4g} yr",
               header_style="bold")
     for col in ("body", "|dx| (au)", "|dx|/r", "|dv| (au/d)", "|dv|/v"):
@@ -488,11 +446,8 @@ def verify(job_id: JobArg, workspace: WorkspaceOpt = None, db: DbOpt = None):
     """Check a job's hash chain, stored checkpoints and samples against the ledger."""
     from .audit import verify as run_verify
 
-    ledger = open_ledger(workspace, db)
-    try:
+    with open_ledger(workspace, db) as ledger:
         rep = run_verify(ledger, job_id)
-    finally:
-        ledger.close()
     if rep.ok:
         out.print(f"job {job_id}: {rep.checked} checkpoints verified: chain, states and "
                   "samples match the ledger")
@@ -511,14 +466,11 @@ def replay(job_id: JobArg, workspace: WorkspaceOpt = None, db: DbOpt = None,
     """Re-run stretches between checkpoints and require them bit for bit."""
     from .audit import replay as run_replay
 
-    ledger = open_ledger(workspace, db)
-    try:
+    with open_ledger(workspace, db) as ledger:
         try:
             res = run_replay(ledger, job_id, indices=checkpoint, sample=sample)
         except ValueError as exc:
             fail(str(exc))
-    finally:
-        ledger.close()
     bad = [k for k, ok in res if not ok]
     for k, ok in res:
         out.print(f"checkpoint {k} -> {k + 1}: {'reproduced bit for bit' if ok else 'DIFFERS'}")

@@ -81,6 +81,12 @@ class Ledger:
         """Release database connections."""
         self.engine.dispose()
 
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        self.close()
+
     # -- the one place status changes ------------------------------------------
     def _transition(self, conn, job_id, old, new, where=(), **fields):
         """Change status old -> new (checked against the table), with extra fields.
@@ -392,16 +398,7 @@ class Ledger:
     # -- user operations -------------------------------------------------------------
     def hold(self, job_id, reason="held by user", now=None):
         """Pause a job: at once if queued, at the worker's next safe point if running."""
-        now = _now(now)
-        with self.engine.begin() as conn:
-            row = self._row(conn, job_id, lock=True)
-            st = JobStatus(row["status"])
-            if st == JobStatus.RUNNING:
-                conn.execute(update(jobs).where(jobs.c.id == job_id).values(
-                    requested="hold", updated_at=now))
-                return "requested"
-            self._transition(conn, job_id, st, JobStatus.HELD, reason=reason, updated_at=now)
-        return "held"
+        return self._stop_or_request(job_id, "hold", JobStatus.HELD, reason, "held", now)
 
     def unhold(self, job_id, now=None):
         """Queue a held (or failed) job again."""
@@ -416,17 +413,25 @@ class Ledger:
 
     def cancel(self, job_id, now=None):
         """Abandon a job: at once if not running, at the next safe point if running."""
+        return self._stop_or_request(job_id, "cancel", JobStatus.CANCELLED, "cancelled by user",
+                                     "cancelled", now)
+
+    def _stop_or_request(self, job_id, request, target, reason, done_word, now):
+        """Change a job to `target` now, or, if a worker holds it, leave it a request.
+
+        The worker applies the request at its next safe point, in its commit
+        (or release) transaction. Returns "requested" or `done_word`.
+        """
         now = _now(now)
         with self.engine.begin() as conn:
             row = self._row(conn, job_id, lock=True)
             st = JobStatus(row["status"])
             if st == JobStatus.RUNNING:
                 conn.execute(update(jobs).where(jobs.c.id == job_id).values(
-                    requested="cancel", updated_at=now))
+                    requested=request, updated_at=now))
                 return "requested"
-            self._transition(conn, job_id, st, JobStatus.CANCELLED,
-                             reason="cancelled by user", updated_at=now)
-        return "cancelled"
+            self._transition(conn, job_id, st, target, reason=reason, updated_at=now)
+        return done_word
 
     def extend(self, job_id, new_total_steps, now=None):
         """Move a job's end to a later step; a done job is queued again."""
