@@ -16,6 +16,7 @@ carry the fencing token in their name so a worker whose lease was taken over
 can never overwrite the state another worker committed.
 """
 
+import asyncio
 import hashlib
 import json
 import os
@@ -26,6 +27,7 @@ import zarr
 
 from . import defaults
 from .errors import StoreError
+from .faults import failpoint
 
 ELEMENT_NAMES = ["a", "e", "i", "node", "peri", "mean_anomaly"]
 _SERIES = {
@@ -64,6 +66,18 @@ def from_storable(arrays):
     return out
 
 
+def _packed(arrays):
+    """State arrays packed into one uint8 blob: (blob, layout, SHA-256 of the state)."""
+    storable = to_storable(arrays)
+    layout, parts, offset = [], [], 0
+    for key in sorted(storable):
+        arr = storable[key]
+        layout.append([key, arr.dtype.str, list(arr.shape), offset, arr.nbytes])
+        parts.append(arr.tobytes())
+        offset += arr.nbytes
+    return np.frombuffer(b"".join(parts), dtype=np.uint8), layout, state_sha256(storable)
+
+
 def state_sha256(storable):
     """SHA-256 over keys, dtypes, shapes and bytes of storable arrays, keys sorted."""
     h = hashlib.sha256()
@@ -85,28 +99,45 @@ def samples_sha256(block):
     return state_sha256(block)
 
 
-def _fsync_tree(path, since):
-    """fsync files under path modified at or after `since`, then their folders."""
-    dirs = set()
-    for root, _dirs, files in os.walk(path):
-        for name in files:
-            p = os.path.join(root, name)
-            try:
-                if os.stat(p).st_mtime >= since:
-                    fd = os.open(p, os.O_RDONLY)
-                    try:
-                        os.fsync(fd)
-                    finally:
-                        os.close(fd)
-                    dirs.add(root)
-            except FileNotFoundError:
-                continue
-    for d in dirs:
-        fd = os.open(d, os.O_RDONLY)
-        try:
-            os.fsync(fd)
-        finally:
-            os.close(fd)
+_FSYNC_POOL = None
+# Write every chunk, even one equal to the fill value, so that each file a
+# commit fsyncs exists.
+_WRITE_ALL = {"write_empty_chunks": True}
+
+
+def _fsync_paths(files, dirs):
+    """fsync the given files, then the given folders, several at a time.
+
+    fsync releases the GIL, so a few threads let the filesystem fold the
+    flushes into one journal commit instead of one per file.
+    """
+    global _FSYNC_POOL
+    if _FSYNC_POOL is None:
+        from concurrent.futures import ThreadPoolExecutor
+
+        _FSYNC_POOL = ThreadPoolExecutor(max_workers=4, thread_name_prefix="fsync")
+    for batch in (sorted(set(files)), sorted(set(dirs))):
+        for fut in [_FSYNC_POOL.submit(_fsync_one, p) for p in batch]:
+            fut.result()
+
+
+def _fsync_one(path):
+    fd = os.open(path, os.O_RDONLY)
+    try:
+        os.fsync(fd)
+    finally:
+        os.close(fd)
+
+
+def _run(coro):
+    """Run a coroutine on zarr's own event loop (one thread hop for a whole batch)."""
+    from zarr.core.sync import sync
+
+    return sync(coro)
+
+
+async def _gather(coros):
+    return await asyncio.gather(*coros)
 
 
 class Store:
@@ -148,8 +179,7 @@ class Store:
         """
         try:
             path = self.job_path(job_id)
-            self._open.pop(int(job_id), None)
-            self._open.pop(("samples", int(job_id)), None)
+            self._forget(job_id)
             g = zarr.open_group(str(path), mode="w")
             g.attrs["body_names"] = list(body_names)
             g.attrs["element_names"] = ELEMENT_NAMES
@@ -168,49 +198,132 @@ class Store:
             s.attrs["body_names"] = list(body_names[1:])
             g.create_group("checkpoints")
             self._open[int(job_id)] = g
+            # The new group's metadata is durable before anything refers to it.
+            files, dirs = [], [str(self.root), str(path)]
+            for root, subdirs, names in os.walk(path):
+                dirs.append(root)
+                files.extend(os.path.join(root, n) for n in names)
+            _fsync_paths(files, dirs)
         except OSError as err:
             raise StoreError(f"could not create the store for job {job_id}: {err}") from err
 
-    # -- checkpoints ----------------------------------------------------------
+    def _forget(self, job_id):
+        for key in (int(job_id), ("async", int(job_id))):
+            self._open.pop(key, None)
+
+    def _handles(self, job_id):
+        """A job's checkpoints group and sample arrays, asynchronous, opened once."""
+        key = ("async", int(job_id))
+        if key not in self._open:
+            if not self.job_path(job_id).exists():
+                raise StoreError(f"job {job_id} has no Zarr group at {self.job_path(job_id)}.")
+            self._open[key] = _run(self._open_async(job_id))
+        return self._open[key]
+
+    async def _open_async(self, job_id):
+        from zarr.api import asynchronous as za
+        from zarr.storage import LocalStore
+
+        root = LocalStore(str(self.job_path(job_id)))
+        names = list(_SERIES) + ["elements"]
+        opened = await asyncio.gather(
+            za.open_group(store=root, path="checkpoints", mode="r+"),
+            *[za.open_array(store=root, path=f"samples/{k}", mode="r+", config=_WRITE_ALL)
+              for k in names])
+        return {"checkpoints": opened[0], "samples": dict(zip(names, opened[1:]))}
+
+    # -- writing: samples and checkpoints in one batch --------------------------
     @staticmethod
     def _ck_name(idx, fence):
         return f"{int(idx):08d}-{int(fence)}"
 
+    def write_chunk(self, job_id, start, block, idx, fence, arrays, durable=True):
+        """Write one chunk's samples (rows start..) and its closing checkpoint together.
+
+        All arrays are written in one batch on zarr's event loop, then every
+        file and folder touched is fsynced (unless ``durable`` is false).
+        Returns (SHA-256 of the samples block, SHA-256 of the state).
+        """
+        return self._write(job_id, (start, block), (idx, fence, arrays), durable)
+
     def write_checkpoint(self, job_id, idx, fence, arrays, durable=True):
         """Write a checkpoint's state arrays; returns their SHA-256."""
-        import time as _time
+        return self._write(job_id, None, (idx, fence, arrays), durable)[1]
 
-        t0 = _time.time() - 1.0
-        storable = to_storable(arrays)
-        layout, parts, offset = [], [], 0
-        for key in sorted(storable):
-            arr = storable[key]
-            layout.append([key, arr.dtype.str, list(arr.shape), offset, arr.nbytes])
-            parts.append(arr.tobytes())
-            offset += arr.nbytes
-        blob = np.frombuffer(b"".join(parts), dtype=np.uint8)
-        digest = state_sha256(storable)
-        name = self._ck_name(idx, fence)
+    def write_samples(self, job_id, start, block, durable=True):
+        """Write a block of samples at rows start..; returns the block's SHA-256.
+
+        The arrays are sized for the whole run at creation and grow
+        geometrically if a job is extended, so rows beyond the committed
+        count may hold fill values or uncommitted data until
+        :meth:`trim_samples` cuts them when the job ends; readers use the
+        ledger's committed count.
+        """
+        return self._write(job_id, (start, block), None, durable)[0]
+
+    def _write(self, job_id, samples, checkpoint, durable):
+        ck = None
+        if checkpoint is not None:
+            idx, fence, arrays = checkpoint
+            ck = (self._ck_name(idx, fence),) + _packed(arrays)
         try:
-            g = self._group(job_id)
-            ck = g["checkpoints"].create_array(
-                name, shape=blob.shape, dtype="u1", chunks=blob.shape, compressors=None,
-                overwrite=True, attributes={"layout": layout, "state_sha256": digest})
-            ck[...] = blob
+            h = self._handles(job_id)
+            files, dirs = _run(self._write_async(h, self.job_path(job_id), samples, ck))
+            if samples is not None and checkpoint is not None:
+                failpoint("mid_store_write")  # written, not yet durable
             if durable:
-                _fsync_tree(self.job_path(job_id) / "checkpoints" / name, t0)
+                _fsync_paths(files, dirs)
         except OSError as err:
-            raise StoreError(f"could not write checkpoint {idx} of job {job_id}: {err}") from err
-        return digest
+            what = "samples" if checkpoint is None else f"checkpoint {checkpoint[0]}"
+            raise StoreError(f"could not write {what} of job {job_id}: {err}") from err
+        return (None if samples is None else samples_sha256(samples[1]),
+                None if ck is None else ck[3])
+
+    @staticmethod
+    async def _write_async(h, base, samples, ck):
+        """Issue every write of one commit concurrently; returns the paths to fsync."""
+        tasks, files, dirs = [], [], []
+        if samples is not None:
+            start, block = samples
+            n = len(block["time"])
+            need = start + n
+            arrs = h["samples"]
+            if arrs["time"].shape[0] < need:
+                cap = max(need, 2 * arrs["time"].shape[0], defaults.SAMPLE_CHUNK)
+                await asyncio.gather(*[a.resize((cap,) + tuple(a.shape[1:]))
+                                       for a in arrs.values()])
+                files += [str(base / "samples" / k / "zarr.json") for k in arrs]
+            for key, a in arrs.items() if n else ():
+                tasks.append(a.setitem(slice(start, need), np.ascontiguousarray(block[key])))
+                rows = a.chunks[0]
+                for c in range(start // rows, (need - 1) // rows + 1):
+                    rel = a.metadata.encode_chunk_key((c,) + (0,) * (a.ndim - 1))
+                    f = base / "samples" / key / rel
+                    files.append(str(f))
+                    d = f.parent
+                    while d != base / "samples" / key:
+                        dirs.append(str(d))
+                        d = d.parent
+        if ck is not None:
+            name, blob, layout, digest = ck
+            tasks.append(h["checkpoints"].create_array(
+                name, data=blob, chunks=blob.shape, compressors=None, overwrite=True,
+                attributes={"layout": layout, "state_sha256": digest}, config=_WRITE_ALL))
+            d = base / "checkpoints" / name
+            files += [str(d / "zarr.json"), str(d / "c" / "0")]
+            dirs += [str(d / "c"), str(d), str(base / "checkpoints")]
+        await asyncio.gather(*tasks)
+        return files, dirs
 
     def read_checkpoint(self, job_id, idx, fence, expect_sha256=None):
         """Read a checkpoint's state arrays, checking their hash if one is given."""
         name = self._ck_name(idx, fence)
+        if not self.job_path(job_id).exists():
+            raise StoreError(f"job {job_id} has no Zarr group at {self.job_path(job_id)}.")
         try:
-            ck = self._group(job_id, "r")["checkpoints"][name]
-            blob = np.asarray(ck[...]).tobytes()
+            blob, layout = _run(self._read_async(job_id, name))
             storable = {}
-            for key, dtype, shape, offset, nbytes in ck.attrs["layout"]:
+            for key, dtype, shape, offset, nbytes in layout:
                 storable[key] = np.frombuffer(blob[offset:offset + nbytes],
                                               dtype=np.dtype(dtype)).reshape(shape).copy()
         except (KeyError, OSError, ValueError) as err:
@@ -224,50 +337,26 @@ class Store:
                              "hash; the store is damaged.")
         return from_storable(storable)
 
-    # -- samples --------------------------------------------------------------
-    def write_samples(self, job_id, start, block, durable=True):
-        """Write a block of samples at rows start...
+    async def _read_async(self, job_id, name):
+        from zarr.api import asynchronous as za
+        from zarr.storage import LocalStore
 
-        The arrays grow geometrically, so rows beyond the committed count may
-        hold fill values or uncommitted data until :meth:`trim_samples` cuts
-        them when the job ends; readers use the ledger's committed count.
-        Returns the SHA-256 of the block.
-        """
-        import time as _time
-
-        t0 = _time.time() - 1.0
-        n = len(block["time"])
-        try:
-            arrays = self._sample_arrays(job_id)
-            need = start + n
-            if arrays["time"].shape[0] < need:
-                cap = max(need, 2 * arrays["time"].shape[0], defaults.SAMPLE_CHUNK)
-                for arr in arrays.values():
-                    arr.resize((cap,) + tuple(arr.shape[1:]))
-            if n:
-                for key, arr in arrays.items():
-                    arr[start:need] = block[key]
-            if durable:
-                _fsync_tree(self.job_path(job_id) / "samples", t0)
-        except OSError as err:
-            raise StoreError(f"could not write samples of job {job_id}: {err}") from err
-        return samples_sha256(block)
+        root = LocalStore(str(self.job_path(job_id)), read_only=True)
+        arr = await za.open_array(store=root, path=f"checkpoints/{name}", mode="r")
+        data = await arr.getitem(slice(None))
+        return np.asarray(data).tobytes(), arr.attrs["layout"]
 
     def trim_samples(self, job_id, n):
         """Cut the sample arrays to exactly the n committed rows."""
         try:
-            for arr in self._sample_arrays(job_id).values():
-                if arr.shape[0] != n:
-                    arr.resize((n,) + tuple(arr.shape[1:]))
+            arrs = self._handles(job_id)["samples"]
+            todo = [a for a in arrs.values() if a.shape[0] != n]
+            if todo:
+                _run(_gather([a.resize((n,) + tuple(a.shape[1:])) for a in todo]))
+                base = self.job_path(job_id) / "samples"
+                _fsync_paths([str(base / k / "zarr.json") for k in arrs], [])
         except OSError as err:
             raise StoreError(f"could not trim samples of job {job_id}: {err}") from err
-
-    def _sample_arrays(self, job_id):
-        key = ("samples", int(job_id))
-        if key not in self._open:
-            s = self._group(job_id)["samples"]
-            self._open[key] = {k: s[k] for k in list(_SERIES) + ["elements"]}
-        return self._open[key]
 
     def read_samples(self, job_id, n=None, start=0):
         """Committed samples as a dict of arrays (rows start..n)."""

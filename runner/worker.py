@@ -192,10 +192,10 @@ class Worker:
                 max_l = max(max_l, float(block["angmom_error"].max()))
             max_e, max_l = max(max_e, e_err), max(max_l, l_err)
             failpoint("before_store_write")
-            s_hash = self.ledger.store.write_samples(job_id, n_samples, block)
-            failpoint("mid_store_write")
-            st_hash = self.ledger.store.write_checkpoint(job_id, idx + 1, claim.fence,
-                                                         integ.state_arrays())
+            # Samples and checkpoint in one batch ("mid_store_write" fires
+            # inside it, after the writes and before the fsyncs).
+            s_hash, st_hash = self.ledger.store.write_chunk(
+                job_id, n_samples, block, idx + 1, claim.fence, integ.state_arrays())
             failpoint("after_store_write")
             then, outcome, reason = "continue", None, None
             if stop is not None:

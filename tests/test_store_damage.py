@@ -6,6 +6,7 @@ import os
 
 import numpy as np
 import pytest
+from zarr.storage import LocalStore
 
 from runner.errors import StoreError
 from runner.ledger import Ledger
@@ -64,22 +65,26 @@ def test_full_disk_holds_the_job_and_loses_nothing(tmp_path, monkeypatch):
     j = led.submit(small_spec())
     w = Worker(led, max_steps_per_call=5000)
     calls = {"n": 0}
-    real = Store.write_checkpoint
+    real_chunk = Store.write_chunk
+    real_set = LocalStore.set
 
-    def failing(self, *a, **kw):
+    def counting(self, *a, **kw):
         calls["n"] += 1
-        if calls["n"] == 3:  # the third commit finds the disk full
-            err = OSError(errno.ENOSPC, "No space left on device")
-            raise StoreError(f"could not write checkpoint: {err}")
-        return real(self, *a, **kw)
+        return real_chunk(self, *a, **kw)
 
-    monkeypatch.setattr(Store, "write_checkpoint", failing)
+    async def full_disk(self, key, value):
+        if calls["n"] == 3:  # the third commit finds the disk full
+            raise OSError(errno.ENOSPC, "No space left on device")
+        return await real_set(self, key, value)
+
+    monkeypatch.setattr(Store, "write_chunk", counting)
+    monkeypatch.setattr(LocalStore, "set", full_disk)
     w.run()
     row = led.job(j)
     assert row["status"] == "held"
     assert "No space left on device" in row["reason"]
     assert row["n_checkpoints"] == 2  # both earlier commits kept
-    monkeypatch.setattr(Store, "write_checkpoint", real)
+    monkeypatch.setattr(LocalStore, "set", real_set)
     led.unhold(j)
     Worker(led).run()
     assert led.job(j)["status"] == "done"
@@ -89,12 +94,11 @@ def test_full_disk_holds_the_job_and_loses_nothing(tmp_path, monkeypatch):
 def test_oserror_from_the_filesystem_becomes_a_store_error(tmp_path, monkeypatch):
     store = Store(tmp_path / "s")
     store.create_job(1, ["A", "b"], capacity=4)
-    import zarr.core.array as za
 
-    def boom(*a, **k):
+    async def boom(*a, **k):
         raise OSError(errno.ENOSPC, "No space left on device")
 
-    monkeypatch.setattr(za.Array, "__setitem__", boom)
+    monkeypatch.setattr(LocalStore, "set", boom)
     with pytest.raises(StoreError, match="No space left on device"):
         store.write_checkpoint(1, 1, 1, {"x": np.zeros(3)})
 
@@ -121,3 +125,14 @@ def test_no_pickle_in_the_state_path():
                 text = open(os.path.join(root, pkg, name)).read()
                 for banned in ("import " + "pickle", "allow_" + "pickle=True"):
                     assert banned not in text, (name, banned)
+
+
+def test_a_checkpoint_equal_to_the_fill_value_is_still_written(tmp_path):
+    # Zarr skips chunks equal to the fill value unless told otherwise; the
+    # store must write (and fsync) them like any other.
+    store = Store(tmp_path / "s")
+    store.create_job(1, ["A", "b"], capacity=4)
+    digest = store.write_checkpoint(1, 1, 1, {"x": np.zeros(3)})
+    assert (store.job_path(1) / "checkpoints" / "00000001-1" / "c" / "0").exists()
+    back = store.read_checkpoint(1, 1, 1, expect_sha256=digest)
+    assert back["x"].tobytes() == np.zeros(3).tobytes()
