@@ -21,7 +21,7 @@ def _drift(x, v, h):
         x[i, 2] += v[i, 2] * h
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", nogil=True)
 def leapfrog_steps(x, v, gm, dt, n_steps, pending, pairs, params, mu, acc, xj, vj, rh):
     """Take n_steps merged leapfrog steps; same return as wh_steps."""
     half = 0.5 * dt

@@ -104,7 +104,7 @@ def wh_diagnose(xj, vj, gm, mu, eta, dt, pending, gr_coef, a_arr, c_arr, cx, cv,
     return diagnose(xo, vo, gm, gr_coef, els)
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", nogil=True)
 def wh_steps(xj, vj, gm, mu, eta, dt, n_steps, pending, gr_coef, pairs, params, xi, acc, rh,
              step0, every, a_inv, c_inv, scratch, out_g, out_el, row0):
     """Take n_steps merged drift-kick-drift steps in place.

@@ -7,6 +7,7 @@ Layout of ``store/job-00000042/``::
                                    uint8 array holding every state array's raw
                                    bytes; its attribute "layout" lists each
                                    array's key, dtype, shape and byte offset
+                                   (the state's SHA-256 is in the ledger)
     samples/time, step, energy_error, angmom_error   (sample,)
     samples/elements                                 (sample, body, element)
 
@@ -66,16 +67,26 @@ def from_storable(arrays):
     return out
 
 
-def _packed(arrays):
-    """State arrays packed into one uint8 blob: (blob, layout, SHA-256 of the state)."""
-    storable = to_storable(arrays)
-    layout, parts, offset = [], [], 0
+def _layout(storable):
+    """[key, dtype, shape, byte offset, byte count] of each array, keys sorted."""
+    layout, offset = [], 0
     for key in sorted(storable):
         arr = storable[key]
         layout.append([key, arr.dtype.str, list(arr.shape), offset, arr.nbytes])
-        parts.append(arr.tobytes())
         offset += arr.nbytes
-    return np.frombuffer(b"".join(parts), dtype=np.uint8), layout, state_sha256(storable)
+    return layout
+
+
+def state_layout(arrays):
+    """The packed layout a checkpoint of these state arrays will have (see :meth:`Store.prepare`)."""
+    return _layout(to_storable(arrays))
+
+
+def _packed(arrays):
+    """State arrays packed into one uint8 blob: (blob, layout, SHA-256 of the state)."""
+    storable = to_storable(arrays)
+    blob = b"".join(storable[key].tobytes() for key in sorted(storable))
+    return np.frombuffer(blob, dtype=np.uint8), _layout(storable), state_sha256(storable)
 
 
 def state_sha256(storable):
@@ -138,6 +149,114 @@ def _run(coro):
 
 async def _gather(coros):
     return await asyncio.gather(*coros)
+
+
+def _raw_chunks(arr):
+    """(chunk shape, dtype) when an array's chunks are its values' raw bytes, else None.
+
+    That is the case for the store's own uncompressed arrays: a regular chunk
+    grid, "/"-separated chunk keys and the bytes codec alone, little-endian.
+    Such a chunk can be written as ``ndarray.tobytes()`` of the whole chunk,
+    which spares zarr's general codec pipeline on every commit; any other
+    array is written through zarr.
+    """
+    from zarr.codecs import BytesCodec
+    from zarr.core.chunk_grids import RegularChunkGrid
+    from zarr.core.chunk_key_encodings import DefaultChunkKeyEncoding
+
+    m = arr.metadata
+    codecs = getattr(m, "codecs", ())
+    if (len(codecs) != 1 or not isinstance(codecs[0], BytesCodec)
+            or not isinstance(getattr(m, "chunk_grid", None), RegularChunkGrid)
+            or not isinstance(getattr(m, "chunk_key_encoding", None), DefaultChunkKeyEncoding)
+            or m.chunk_key_encoding.separator != "/"):
+        return None
+    dtype = np.dtype(m.data_type.to_native_dtype())
+    endian = codecs[0].endian
+    if dtype.itemsize > 1 and (endian is None or endian.value != "little"):
+        return None
+    return tuple(m.chunk_grid.chunk_shape), dtype.newbyteorder("<")
+
+
+def _buffer(data):
+    from zarr.core.buffer import default_buffer_prototype
+
+    return default_buffer_prototype().buffer.from_bytes(data)
+
+
+async def _chunk_now(h, key, arr, c, shape, dtype):
+    """Chunk c of a sample array as it stands (cached from the last write, or read)."""
+    from zarr.core.buffer import default_buffer_prototype
+
+    cached = h["tail"].get(key)
+    if cached is not None and cached[0] == c:
+        return cached[1]
+    path = f"{arr.store_path.path}/{arr.metadata.encode_chunk_key((c,) + (0,) * (arr.ndim - 1))}"
+    buf = await arr.store_path.store.get(path, prototype=default_buffer_prototype())
+    if buf is None:
+        return np.full(shape, arr.metadata.fill_value, dtype=dtype)
+    data = buf.to_bytes()
+    if len(data) != int(np.prod(shape)) * dtype.itemsize:
+        raise StoreError(f"sample chunk {path} has {len(data)} bytes, not the "
+                         f"{int(np.prod(shape)) * dtype.itemsize} its shape needs; "
+                         "the store is damaged.")
+    return np.frombuffer(data, dtype=dtype).reshape(shape).copy()
+
+
+async def _write_async(h, base, samples, ck):
+    """Issue every write of one commit concurrently; returns the paths to fsync."""
+    tasks, files, dirs = [], [], []
+    if samples is not None:
+        start, block = samples
+        n = len(block["time"])
+        need = start + n
+        arrs = h["samples"]
+        if arrs["time"].shape[0] < need:
+            cap = max(need, 2 * arrs["time"].shape[0], defaults.SAMPLE_CHUNK)
+            await asyncio.gather(*[a.resize((cap,) + tuple(a.shape[1:])) for a in arrs.values()])
+            files += [str(base / "samples" / k / "zarr.json") for k in arrs]
+        for key, a in arrs.items() if n else ():
+            raw = h["raw"][key]
+            if raw is None:
+                tasks.append(a.setitem(slice(start, need), np.ascontiguousarray(block[key])))
+            rows = a.chunks[0]
+            for c in range(start // rows, (need - 1) // rows + 1):
+                rel = a.metadata.encode_chunk_key((c,) + (0,) * (a.ndim - 1))
+                if raw is not None:
+                    # Whole chunk = the rows already there + this block's rows.
+                    shape, dtype = raw
+                    lo, hi = max(start, c * rows), min(need, (c + 1) * rows)
+                    if hi - lo == rows:
+                        chunk = np.empty(shape, dtype=dtype)  # all of it is new
+                    else:
+                        chunk = await _chunk_now(h, key, a, c, shape, dtype)
+                    chunk[lo - c * rows:hi - c * rows] = block[key][lo - start:hi - start]
+                    h["tail"][key] = (c, chunk)
+                    tasks.append(a.store_path.store.set(f"{a.store_path.path}/{rel}",
+                                                        _buffer(chunk.tobytes())))
+                f = base / "samples" / key / rel
+                files.append(str(f))
+                d = f.parent
+                while d != base / "samples" / key:
+                    dirs.append(str(d))
+                    d = d.parent
+    if ck is not None:
+        name, blob, layout, _digest = ck
+        d = base / "checkpoints" / name
+        ready = h["ready"].pop(name, None)
+        if ready is not None and ready[1] == layout and _raw_chunks(ready[0]) is not None:
+            arr = ready[0]
+            tasks.append(arr.store_path.store.set(
+                f"{arr.store_path.path}/{arr.metadata.encode_chunk_key((0,))}",
+                _buffer(blob.tobytes())))
+        else:
+            tasks.append(h["checkpoints"].create_array(
+                name, data=blob, chunks=blob.shape, compressors=None, overwrite=True,
+                attributes={"layout": layout}, config=_WRITE_ALL))
+        files += [str(d / "zarr.json"), str(d / "c" / "0")]
+        dirs += [str(d / "c"), str(d), str(base / "checkpoints")]
+    await asyncio.gather(*tasks)
+    return files, dirs
 
 
 class Store:
@@ -211,6 +330,28 @@ class Store:
         for key in (int(job_id), ("async", int(job_id))):
             self._open.pop(key, None)
 
+    def prepare(self, job_id, checkpoint=None):
+        """Open a job's arrays and create the next checkpoint's array ahead of time.
+
+        ``checkpoint`` is (idx, fence, layout) with the layout from
+        :func:`state_layout`. Workers call this from a helper thread while the
+        kernel runs (the kernels release the GIL), so none of it costs wall
+        time; the commit then only writes the data. A prepared checkpoint that
+        is never committed is ignored like any uncommitted one.
+        """
+        try:
+            h = self._handles(job_id)
+            if checkpoint is not None:
+                idx, fence, layout = checkpoint
+                name = self._ck_name(idx, fence)
+                nbytes = sum(entry[4] for entry in layout)
+                arr = _run(h["checkpoints"].create_array(
+                    name, shape=(nbytes,), dtype="u1", chunks=(nbytes,), compressors=None,
+                    overwrite=True, attributes={"layout": layout}, config=_WRITE_ALL))
+                h["ready"][name] = (arr, layout)
+        except OSError as err:
+            raise StoreError(f"could not prepare the store of job {job_id}: {err}") from err
+
     def _handles(self, job_id):
         """A job's checkpoints group and sample arrays, asynchronous, opened once."""
         key = ("async", int(job_id))
@@ -230,7 +371,10 @@ class Store:
             za.open_group(store=root, path="checkpoints", mode="r+"),
             *[za.open_array(store=root, path=f"samples/{k}", mode="r+", config=_WRITE_ALL)
               for k in names])
-        return {"checkpoints": opened[0], "samples": dict(zip(names, opened[1:]))}
+        samples = dict(zip(names, opened[1:]))
+        return {"checkpoints": opened[0], "samples": samples,
+                "raw": {k: _raw_chunks(a) for k, a in samples.items()},
+                "tail": {}, "ready": {}}
 
     # -- writing: samples and checkpoints in one batch --------------------------
     @staticmethod
@@ -266,54 +410,21 @@ class Store:
         if checkpoint is not None:
             idx, fence, arrays = checkpoint
             ck = (self._ck_name(idx, fence),) + _packed(arrays)
+        h = None
         try:
             h = self._handles(job_id)
-            files, dirs = _run(self._write_async(h, self.job_path(job_id), samples, ck))
+            files, dirs = _run(_write_async(h, self.job_path(job_id), samples, ck))
             if samples is not None and checkpoint is not None:
                 failpoint("mid_store_write")  # written, not yet durable
             if durable:
                 _fsync_paths(files, dirs)
         except OSError as err:
+            if h is not None:
+                h["tail"].clear()  # the cached chunk may not be what the disk holds
             what = "samples" if checkpoint is None else f"checkpoint {checkpoint[0]}"
             raise StoreError(f"could not write {what} of job {job_id}: {err}") from err
         return (None if samples is None else samples_sha256(samples[1]),
                 None if ck is None else ck[3])
-
-    @staticmethod
-    async def _write_async(h, base, samples, ck):
-        """Issue every write of one commit concurrently; returns the paths to fsync."""
-        tasks, files, dirs = [], [], []
-        if samples is not None:
-            start, block = samples
-            n = len(block["time"])
-            need = start + n
-            arrs = h["samples"]
-            if arrs["time"].shape[0] < need:
-                cap = max(need, 2 * arrs["time"].shape[0], defaults.SAMPLE_CHUNK)
-                await asyncio.gather(*[a.resize((cap,) + tuple(a.shape[1:]))
-                                       for a in arrs.values()])
-                files += [str(base / "samples" / k / "zarr.json") for k in arrs]
-            for key, a in arrs.items() if n else ():
-                tasks.append(a.setitem(slice(start, need), np.ascontiguousarray(block[key])))
-                rows = a.chunks[0]
-                for c in range(start // rows, (need - 1) // rows + 1):
-                    rel = a.metadata.encode_chunk_key((c,) + (0,) * (a.ndim - 1))
-                    f = base / "samples" / key / rel
-                    files.append(str(f))
-                    d = f.parent
-                    while d != base / "samples" / key:
-                        dirs.append(str(d))
-                        d = d.parent
-        if ck is not None:
-            name, blob, layout, digest = ck
-            tasks.append(h["checkpoints"].create_array(
-                name, data=blob, chunks=blob.shape, compressors=None, overwrite=True,
-                attributes={"layout": layout, "state_sha256": digest}, config=_WRITE_ALL))
-            d = base / "checkpoints" / name
-            files += [str(d / "zarr.json"), str(d / "c" / "0")]
-            dirs += [str(d / "c"), str(d), str(base / "checkpoints")]
-        await asyncio.gather(*tasks)
-        return files, dirs
 
     def read_checkpoint(self, job_id, idx, fence, expect_sha256=None):
         """Read a checkpoint's state arrays, checking their hash if one is given."""
@@ -349,7 +460,9 @@ class Store:
     def trim_samples(self, job_id, n):
         """Cut the sample arrays to exactly the n committed rows."""
         try:
-            arrs = self._handles(job_id)["samples"]
+            h = self._handles(job_id)
+            h["tail"].clear()
+            arrs = h["samples"]
             todo = [a for a in arrs.values() if a.shape[0] != n]
             if todo:
                 _run(_gather([a.resize((n,) + tuple(a.shape[1:])) for a in todo]))

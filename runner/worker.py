@@ -20,6 +20,7 @@ from . import defaults, provenance, stopflag
 from .errors import FencedError, StoreError
 from .ledger import angmom0, repair_by_replay
 from .sampling import SampleBuffer, sample_now
+from .store import state_layout
 from .faults import failpoint
 from .status import ACTIVE, JobStatus
 
@@ -153,7 +154,12 @@ class Worker:
         max_e, max_l = row["max_energy_error"], row["max_angmom_error"]
         last_beat = self.clock()
         buf = SampleBuffer(len(integ.gm), e0, l0, capacity=min(chunk // out + 1, 4096))
+        layout = state_layout(integ.state_arrays())
         while True:
+            # Open the job's arrays and create the coming checkpoint's array
+            # on a helper thread while the kernel runs.
+            prepared = _helper().submit(self.ledger.store.prepare, job_id,
+                                        (idx + 1, claim.fence, layout))
             chunk_end = min((integ.step // chunk + 1) * chunk, total)
             buf.clear()
             stop = None
@@ -191,6 +197,7 @@ class Worker:
                 max_e = max(max_e, float(np.abs(block["energy_error"]).max()))
                 max_l = max(max_l, float(block["angmom_error"].max()))
             max_e, max_l = max(max_e, e_err), max(max_l, l_err)
+            prepared.result()  # re-raises a StoreError from the helper
             failpoint("before_store_write")
             # Samples and checkpoint in one batch ("mid_store_write" fires
             # inside it, after the writes and before the fsyncs).
@@ -232,6 +239,19 @@ class Worker:
                     # Finished: leave exactly the committed rows for readers.
                     self.ledger.store.trim_samples(job_id, n_samples)
                 return result.status
+
+
+_HELPER = None
+
+
+def _helper():
+    """One helper thread per process for store work that overlaps the kernel."""
+    global _HELPER
+    if _HELPER is None:
+        from concurrent.futures import ThreadPoolExecutor
+
+        _HELPER = ThreadPoolExecutor(max_workers=1, thread_name_prefix="store-helper")
+    return _HELPER
 
 
 class Budget:
