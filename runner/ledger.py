@@ -33,6 +33,8 @@ class Claim:
     owner: str
     lease_expires: float
     segment_id: int | None = None
+    job: dict | None = None  # the job row and its last checkpoint row, read at claim time
+    checkpoint: dict | None = None
 
 
 @dataclass(frozen=True)
@@ -260,12 +262,17 @@ class Ledger:
             if row["status"] == JobStatus.RUNNING.value:
                 self._event(conn, row["id"], "lease_taken_over", None, None, None,
                             {"new_owner": owner, "fence": fence}, now)
+            # Everything the worker needs to start, read in the same transaction.
+            job = dict(self._row(conn, row["id"]))
+            ck = conn.execute(select(checkpoints).where(and_(
+                checkpoints.c.job_id == row["id"],
+                checkpoints.c.idx == job["n_checkpoints"]))).mappings().first()
             seg = None
             if provenance is not None:
-                start = conn.execute(select(jobs.c.steps_done).where(
-                    jobs.c.id == row["id"])).scalar()
-                seg = self._insert_segment(conn, row["id"], fence, owner, start, provenance, now)
-        return Claim(int(row["id"]), fence, owner, expires, seg)
+                seg = self._insert_segment(conn, row["id"], fence, owner, job["steps_done"],
+                                           provenance, now)
+        return Claim(int(row["id"]), fence, owner, expires, seg, job,
+                     None if ck is None else dict(ck))
 
     def check_fence(self, claim):
         """Raise FencedError unless the claim's fencing token is still current (read only)."""
@@ -537,12 +544,20 @@ class Ledger:
             rows = conn.execute(select(jobs.c.status, func.count()).group_by(jobs.c.status))
             return {s: int(n) for s, n in rows}
 
-    def load_integrator(self, job_id, checkpoint=None):
-        """The exact integrator state at a committed checkpoint (hash-checked)."""
+    def load_integrator(self, job_id, checkpoint=None, row=None):
+        """The exact integrator state at a committed checkpoint (hash-checked).
+
+        ``checkpoint`` is an index (default: the last); ``row`` a checkpoint
+        row already read (a claim carries the last one).
+        """
         from integrators import Integrator
 
-        ck = self.last_checkpoint(job_id) if checkpoint is None else next(
-            (c for c in self.checkpoints(job_id) if c["idx"] == checkpoint), None)
+        if row is not None:
+            ck = row
+        elif checkpoint is None:
+            ck = self.last_checkpoint(job_id)
+        else:
+            ck = next((c for c in self.checkpoints(job_id) if c["idx"] == checkpoint), None)
         if ck is None:
             raise NotFoundError(f"job {job_id} has no checkpoint {checkpoint}.")
         arrays = self.store.read_checkpoint(job_id, ck["idx"], ck["fence"], ck["state_sha256"])

@@ -101,13 +101,13 @@ class Worker:
 
         Returns the job's status afterwards (or "fenced").
         """
-        row = self.ledger.job(claim.job_id)
+        row = claim.job if claim.job is not None else self.ledger.job(claim.job_id)
         # The budget is plain numbers in the stored spec: no unit parsing (and
         # no astropy import) on the resume path.
         plan = Budget.from_spec_json(row["spec_json"])
         try:
             try:
-                integ, ck = self.ledger.load_integrator(claim.job_id)
+                integ, ck = self.ledger.load_integrator(claim.job_id, row=claim.checkpoint)
             except StoreError:
                 # Damaged or truncated checkpoint: fall back to the last good
                 # one and replay from there, checking every recorded hash.
