@@ -21,6 +21,7 @@ import asyncio
 import hashlib
 import json
 import os
+import uuid
 from pathlib import Path
 
 import numpy as np
@@ -110,26 +111,34 @@ def samples_sha256(block):
     return state_sha256(block)
 
 
-_FSYNC_POOL = None
+_POOL = None
 # Write every chunk, even one equal to the fill value, so that each file a
 # commit fsyncs exists.
 _WRITE_ALL = {"write_empty_chunks": True}
 
 
-def _fsync_paths(files, dirs):
-    """fsync the given files, then the given folders, several at a time.
+def _in_pool(calls):
+    """Run calls [(function, *args)] a few at a time; re-raise the first error.
 
-    fsync releases the GIL, so a few threads let the filesystem fold the
-    flushes into one journal commit instead of one per file.
+    File writes and fsync release the GIL, so a few threads let the
+    filesystem fold the flushes into one journal commit instead of one per
+    file.
     """
-    global _FSYNC_POOL
-    if _FSYNC_POOL is None:
+    global _POOL
+    if not calls:
+        return
+    if _POOL is None:
         from concurrent.futures import ThreadPoolExecutor
 
-        _FSYNC_POOL = ThreadPoolExecutor(max_workers=4, thread_name_prefix="fsync")
-    for batch in (sorted(set(files)), sorted(set(dirs))):
-        for fut in [_FSYNC_POOL.submit(_fsync_one, p) for p in batch]:
-            fut.result()
+        _POOL = ThreadPoolExecutor(max_workers=4, thread_name_prefix="store-io")
+    for fut in [_POOL.submit(*call) for call in calls]:
+        fut.result()
+
+
+def _fsync_paths(files, dirs):
+    """fsync the given files, then the given folders."""
+    _in_pool([(_fsync_one, p) for p in sorted(set(files))])
+    _in_pool([(_fsync_one, p) for p in sorted(set(dirs))])
 
 
 def _fsync_one(path):
@@ -178,24 +187,39 @@ def _raw_chunks(arr):
     return tuple(m.chunk_grid.chunk_shape), dtype.newbyteorder("<")
 
 
-def _buffer(data):
-    from zarr.core.buffer import default_buffer_prototype
+def _put(path, data, durable):
+    """Write bytes to a file atomically (temporary file, fsync, rename), as zarr does."""
+    os.makedirs(os.path.dirname(path), exist_ok=True)
+    tmp = f"{path}.{uuid.uuid4().hex}.partial"
+    try:
+        fd = os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_TRUNC, 0o644)
+        try:
+            view = memoryview(data)
+            while view:
+                view = view[os.write(fd, view):]
+            if durable:
+                os.fsync(fd)
+        finally:
+            os.close(fd)
+        os.replace(tmp, path)
+    except BaseException:
+        try:
+            os.unlink(tmp)
+        except FileNotFoundError:
+            pass
+        raise
 
-    return default_buffer_prototype().buffer.from_bytes(data)
 
-
-async def _chunk_now(h, key, arr, c, shape, dtype):
-    """Chunk c of a sample array as it stands (cached from the last write, or read)."""
-    from zarr.core.buffer import default_buffer_prototype
-
+def _chunk_now(h, key, path, shape, dtype, fill):
+    """A sample chunk as it stands: cached from this store's last write, or read back."""
     cached = h["tail"].get(key)
-    if cached is not None and cached[0] == c:
+    if cached is not None and cached[0] == path:
         return cached[1]
-    path = f"{arr.store_path.path}/{arr.metadata.encode_chunk_key((c,) + (0,) * (arr.ndim - 1))}"
-    buf = await arr.store_path.store.get(path, prototype=default_buffer_prototype())
-    if buf is None:
-        return np.full(shape, arr.metadata.fill_value, dtype=dtype)
-    data = buf.to_bytes()
+    try:
+        with open(path, "rb") as fh:
+            data = fh.read()
+    except FileNotFoundError:
+        return np.full(shape, fill, dtype=dtype)
     if len(data) != int(np.prod(shape)) * dtype.itemsize:
         raise StoreError(f"sample chunk {path} has {len(data)} bytes, not the "
                          f"{int(np.prod(shape)) * dtype.itemsize} its shape needs; "
@@ -203,9 +227,16 @@ async def _chunk_now(h, key, arr, c, shape, dtype):
     return np.frombuffer(data, dtype=dtype).reshape(shape).copy()
 
 
-async def _write_async(h, base, samples, ck):
-    """Issue every write of one commit concurrently; returns the paths to fsync."""
-    tasks, files, dirs = [], [], []
+def _plan(h, base, samples, ck):
+    """Everything one commit writes.
+
+    Returns (puts, grow, coros, files, dirs): whole raw chunks to write
+    directly as (path, bytes); zarr coroutines that grow the arrays (run
+    first); zarr coroutines for the rest (arrays that are not raw, a
+    checkpoint that was not prepared); the files the coroutines write; and
+    the folders to fsync afterwards.
+    """
+    puts, grow, coros, files, dirs = [], [], [], [], []
     if samples is not None:
         start, block = samples
         n = len(block["time"])
@@ -213,50 +244,48 @@ async def _write_async(h, base, samples, ck):
         arrs = h["samples"]
         if arrs["time"].shape[0] < need:
             cap = max(need, 2 * arrs["time"].shape[0], defaults.SAMPLE_CHUNK)
-            await asyncio.gather(*[a.resize((cap,) + tuple(a.shape[1:])) for a in arrs.values()])
+            grow += [a.resize((cap,) + tuple(a.shape[1:])) for a in arrs.values()]
             files += [str(base / "samples" / k / "zarr.json") for k in arrs]
+            dirs += [str(base / "samples" / k) for k in arrs]
         for key, a in arrs.items() if n else ():
             raw = h["raw"][key]
             if raw is None:
-                tasks.append(a.setitem(slice(start, need), np.ascontiguousarray(block[key])))
+                coros.append(a.setitem(slice(start, need), np.ascontiguousarray(block[key])))
             rows = a.chunks[0]
             for c in range(start // rows, (need - 1) // rows + 1):
                 rel = a.metadata.encode_chunk_key((c,) + (0,) * (a.ndim - 1))
-                if raw is not None:
+                path = str(base / "samples" / key / rel)
+                if raw is None:
+                    files.append(path)
+                else:
                     # Whole chunk = the rows already there + this block's rows.
                     shape, dtype = raw
                     lo, hi = max(start, c * rows), min(need, (c + 1) * rows)
                     if hi - lo == rows:
                         chunk = np.empty(shape, dtype=dtype)  # all of it is new
                     else:
-                        chunk = await _chunk_now(h, key, a, c, shape, dtype)
+                        chunk = _chunk_now(h, key, path, shape, dtype, a.metadata.fill_value)
                     chunk[lo - c * rows:hi - c * rows] = block[key][lo - start:hi - start]
-                    h["tail"][key] = (c, chunk)
-                    tasks.append(a.store_path.store.set(f"{a.store_path.path}/{rel}",
-                                                        _buffer(chunk.tobytes())))
-                f = base / "samples" / key / rel
-                files.append(str(f))
-                d = f.parent
-                while d != base / "samples" / key:
-                    dirs.append(str(d))
-                    d = d.parent
+                    h["tail"][key] = (path, chunk)
+                    puts.append((path, chunk.tobytes()))
+                d = os.path.dirname(path)
+                while d != str(base / "samples" / key):
+                    dirs.append(d)
+                    d = os.path.dirname(d)
     if ck is not None:
         name, blob, layout, _digest = ck
         d = base / "checkpoints" / name
         ready = h["ready"].pop(name, None)
         if ready is not None and ready[1] == layout and _raw_chunks(ready[0]) is not None:
-            arr = ready[0]
-            tasks.append(arr.store_path.store.set(
-                f"{arr.store_path.path}/{arr.metadata.encode_chunk_key((0,))}",
-                _buffer(blob.tobytes())))
+            puts.append((str(d / ready[0].metadata.encode_chunk_key((0,))), blob.tobytes()))
         else:
-            tasks.append(h["checkpoints"].create_array(
+            coros.append(h["checkpoints"].create_array(
                 name, data=blob, chunks=blob.shape, compressors=None, overwrite=True,
                 attributes={"layout": layout}, config=_WRITE_ALL))
-        files += [str(d / "zarr.json"), str(d / "c" / "0")]
+            files.append(str(d / "c" / "0"))
+        files.append(str(d / "zarr.json"))  # written by prepare() or just now
         dirs += [str(d / "c"), str(d), str(base / "checkpoints")]
-    await asyncio.gather(*tasks)
-    return files, dirs
+    return puts, grow, coros, files, dirs
 
 
 class Store:
@@ -413,9 +442,13 @@ class Store:
         h = None
         try:
             h = self._handles(job_id)
-            files, dirs = _run(_write_async(h, self.job_path(job_id), samples, ck))
+            puts, grow, coros, files, dirs = _plan(h, self.job_path(job_id), samples, ck)
+            for batch in (grow, coros):
+                if batch:
+                    _run(_gather(batch))
+            _in_pool([(_put, path, data, durable) for path, data in puts])
             if samples is not None and checkpoint is not None:
-                failpoint("mid_store_write")  # written, not yet durable
+                failpoint("mid_store_write")  # data written, folders not yet fsynced
             if durable:
                 _fsync_paths(files, dirs)
         except OSError as err:

@@ -11,6 +11,7 @@ from zarr.storage import LocalStore
 from runner.errors import StoreError
 from runner.ledger import Ledger
 from runner.provenance import redact_argv
+from runner import store as store_mod
 from runner.store import Store
 from runner.worker import Worker
 from helpers import final_state, samples_bytes, small_spec
@@ -66,25 +67,25 @@ def test_full_disk_holds_the_job_and_loses_nothing(tmp_path, monkeypatch):
     w = Worker(led, max_steps_per_call=5000)
     calls = {"n": 0}
     real_chunk = Store.write_chunk
-    real_set = LocalStore.set
+    real_put = store_mod._put
 
     def counting(self, *a, **kw):
         calls["n"] += 1
         return real_chunk(self, *a, **kw)
 
-    async def full_disk(self, key, value):
+    def full_disk(path, data, durable):
         if calls["n"] == 3:  # the third commit finds the disk full
             raise OSError(errno.ENOSPC, "No space left on device")
-        return await real_set(self, key, value)
+        return real_put(path, data, durable)
 
     monkeypatch.setattr(Store, "write_chunk", counting)
-    monkeypatch.setattr(LocalStore, "set", full_disk)
+    monkeypatch.setattr(store_mod, "_put", full_disk)
     w.run()
     row = led.job(j)
     assert row["status"] == "held"
     assert "No space left on device" in row["reason"]
     assert row["n_checkpoints"] == 2  # both earlier commits kept
-    monkeypatch.setattr(LocalStore, "set", real_set)
+    monkeypatch.setattr(store_mod, "_put", real_put)
     led.unhold(j)
     Worker(led).run()
     assert led.job(j)["status"] == "done"
