@@ -5,7 +5,11 @@ corrector and a small step, so that truncation error is far below round-off:
 what is left is how round-off accumulates. Brouwer (1937) predicts alpha = 1/2
 for unbiased round-off. Reports the fitted alpha for energy and angular momentum.
 
-Run:  .venv/bin/python tests/benchmarks/bench_growth.py [--steps N]
+With --job, the same for a spec from jobs/ (its own step and corrector), e.g.
+the four-giant job, whose angular-momentum error grows linearly (see
+bench_drift_bias.py for why).
+
+Run:  .venv/bin/python tests/benchmarks/bench_growth.py [--steps N] [--job jobs/x.toml]
 """
 
 import argparse
@@ -29,15 +33,20 @@ def main():
     ap = argparse.ArgumentParser()
     ap.add_argument("--steps", type=int, default=20_000_000)
     ap.add_argument("--runs", type=int, default=4)
+    ap.add_argument("--job", help="a spec file to use instead of Orrin")
     args = ap.parse_args()
     every = args.steps // 2000
     rows, series = [], []
     for k in range(args.runs):
         # Clones differing in the last bits of one mean anomaly give independent round-off.
-        spec = small_spec(step="2 d", corrector=17, length="1 yr", output="1 steps",
-                          chunk="1 steps")
+        if args.job:
+            spec = S.load(args.job)
+        else:
+            spec = small_spec(step="2 d", corrector=17, length="1 yr", output="1 steps",
+                              chunk="1 steps")
+        m0 = float(str(spec.system.bodies[0].mean_anomaly).split()[0])
         spec = spec.model_copy(update={"system": spec.system.model_copy(update={"bodies": [
-            b.model_copy(update={"mean_anomaly": f"{10 + 1e-9 * k!r} deg"}) if i == 0 else b
+            b.model_copy(update={"mean_anomaly": f"{m0 + 1e-9 * k!r} deg"}) if i == 0 else b
             for i, b in enumerate(spec.system.bodies)]})})
         integ = S.resolve(spec).make_integrator()
         e0, l0, _ = integ.diagnostics()
