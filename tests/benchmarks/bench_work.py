@@ -49,20 +49,17 @@ def bare(spec):
 
 
 def worker(spec, tmp):
+    """A job on a new ledger (fresh file, statements compiled afresh)."""
     shutil.rmtree(tmp, ignore_errors=True)
     led = Ledger(f"sqlite:///{tmp}.sqlite", tmp)
-    jid = led.submit(spec)
-    t = time.perf_counter()
-    Worker(led).run()
-    wall = time.perf_counter() - t
-    row = led.job(jid)
-    assert row["status"] == "done" and row["steps_done"] == STEPS, row
+    out = worker_warm(spec, led)
     led.close()
     os.remove(f"{tmp}.sqlite")
-    return wall, row["n_samples"], row["n_checkpoints"]
+    return out
 
 
 def worker_warm(spec, led):
+    """A job submitted to `led` and worked by a new Worker: (wall s, samples, checkpoints)."""
     jid = led.submit(spec)
     t = time.perf_counter()
     Worker(led).run()
