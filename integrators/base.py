@@ -64,6 +64,9 @@ class Integrator:
         self.dt = dt
         self.t0 = float(system.time)
         self.step = 0
+        # Samples are taken where (step + sample_offset) is a multiple of the
+        # cadence; a reversed integrator keeps its parent's grid this way.
+        self.sample_offset = 0
         self.stops = stops or StopConditions()
         self._stop_pairs, self._stop_params = self.stops.kernel_args(self.gm)
 
@@ -83,7 +86,8 @@ class Integrator:
 
     def advance_sampled(self, n_steps, every, out_g, out_el, row0):
         """Advance like :meth:`advance`, diagnosing a synchronized copy at every
-        absolute step that is a multiple of `every`, inside the compiled loop.
+        step whose number plus ``sample_offset`` is a multiple of `every`
+        (0 for a run from its start), inside the compiled loop.
 
         Row r of out_g receives (step, G*energy, G*Lx, G*Ly, G*Lz) and row r
         of out_el the heliocentric elements (degrees), for r from row0.
@@ -97,6 +101,8 @@ class Integrator:
         if every < 1 or len(out_g) < row0 + n_steps // every + 1:
             raise ValueError("sample arrays too small for the requested steps and cadence.")
         steps, code, a, b, rows = self._advance_impl(n_steps, every, out_g, out_el, row0)
+        if self.sample_offset:
+            out_g[row0:rows, 0] -= self.sample_offset  # the kernels count from the offset
         return self._result(steps, code, a, b), int(rows)
 
     @staticmethod
@@ -166,12 +172,15 @@ class Integrator:
         The pending half-drift (if any) is applied first, so the new one
         starts synchronized at this time with step -dt and its step counter
         at 0. Coordinates stay the internal ones (corrector applied), so a
-        forward run followed by its reverse retraces the same map.
+        forward run followed by its reverse retraces the same map. Its
+        samples fall on the same times as this integrator's, at any cadence
+        (its step k is this one's step - k).
         """
         arrays = {k: np.array(v) for k, v in self.state_arrays().items()}
         arrays["t0"] = np.array([self.time])
         arrays["dt"] = np.array([-self.dt])
         arrays["step"] = np.array([0], dtype=np.int64)
+        arrays["sample_offset"] = np.array([-(self.step + self.sample_offset)], dtype=np.int64)
         back = Integrator.from_state_arrays(arrays)
         back._settle_pending(self.dt)  # each method applies its own half-drift
         return back
@@ -196,6 +205,9 @@ class Integrator:
                                float(self.stops.unbound), self.stops.unbound_distance,
                                self.stops.star_radius, self.stops.max_ecc]),
         }
+        if self.sample_offset:
+            # Only when set, so states of runs from their start keep their bytes.
+            out["sample_offset"] = np.array([self.sample_offset], dtype=np.int64)
         out.update(self._internal_arrays())
         return out
 
@@ -220,6 +232,8 @@ class Integrator:
         obj.dt = float(np.asarray(arrays["dt"])[0])
         obj.t0 = float(np.asarray(arrays["t0"])[0])
         obj.step = int(np.asarray(arrays["step"])[0])
+        obj.sample_offset = (int(np.asarray(arrays["sample_offset"])[0])
+                             if "sample_offset" in arrays else 0)
         s = np.asarray(arrays["stops"], dtype=np.float64)
         obj.stops = StopConditions(float(s[0]), float(s[1]), bool(s[2]), float(s[3]),
                                    float(s[4]), float(s[5]))

@@ -77,18 +77,18 @@ class Leapfrog(Integrator):
         # Sampled: advance output by output (leapfrog is for tests; speed is secondary).
         done, rows = 0, row0
         while done < n:
-            to_next = every - (self.step + done) % every
+            to_next = every - (self.step + self.sample_offset + done) % every
             chunk = min(to_next, n - done)
             steps, code, a, b, _ = self._advance_impl(chunk)
             done += steps
             if code:
                 return done, code, a, b, rows
-            if (self.step + done) % every == 0:
+            if (self.step + self.sample_offset + done) % every == 0:
                 saved = self.step
                 self.step += done
                 e, lx, ly, lz = self.diagnose_into(out_el[rows])
                 self.step = saved
-                out_g[rows] = (saved + done, e, lx, ly, lz)
+                out_g[rows] = (saved + self.sample_offset + done, e, lx, ly, lz)
                 rows += 1
         return done, 0, -1, -1, rows
 

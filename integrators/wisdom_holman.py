@@ -233,7 +233,8 @@ class WisdomHolman(Integrator):
         steps, self.pending, code, a, b, rows = wh_steps(
             self.xj, self.vj, self.gm, self.mu, self.eta, self.dt, n, self.pending,
             self.gr_coef, self._stop_pairs, self._stop_params, self._xi, self._acc, self._rh,
-            self.step, every, a_inv, c_inv, self._diag_scratch, out_g, out_el, row0)
+            self.step + self.sample_offset, every, a_inv, c_inv, self._diag_scratch, out_g,
+            out_el, row0)
         return steps, code, a, b, rows
 
     def _synchronized_state(self):

@@ -170,8 +170,11 @@ class Ledger:
             created_at=now, updated_at=now)).inserted_primary_key[0]
         # The store is written inside the open transaction: if it fails the
         # job row is rolled back and nothing is left in the ledger.
+        # The first row, then one per output (one more when the outputs are
+        # shifted off this job's own grid, as for a backward run).
+        off_grid = integ.sample_offset % plan.output_steps != 0
         self.store.create_job(job_id, sysm.names,
-                              capacity=(total - integ.step) // plan.output_steps + 1)
+                              capacity=(total - integ.step) // plan.output_steps + 1 + off_grid)
         digest = self.store.write_checkpoint(job_id, 0, 0, integ.state_arrays())
         s_hash = self.store.write_samples(job_id, 0, first)
         conn.execute(insert(checkpoints).values(

@@ -80,3 +80,48 @@ def test_cli_backward_and_reversibility(tmp_path):
     assert r.exit_code == 0 and "Orrin b" in r.output
     r = runner.invoke(app, ["reversibility", "1", "--workspace", str(ws)])
     assert r.exit_code == 2 and "not a backward run" in r.stderr
+
+
+def test_a_reversed_integrator_samples_on_its_parents_grid():
+    import numpy as np
+
+    integ = S.resolve(small_spec()).make_integrator()
+    integ.advance(1234)
+    back = integ.reversed()
+    out_g, out_el = np.empty((20, 5)), np.empty((20, 3, 6))
+    _, rows = back.advance_sampled(1234, 100, out_g, out_el, 0)
+    steps = out_g[:rows, 0].astype(int)
+    # Backward step k is forward step 1234 - k: samples at forward 1200, 1100, ..., 0.
+    assert list(1234 - steps) == list(range(1200, -1, -100))
+    again = type(back).from_state_arrays(back.state_arrays())
+    assert again.sample_offset == back.sample_offset == -1234
+
+
+def test_backward_from_an_interrupted_checkpoint_shares_the_forward_sample_times(led):
+    import numpy as np
+
+    from helpers import samples_bytes
+
+    j = led.submit(small_spec(length="200 yr"))  # 10 d steps, a sample every 500
+    w = Worker(led, max_steps_per_call=1234)
+    w.progress = lambda *a: setattr(w, "stop_requested", "test")
+    w.run()  # stops after the second kernel call: a checkpoint off the output grid
+    S_ = led.last_checkpoint(j)["step"]
+    assert S_ == 2468 and S_ % 500
+    fwd = led.store.read_samples(j, led.job(j)["n_samples"])
+    b1, b2 = led.submit_backward(j), led.submit_backward(j)
+    w = Worker(led, job_id=b1, max_steps_per_call=1000)
+    w.progress = lambda *a: setattr(w, "stop_requested", "test")
+    w.run()  # interrupted once, then resumed
+    Worker(led, job_id=b1).run()
+    Worker(led, job_id=b2).run()
+    assert samples_bytes(led, b1) == samples_bytes(led, b2)
+    back = led.store.read_samples(b1, led.job(b1)["n_samples"])
+    k = back["step"][1:]  # row 0 is the start itself
+    assert list(S_ - k) == list(range(2000, -1, -500))
+    # Same times as the forward samples, and (a regular system) the same orbits.
+    order = np.argsort(S_ - k)
+    assert np.allclose(back["time"][1:][order], fwd["time"][fwd["step"] <= S_],
+                       rtol=0, atol=1e-9 * abs(fwd["time"]).max())
+    assert np.allclose(back["elements"][1:][order], fwd["elements"][fwd["step"] <= S_],
+                       rtol=1e-9, atol=1e-9)
