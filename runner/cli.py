@@ -85,6 +85,8 @@ def submit(spec_file: Annotated[Path, typer.Argument(help="Job spec (TOML).")],
     """Validate a spec and queue it; prints the job id."""
     from . import spec as spec_mod
 
+    from .stepcheck import advice
+
     spec = spec_mod.load(spec_file)  # validated before the ledger is touched
     with open_ledger(workspace, db) as ledger:
         if spec.ensemble is not None and spec.member is None:
@@ -92,6 +94,8 @@ def submit(spec_file: Annotated[Path, typer.Argument(help="Job spec (TOML).")],
             out.print(f"ensemble {ens_id}: jobs {ids[0]}..{ids[-1]}")
         else:
             out.print(ledger.submit(spec, priority=priority))
+    for line in advice(spec_mod.resolve(spec)):
+        err.print(line, markup=False, highlight=False)
 
 
 _WALL_UNITS = {"s": 1.0, "sec": 1.0, "min": 60.0, "m": 60.0, "h": 3600.0, "hr": 3600.0,

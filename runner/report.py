@@ -100,6 +100,8 @@ def show_tables(ledger, job_id):
         ("spec sha256", row["spec_sha256"]),
         ("wall time", format_duration(row["wall_seconds"])),
     ]
+    fields.insert(1 + [k for k, _ in fields].index("method"),
+                  ("step resolution", _step_resolution(row)))
     if row["parent_job_id"]:
         fields.append(("started from", f"job {row['parent_job_id']} checkpoint "
                                        f"{row['parent_checkpoint']}"))
@@ -120,3 +122,11 @@ def show_tables(ledger, job_id):
                   f"({(ver.get('source_commit') or 'no commit')[:12]}), numba {ver.get('numba')}, "
                   f"numpy {ver.get('numpy')}")
     return t, p, segs
+
+
+def _step_resolution(row):
+    """The least resolved orbit at the job's start (see runner.stepcheck)."""
+    from .spec import from_json, resolve
+    from .stepcheck import summary
+
+    return summary(resolve(from_json(row["spec_json"])))
