@@ -13,8 +13,10 @@ from .errors import IntegratorError
 from .nbody import angular_momentum, energy
 from .stops import KIND_BY_CODE, StopConditions, StopKind
 
-# Format tag of state_arrays(); bump when the layout changes.
-STATE_FORMAT = 1
+# Format tag of state_arrays(). Bump it when the layout changes or when the
+# kernels' arithmetic changes (a state can only be continued bit for bit by
+# the arithmetic that wrote it). 2: g' - 1 of the drift from f g' - f' g = 1.
+STATE_FORMAT = 2
 
 
 @dataclass(frozen=True)
@@ -219,7 +221,11 @@ class Integrator:
 
         fmt = int(np.asarray(arrays["format"])[0])
         if fmt != STATE_FORMAT:
-            raise IntegratorError(f"state format {fmt} is not supported (expected {STATE_FORMAT}).")
+            raise IntegratorError(
+                f"state format {fmt} is not supported (expected {STATE_FORMAT}): it was written "
+                "by a version whose layout or arithmetic differs, so this version cannot continue "
+                "it bit for bit; finish it with the version recorded in its provenance, or start "
+                "the job again.")
         method = bytes(np.asarray(arrays["method"], dtype=np.uint8)).decode("ascii")
         classes = {WisdomHolman.method: WisdomHolman, Leapfrog.method: Leapfrog}
         if method not in classes:

@@ -70,7 +70,8 @@ static void drift1(int i, double dt) {
         dsp = ds; s = sn;
     }
     if (!ok) { fprintf(stderr, "no convergence\n"); exit(1); }
-    double fm1 = -m * g2 / r0, g = r0 * g1 + eta0 * g2, fd = -m * g1 / (r0 * r), gdm1 = -m * g2 / r;
+    double fm1 = -m * g2 / r0, g = r0 * g1 + eta0 * g2, fd = -m * g1 / (r0 * r);
+    double gdm1 = (fd * g - fm1) / (1.0 + fm1);  /* f g' - f' g = 1, as in kepler.py */
     double x0 = x[0], x1 = x[1], x2 = x[2];
     x[0] = x0 + (fm1 * x0 + g * v[0]); x[1] = x1 + (fm1 * x1 + g * v[1]); x[2] = x2 + (fm1 * x2 + g * v[2]);
     v[0] = v[0] + (fd * x0 + gdm1 * v[0]); v[1] = v[1] + (fd * x1 + gdm1 * v[1]); v[2] = v[2] + (fd * x2 + gdm1 * v[2]);
