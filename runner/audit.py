@@ -32,6 +32,11 @@ class VerifyReport:
     def ok(self):
         return self.first_bad is None
 
+    @property
+    def bad_checkpoints(self):
+        """Indices of the checkpoints with at least one problem, in order."""
+        return sorted({idx for idx, _ in self.problems})
+
 
 def verify(ledger, job_id):
     """Check the chain, the stored states and the sample blocks of a job."""
@@ -50,8 +55,13 @@ def verify(ledger, job_id):
             issues.append(str(err))
         try:
             if stored is None:
-                stored = ledger.store.read_samples(job_id, ledger.job(job_id)["n_samples"])
-            block = {k: v[n_prev:ck["n_samples"]] for k, v in stored.items()}
+                stored = _all_samples(ledger, job_id)
+            if stored is False:
+                # The whole read failed: read this checkpoint's block alone, so
+                # the first damaged block is named, not checkpoint 0.
+                block = ledger.store.read_samples(job_id, ck["n_samples"], start=n_prev)
+            else:
+                block = {k: v[n_prev:ck["n_samples"]] for k, v in stored.items()}
             if samples_sha256(block) != ck["samples_sha256"]:
                 issues.append(f"its samples (rows {n_prev}..{ck['n_samples'] - 1}) do not match "
                               "their recorded hash")
@@ -64,6 +74,14 @@ def verify(ledger, job_id):
         rep.checked += 1
         prev, n_prev = ck["chain_sha256"], ck["n_samples"]
     return rep
+
+
+def _all_samples(ledger, job_id):
+    """Every committed sample in one read, or False if that read fails."""
+    try:
+        return ledger.store.read_samples(job_id, ledger.job(job_id)["n_samples"])
+    except StoreError:
+        return False
 
 
 def replay(ledger, job_id, indices=None, sample=None, seed=None):

@@ -286,7 +286,7 @@ def extend(job_id: JobArg,
 def _simple(verb):
     def command(job_id: JobArg, workspace: WorkspaceOpt = None, db: DbOpt = None):
         with open_ledger(workspace, db) as ledger:
-            result = getattr(ledger, {"release": "unhold"}.get(verb, verb))(job_id)
+            result = getattr(ledger, verb)(job_id)
         out.print(f"job {job_id}: {result or verb + 'd'}")
     command.__name__ = verb
     return command
@@ -456,8 +456,10 @@ def verify(job_id: JobArg, workspace: WorkspaceOpt = None, db: DbOpt = None):
         out.print(f"job {job_id}: {rep.checked} checkpoints verified: chain, states and "
                   "samples match the ledger")
         return
+    n_bad = len(rep.bad_checkpoints)
     fail(f"job {job_id}: checkpoint {rep.first_bad} is bad: {rep.problem} "
-         f"({len(rep.problems)} problem(s) in all).", code=1)
+         f"({n_bad} of {rep.checked} checkpoints affected, {len(rep.problems)} problem(s) "
+         "in all).", code=1)
 
 
 @app.command()

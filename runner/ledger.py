@@ -90,13 +90,14 @@ class Ledger:
         self.close()
 
     # -- the one place status changes ------------------------------------------
-    def _transition(self, conn, job_id, old, new, where=(), **fields):
-        """Change status old -> new (checked against the table), with extra fields.
+    def _transition(self, conn, job_id, old, new, op, where=(), **fields):
+        """Change status old -> new by operation `op` (checked against the table).
 
-        Raises FencedError if the row no longer matches (status changed or,
-        with a fence in ``where``, the lease was taken over).
+        Raises TransitionError if the table does not allow it, FencedError if
+        the row no longer matches (status changed or, with a fence in
+        ``where``, the lease was taken over).
         """
-        check_transition(job_id, old, new)
+        check_transition(job_id, old, new, op)
         cond = [jobs.c.id == job_id, jobs.c.status == JobStatus(old).value, *where]
         res = conn.execute(update(jobs).where(and_(*cond)).values(
             status=JobStatus(new).value, **fields))
@@ -241,9 +242,10 @@ class Ledger:
         now = _now(now)
         with self.engine.begin() as conn:
             dead = _dead_local_owners(conn)
-            runnable = or_(jobs.c.status == JobStatus.QUEUED.value,
-                           and_(jobs.c.status == JobStatus.RUNNING.value,
-                                or_(jobs.c.lease_expires < now, jobs.c.id.in_(dead))))
+            lapsed = and_(jobs.c.status == JobStatus.RUNNING.value,
+                          or_(jobs.c.lease_expires < now, jobs.c.id.in_(dead)))
+            self._apply_lapsed_requests(conn, lapsed, now)
+            runnable = or_(jobs.c.status == JobStatus.QUEUED.value, lapsed)
             q = select(jobs.c.id, jobs.c.status, jobs.c.fence).where(runnable)
             if job_id is not None:
                 q = q.where(jobs.c.id == job_id)
@@ -259,14 +261,15 @@ class Ledger:
                 return None
             fence = int(row["fence"]) + 1
             expires = now + self.lease_seconds
-            self._transition(conn, row["id"], row["status"], JobStatus.RUNNING,
+            self._transition(conn, row["id"], row["status"], JobStatus.RUNNING, "claim",
                              where=(jobs.c.fence == row["fence"],),
                              owner=owner, lease_expires=expires, fence=fence, updated_at=now)
-            if row["status"] == JobStatus.RUNNING.value:
-                self._event(conn, row["id"], "lease_taken_over", None, None, None,
-                            {"new_owner": owner, "fence": fence}, now)
             # Everything the worker needs to start, read in the same transaction.
             job = dict(self._row(conn, row["id"]))
+            if row["status"] == JobStatus.RUNNING.value:
+                self._event(conn, row["id"], "lease_taken_over", job["steps_done"], None, None,
+                            {"new_owner": owner, "fence": fence}, now)
+                self._close_lapsed_segments(conn, row["id"], job["steps_done"], now)
             ck = conn.execute(select(checkpoints).where(and_(
                 checkpoints.c.job_id == row["id"],
                 checkpoints.c.idx == job["n_checkpoints"]))).mappings().first()
@@ -276,6 +279,30 @@ class Ledger:
                                            provenance, now)
         return Claim(int(row["id"]), fence, owner, expires, seg, job,
                      None if ck is None else dict(ck))
+
+    def _apply_lapsed_requests(self, conn, lapsed, now):
+        """Running jobs whose worker is gone and which carry a hold or cancel request:
+        apply the request now (their worker cannot), closing its open segment."""
+        rows = conn.execute(select(jobs.c.id, jobs.c.fence, jobs.c.requested,
+                                   jobs.c.steps_done).where(
+            and_(lapsed, jobs.c.requested.is_not(None)))).mappings().all()
+        for r in rows:
+            new = JobStatus.HELD if r["requested"] == "hold" else JobStatus.CANCELLED
+            reason = "held on request" if new == JobStatus.HELD else "cancelled on request"
+            self._transition(conn, r["id"], JobStatus.RUNNING, new, "give_back",
+                             where=(jobs.c.fence == r["fence"],), owner=None,
+                             lease_expires=None, requested=None, reason=reason, updated_at=now)
+            self._close_lapsed_segments(conn, r["id"], r["steps_done"], now)
+            if new == JobStatus.CANCELLED:
+                self._trim_finished(r["id"], conn.execute(select(jobs.c.n_samples).where(
+                    jobs.c.id == r["id"])).scalar())
+
+    @staticmethod
+    def _close_lapsed_segments(conn, job_id, steps_done, now):
+        """Close the segments of a worker whose lease lapsed, at the last committed step."""
+        conn.execute(update(segments).where(and_(
+            segments.c.job_id == job_id, segments.c.ended_at.is_(None))).values(
+                end_step=steps_done, ended_at=now, end_reason="lease_expired"))
 
     def check_fence(self, claim):
         """Raise FencedError unless the claim's fencing token is still current (read only)."""
@@ -364,7 +391,7 @@ class Ledger:
                 fields["lease_expires"] = now + self.lease_seconds
             if new != JobStatus.RUNNING:
                 fields.update(owner=None, lease_expires=None, requested=None)
-            self._transition(conn, claim.job_id, JobStatus.RUNNING, new,
+            self._transition(conn, claim.job_id, JobStatus.RUNNING, new, "commit",
                              where=(jobs.c.fence == claim.fence,), **fields)
             failpoint("in_commit")  # inside the open transaction: a kill here rolls back
             conn.execute(insert(checkpoints).values(
@@ -384,8 +411,10 @@ class Ledger:
         failpoint("after_commit")
         return CommitResult(new, total, requested)
 
-    def release(self, claim, now=None, status=JobStatus.QUEUED, reason=None):
-        """Give up a claim without committing (work remains from the last checkpoint)."""
+    def give_back(self, claim, now=None, status=JobStatus.QUEUED, reason=None):
+        """A worker gives up its claim without committing (work remains from the last
+        checkpoint); a pending hold or cancel request is applied. Returns False if
+        the claim was no longer current."""
         now = _now(now)
         with self.engine.begin() as conn:
             row = self._row(conn, claim.job_id, lock=True)
@@ -396,30 +425,48 @@ class Ledger:
                 status, reason = JobStatus.HELD, reason or "held on request"
             elif req == "cancel":
                 status, reason = JobStatus.CANCELLED, "cancelled on request"
-            self._transition(conn, claim.job_id, JobStatus.RUNNING, status,
+            self._transition(conn, claim.job_id, JobStatus.RUNNING, status, "give_back",
                              where=(jobs.c.fence == claim.fence,), owner=None,
                              lease_expires=None, requested=None, updated_at=now,
                              **({"reason": reason} if reason else {}))
             if status in (JobStatus.HELD, JobStatus.FAILED) and reason:
                 self._event(conn, claim.job_id, status.value, row["steps_done"], None, (),
                             {"reason": reason}, now)
+        if status == JobStatus.CANCELLED:
+            self._trim_finished(claim.job_id, row["n_samples"])
         return True
+
+    def _trim_finished(self, job_id, n_samples):
+        """Leave exactly the committed sample rows of a job that will never run again."""
+        from .errors import StoreError
+
+        try:
+            self.store.trim_samples(job_id, int(n_samples))
+        except StoreError:
+            pass  # a damaged store is reported by verify; the status change stands
 
     # -- user operations -------------------------------------------------------------
     def hold(self, job_id, reason="held by user", now=None):
         """Pause a job: at once if queued, at the worker's next safe point if running."""
         return self._stop_or_request(job_id, "hold", JobStatus.HELD, reason, "held", now)
 
-    def unhold(self, job_id, now=None):
-        """Queue a held (or failed) job again."""
+    def release(self, job_id, now=None):
+        """Queue a held (or failed) job again; withdraw a running job's pending hold.
+
+        Returns "released" or "hold request withdrawn". Any other status is
+        refused by the transition table (a done job is continued by
+        :meth:`extend`; a running job keeps its worker).
+        """
         now = _now(now)
         with self.engine.begin() as conn:
             row = self._row(conn, job_id, lock=True)
             st = JobStatus(row["status"])
             if st == JobStatus.RUNNING and row["requested"] == "hold":
                 conn.execute(update(jobs).where(jobs.c.id == job_id).values(requested=None))
-                return
-            self._transition(conn, job_id, st, JobStatus.QUEUED, reason=None, updated_at=now)
+                return "hold request withdrawn"
+            self._transition(conn, job_id, st, JobStatus.QUEUED, "release", reason=None,
+                             updated_at=now)
+        return "released"
 
     def cancel(self, job_id, now=None):
         """Abandon a job: at once if not running, at the next safe point if running."""
@@ -437,10 +484,15 @@ class Ledger:
             row = self._row(conn, job_id, lock=True)
             st = JobStatus(row["status"])
             if st == JobStatus.RUNNING:
+                if row["requested"] == "cancel" and request == "hold":
+                    raise LedgerError(f"job {job_id} is already to be cancelled at its "
+                                      "worker's next checkpoint; a hold would not apply.")
                 conn.execute(update(jobs).where(jobs.c.id == job_id).values(
                     requested=request, updated_at=now))
                 return "requested"
-            self._transition(conn, job_id, st, target, reason=reason, updated_at=now)
+            self._transition(conn, job_id, st, target, request, reason=reason, updated_at=now)
+        if target == JobStatus.CANCELLED:
+            self._trim_finished(job_id, row["n_samples"])
         return done_word
 
     def extend(self, job_id, new_total_steps, now=None):
@@ -456,7 +508,7 @@ class Ledger:
                 raise LedgerError(f"job {job_id} is {st.value} and cannot be extended.")
             fields = dict(total_steps=int(new_total_steps), updated_at=now)
             if st == JobStatus.DONE:
-                self._transition(conn, job_id, st, JobStatus.QUEUED, outcome=None,
+                self._transition(conn, job_id, st, JobStatus.QUEUED, "extend", outcome=None,
                                  outcome_step=None, outcome_time=None, **fields)
             else:
                 conn.execute(update(jobs).where(jobs.c.id == job_id).values(**fields))
@@ -482,11 +534,22 @@ class Ledger:
             started_at=now)).inserted_primary_key[0])
 
     def end_segment(self, segment_id, end_step, reason, now=None):
-        """Record the end of a stretch of work."""
+        """Record the end of a stretch of work, unless it is already closed.
+
+        ``end_step`` None means: the last step this segment committed (its
+        start step if it committed nothing).
+        """
         now = _now(now)
         with self.engine.begin() as conn:
-            conn.execute(update(segments).where(segments.c.id == segment_id).values(
-                end_step=end_step, ended_at=now, end_reason=reason))
+            if end_step is None:
+                end_step = conn.execute(select(func.max(checkpoints.c.step)).where(
+                    checkpoints.c.segment_id == segment_id)).scalar()
+            if end_step is None:
+                end_step = conn.execute(select(segments.c.start_step).where(
+                    segments.c.id == segment_id)).scalar()
+            conn.execute(update(segments).where(and_(
+                segments.c.id == segment_id, segments.c.ended_at.is_(None))).values(
+                    end_step=end_step, ended_at=now, end_reason=reason))
 
     def _event(self, conn, job_id, kind, step, time_, bodies, detail, now):
         conn.execute(insert(events).values(

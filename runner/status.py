@@ -1,4 +1,10 @@
-"""Job status: one enum and one table of allowed transitions."""
+"""Job status: one enum and one table of allowed transitions, by operation.
+
+A status change is allowed only as a named operation: the same pair of
+statuses may be open to a worker and closed to a user (a worker gives a
+running job back to the queue after a chunk; a user's ``release`` must not,
+or it would take the job from under its worker).
+"""
 
 from enum import Enum
 
@@ -17,32 +23,72 @@ class JobStatus(str, Enum):
     FAILED = "failed"        # a worker hit an error it could not recover from
 
 
-# The one table of allowed changes. RUNNING -> RUNNING is a takeover of an
-# expired lease (new owner, new fencing token) or a commit that keeps going.
+# Operations that change status. Worker operations: "claim" (a queued job,
+# or a running job whose lease expired), "commit" (a fenced commit that
+# keeps going or ends the job), "give_back" (a worker lets go of its claim
+# without committing). User operations: "hold", "release" (queue a held or
+# failed job again), "cancel", "extend" (queue a done job with a later end).
+WORKER_OPS = {"claim", "commit", "give_back"}
+USER_OPS = {"hold", "release", "cancel", "extend"}
+
+# The one table of allowed changes: old -> {new: operations allowed to make it}.
+# RUNNING -> RUNNING is a takeover of an expired lease (new owner, new fencing
+# token) or a commit that keeps going. A user's hold or cancel of a running
+# job is not a change of status: it leaves a request the worker applies at
+# its next safe point, in its own commit or give-back.
 TRANSITIONS = {
-    JobStatus.QUEUED: {JobStatus.RUNNING, JobStatus.HELD, JobStatus.CANCELLED},
-    JobStatus.RUNNING: {JobStatus.RUNNING, JobStatus.QUEUED, JobStatus.DONE, JobStatus.STOPPED,
-                        JobStatus.HELD, JobStatus.FAILED, JobStatus.CANCELLED},
-    JobStatus.HELD: {JobStatus.QUEUED, JobStatus.CANCELLED},
-    JobStatus.DONE: {JobStatus.QUEUED},
-    JobStatus.STOPPED: set(),
-    JobStatus.CANCELLED: set(),
-    JobStatus.FAILED: {JobStatus.QUEUED, JobStatus.CANCELLED},
+    JobStatus.QUEUED: {JobStatus.RUNNING: {"claim"}, JobStatus.HELD: {"hold"},
+                       JobStatus.CANCELLED: {"cancel"}},
+    JobStatus.RUNNING: {JobStatus.RUNNING: {"claim", "commit"},
+                        JobStatus.QUEUED: {"commit", "give_back"},
+                        JobStatus.DONE: {"commit"},
+                        JobStatus.STOPPED: {"commit"},
+                        JobStatus.HELD: {"commit", "give_back"},
+                        JobStatus.FAILED: {"give_back"},
+                        JobStatus.CANCELLED: {"commit", "give_back"}},
+    JobStatus.HELD: {JobStatus.QUEUED: {"release"}, JobStatus.CANCELLED: {"cancel"}},
+    JobStatus.DONE: {JobStatus.QUEUED: {"extend"}},
+    JobStatus.STOPPED: {},
+    JobStatus.CANCELLED: {},
+    JobStatus.FAILED: {JobStatus.QUEUED: {"release"}, JobStatus.CANCELLED: {"cancel"}},
+}
+
+# What a user can do from each status, for the refusal message.
+_USER_HINT = {
+    JobStatus.QUEUED: "hold or cancel it",
+    JobStatus.RUNNING: "hold or cancel it (applied at its worker's next checkpoint)",
+    JobStatus.HELD: "release or cancel it",
+    JobStatus.DONE: "extend it to a later end",
+    JobStatus.STOPPED: None,  # final: the job has its outcome
+    JobStatus.CANCELLED: None,  # final
+    JobStatus.FAILED: "release or cancel it",
 }
 
 # Statuses in which a job still has work a worker could do.
 ACTIVE = {JobStatus.QUEUED, JobStatus.RUNNING}
 
 
-def is_allowed(old, new):
-    """True if the table allows old -> new."""
-    return JobStatus(new) in TRANSITIONS[JobStatus(old)]
+def is_allowed(old, new, op):
+    """True if the table allows old -> new by operation `op`."""
+    return op in TRANSITIONS[JobStatus(old)].get(JobStatus(new), ())
 
 
-def check_transition(job_id, old, new):
-    """Raise TransitionError unless old -> new is allowed."""
+def check_transition(job_id, old, new, op):
+    """Raise TransitionError unless the table allows old -> new by operation `op`."""
     old, new = JobStatus(old), JobStatus(new)
-    if new not in TRANSITIONS[old]:
-        allowed = ", ".join(sorted(s.value for s in TRANSITIONS[old])) or "nothing"
-        raise TransitionError(f"job {job_id} is {old.value} and cannot become {new.value} "
-                              f"(from {old.value} it can become: {allowed}).")
+    if op not in WORKER_OPS | USER_OPS:
+        raise ValueError(f"unknown status operation {op!r}.")
+    if is_allowed(old, new, op):
+        return
+    if op in USER_OPS:
+        hint = _USER_HINT[old]
+        fix = f"you can {hint}" if hint else f"a {old.value} job is final; submit a new one"
+        raise TransitionError(f"job {job_id} is {old.value}, so it cannot be {_past(op)}; "
+                              f"{fix}.")
+    raise TransitionError(f"job {job_id} is {old.value} and cannot become {new.value} "
+                          f"by {op}.")
+
+
+def _past(op):
+    return {"hold": "held", "release": "released", "cancel": "cancelled",
+            "extend": "extended"}[op]

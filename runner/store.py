@@ -211,7 +211,13 @@ def _put(path, data, durable):
 
 
 def _chunk_now(h, key, path, shape, dtype, fill):
-    """A sample chunk as it stands: cached from this store's last write, or read back."""
+    """A sample chunk as it stands: cached from this store's last write, or read back.
+
+    The cache lives in the handles of one fencing token (see
+    :meth:`Store._handles`): while a claim's token is current no other worker
+    can commit to the job, so the chunk this process last wrote under that
+    token is exactly what the disk holds. A new token starts from the disk.
+    """
     cached = h["tail"].get(key)
     if cached is not None and cached[0] == path:
         return cached[1]
@@ -288,6 +294,33 @@ def _plan(h, base, samples, ck):
     return puts, grow, coros, files, dirs
 
 
+def _damaged_metadata(path):
+    """The first zarr.json under a job's folder that is not a readable JSON object, or None."""
+    for root, dirs, names in os.walk(path):
+        dirs.sort()
+        if "zarr.json" in names:
+            meta = os.path.join(root, "zarr.json")
+            try:
+                with open(meta, "rb") as fh:
+                    if not isinstance(json.loads(fh.read()), dict):
+                        return meta
+            except (OSError, ValueError):
+                return meta
+    return None
+
+
+def _store_error(job_id, path, what, err):
+    """A StoreError for a failed open or read: names a damaged metadata file if there is one."""
+    if isinstance(err, StoreError):
+        return err
+    meta = _damaged_metadata(path)
+    if meta is not None:
+        return StoreError(f"job {job_id}: the store's metadata file {meta} is damaged; "
+                          "restore it from a backup, or run `orbitledger verify` to see what "
+                          "else is affected.")
+    return StoreError(f"job {job_id}: {what} could not be read ({type(err).__name__}: {err}).")
+
+
 class Store:
     """Zarr checkpoint store rooted at a folder.
 
@@ -310,7 +343,10 @@ class Store:
         if mode == "r" and not path.exists():
             raise StoreError(f"job {job_id} has no Zarr group at {path}.")
         if mode == "r":
-            return zarr.open_group(str(path), mode="r")
+            try:
+                return zarr.open_group(str(path), mode="r")
+            except Exception as err:  # noqa: BLE001 - zarr raises many types on bad metadata
+                raise _store_error(job_id, path, "the job's group", err) from None
         # Writers reuse their handle: opening a group re-reads its metadata.
         key = int(job_id)
         if key not in self._open:
@@ -359,7 +395,7 @@ class Store:
         for key in (int(job_id), ("async", int(job_id))):
             self._open.pop(key, None)
 
-    def prepare(self, job_id, checkpoint=None):
+    def prepare(self, job_id, checkpoint=None, fence=None):
         """Open a job's arrays and create the next checkpoint's array ahead of time.
 
         ``checkpoint`` is (idx, fence, layout) with the layout from
@@ -369,7 +405,9 @@ class Store:
         is never committed is ignored like any uncommitted one.
         """
         try:
-            h = self._handles(job_id)
+            if checkpoint is not None:
+                fence = checkpoint[1]
+            h = self._handles(job_id, fence)
             if checkpoint is not None:
                 idx, fence, layout = checkpoint
                 name = self._ck_name(idx, fence)
@@ -381,14 +419,29 @@ class Store:
         except OSError as err:
             raise StoreError(f"could not prepare the store of job {job_id}: {err}") from err
 
-    def _handles(self, job_id):
-        """A job's checkpoints group and sample arrays, asynchronous, opened once."""
+    def _handles(self, job_id, fence=None):
+        """A job's checkpoints group and sample arrays, asynchronous, for one fencing token.
+
+        Handles (array shapes, the last chunk written, prepared checkpoint
+        arrays) are kept only while the same token writes: a job that moved
+        to another worker and back has a new token, so everything is read
+        again from the disk. With ``fence=None`` nothing is kept.
+        """
         key = ("async", int(job_id))
-        if key not in self._open:
+        h = self._open.get(key)
+        if h is None or fence is None or h["fence"] != fence:
+            self._open.pop(key, None)
             if not self.job_path(job_id).exists():
                 raise StoreError(f"job {job_id} has no Zarr group at {self.job_path(job_id)}.")
-            self._open[key] = _run(self._open_async(job_id))
-        return self._open[key]
+            try:
+                h = _run(self._open_async(job_id))
+            except Exception as err:  # noqa: BLE001 - zarr raises many types on bad metadata
+                raise _store_error(job_id, self.job_path(job_id), "the sample arrays",
+                                   err) from None
+            h["fence"] = fence
+            if fence is not None:
+                self._open[key] = h
+        return h
 
     async def _open_async(self, job_id):
         from zarr.api import asynchronous as za
@@ -417,31 +470,32 @@ class Store:
         file and folder touched is fsynced (unless ``durable`` is false).
         Returns (SHA-256 of the samples block, SHA-256 of the state).
         """
-        return self._write(job_id, (start, block), (idx, fence, arrays), durable)
+        return self._write(job_id, (start, block), (idx, fence, arrays), durable, fence)
 
     def write_checkpoint(self, job_id, idx, fence, arrays, durable=True):
         """Write a checkpoint's state arrays; returns their SHA-256."""
-        return self._write(job_id, None, (idx, fence, arrays), durable)[1]
+        return self._write(job_id, None, (idx, fence, arrays), durable, fence)[1]
 
-    def write_samples(self, job_id, start, block, durable=True):
+    def write_samples(self, job_id, start, block, durable=True, fence=None):
         """Write a block of samples at rows start..; returns the block's SHA-256.
 
         The arrays are sized for the whole run at creation and grow
         geometrically if a job is extended, so rows beyond the committed
         count may hold fill values or uncommitted data until
         :meth:`trim_samples` cuts them when the job ends; readers use the
-        ledger's committed count.
+        ledger's committed count. ``fence`` is the writer's fencing token
+        (None: a one-off write that keeps nothing cached).
         """
-        return self._write(job_id, (start, block), None, durable)[0]
+        return self._write(job_id, (start, block), None, durable, fence)[0]
 
-    def _write(self, job_id, samples, checkpoint, durable):
+    def _write(self, job_id, samples, checkpoint, durable, fence):
         ck = None
         if checkpoint is not None:
             idx, fence, arrays = checkpoint
             ck = (self._ck_name(idx, fence),) + _packed(arrays)
         h = None
         try:
-            h = self._handles(job_id)
+            h = self._handles(job_id, fence)
             puts, grow, coros, files, dirs = _plan(h, self.job_path(job_id), samples, ck)
             for batch in (grow, coros):
                 if batch:
@@ -474,7 +528,9 @@ class Store:
             raise StoreError(f"checkpoint {idx} of job {job_id} could not be read "
                              f"({type(err).__name__}: {err}).") from None
         except Exception as err:  # noqa: BLE001 - zarr raises codec errors of many types
-            raise StoreError(f"checkpoint {idx} of job {job_id} is damaged "
+            meta = _damaged_metadata(self.job_path(job_id) / "checkpoints" / name)
+            where = f"; its metadata file {meta} is damaged" if meta else ""
+            raise StoreError(f"checkpoint {idx} of job {job_id} is damaged{where} "
                              f"({type(err).__name__}: {err}).") from None
         if expect_sha256 is not None and state_sha256(storable) != expect_sha256:
             raise StoreError(f"checkpoint {idx} of job {job_id} does not match its recorded "
@@ -490,10 +546,10 @@ class Store:
         data = await arr.getitem(slice(None))
         return np.asarray(data).tobytes(), arr.attrs["layout"]
 
-    def trim_samples(self, job_id, n):
+    def trim_samples(self, job_id, n, fence=None):
         """Cut the sample arrays to exactly the n committed rows."""
         try:
-            h = self._handles(job_id)
+            h = self._handles(job_id, fence)
             h["tail"].clear()
             arrs = h["samples"]
             todo = [a for a in arrs.values() if a.shape[0] != n]
@@ -506,17 +562,28 @@ class Store:
 
     def read_samples(self, job_id, n=None, start=0):
         """Committed samples as a dict of arrays (rows start..n)."""
-        s = self._group(job_id, "r")["samples"]
-        stop = s["time"].shape[0] if n is None else n
-        if stop > s["time"].shape[0]:
-            raise StoreError(f"job {job_id} has {s['time'].shape[0]} stored samples, fewer "
-                             f"than the {stop} committed; the store is damaged.")
+        g = self._group(job_id, "r")
         try:
-            return {key: np.asarray(s[key][start:stop]) for key in list(_SERIES) + ["elements"]}
+            s = g["samples"]
+            arrays = {key: s[key] for key in list(_SERIES) + ["elements"]}
+        except Exception as err:  # noqa: BLE001 - zarr raises many types on bad metadata
+            raise _store_error(job_id, self.job_path(job_id), "the sample arrays", err) from None
+        stop = arrays["time"].shape[0] if n is None else n
+        short = [k for k, a in arrays.items() if a.shape[0] < stop]
+        if short:
+            raise StoreError(f"job {job_id} has {arrays[short[0]].shape[0]} stored rows of "
+                             f"samples/{short[0]}, fewer than the {stop} committed; the store "
+                             "is damaged.")
+        try:
+            return {key: np.asarray(a[start:stop]) for key, a in arrays.items()}
         except Exception as err:  # noqa: BLE001 - zarr raises codec errors of many types
-            raise StoreError(f"samples of job {job_id} are damaged and could not be read "
-                             f"({type(err).__name__}: {err}).") from None
+            raise StoreError(f"samples of job {job_id} (rows {start}..{stop - 1}) are damaged "
+                             f"and could not be read ({type(err).__name__}: {err}).") from None
 
     def body_names(self, job_id):
         """Body names (star first) recorded when the job's group was created."""
-        return list(self._group(job_id, "r").attrs["body_names"])
+        try:
+            return list(self._group(job_id, "r").attrs["body_names"])
+        except KeyError:
+            raise StoreError(f"job {job_id}: the store's group has no body names; its "
+                             "metadata is damaged.") from None

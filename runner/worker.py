@@ -113,12 +113,13 @@ class Worker:
                 # one and replay from there, checking every recorded hash.
                 integ, ck, _ = repair_by_replay(self.ledger, claim.job_id, claim)
         except StoreError as err:
-            self.failed = True
-            self.ledger.release(claim, now=self.clock(), status=JobStatus.FAILED,
-                                reason=f"could not load the last checkpoint: {err}")
+            # Store damage is the operator's to mend (restore, or `verify` to
+            # see the extent): hold the job with the reason, never fail it.
+            self.ledger.give_back(claim, now=self.clock(), status=JobStatus.HELD,
+                                  reason=f"could not load the last checkpoint: {err}")
             if claim.segment_id is not None:
                 self.ledger.end_segment(claim.segment_id, None, "load_failed", now=self.clock())
-            return JobStatus.FAILED
+            return JobStatus.HELD
         seg = claim.segment_id
         if seg is None:
             seg = self.ledger.start_segment(claim, integ.step, provenance.collect(),
@@ -130,14 +131,14 @@ class Worker:
             return "fenced"
         except StoreError as err:
             # Nothing beyond the last commit is lost; hold the job with the reason.
-            self.ledger.release(claim, now=self.clock(), status=JobStatus.HELD,
-                                reason=f"checkpoint store write failed: {err}")
+            self.ledger.give_back(claim, now=self.clock(), status=JobStatus.HELD,
+                                  reason=f"checkpoint store failed: {err}")
             self.ledger.end_segment(seg, None, "store_error", now=self.clock())
             return JobStatus.HELD
         except Exception as err:
             self.failed = True
-            self.ledger.release(claim, now=self.clock(), status=JobStatus.FAILED,
-                                reason=f"{type(err).__name__}: {err}")
+            self.ledger.give_back(claim, now=self.clock(), status=JobStatus.FAILED,
+                                  reason=f"{type(err).__name__}: {err}")
             self.ledger.end_segment(seg, None, "failed", now=self.clock())
             raise
         return status
@@ -237,7 +238,7 @@ class Worker:
             if result.status != JobStatus.RUNNING:
                 if result.status in (JobStatus.DONE, JobStatus.STOPPED, JobStatus.CANCELLED):
                     # Finished: leave exactly the committed rows for readers.
-                    self.ledger.store.trim_samples(job_id, n_samples)
+                    self.ledger.store.trim_samples(job_id, n_samples, claim.fence)
                 return result.status
 
 

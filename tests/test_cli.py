@@ -50,7 +50,7 @@ def test_hold_release_cancel(tmp_path):
     assert runner.invoke(app, ["release", "1", "--workspace", str(ws)]).exit_code == 0
     assert runner.invoke(app, ["cancel", "1", "--workspace", str(ws)]).exit_code == 0
     res = runner.invoke(app, ["release", "1", "--workspace", str(ws)])
-    assert res.exit_code == 2 and "cancelled and cannot become queued" in res.stderr
+    assert res.exit_code == 2 and "is cancelled, so it cannot be released" in res.stderr
 
 
 def test_errors_are_one_line(tmp_path):

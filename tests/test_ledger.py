@@ -9,7 +9,7 @@ import pytest
 
 from runner.errors import FencedError, LedgerError, TransitionError
 from runner.ledger import Ledger
-from runner.status import TRANSITIONS, JobStatus, check_transition
+from runner.status import TRANSITIONS, USER_OPS, WORKER_OPS, JobStatus, check_transition
 from runner.worker import Worker
 from helpers import assert_no_double_commit, final_state, samples_bytes, small_spec
 
@@ -99,7 +99,7 @@ class TestLedgerConformance:
         jid = ledger.submit(small_spec())
         assert ledger.hold(jid) == "held"
         assert ledger.claim("w") is None
-        ledger.unhold(jid)
+        ledger.release(jid)
         assert ledger.job(jid)["status"] == "queued"
         claim = ledger.claim("w")
         assert ledger.hold(jid) == "requested"  # running: applied at the next safe point
@@ -108,8 +108,8 @@ class TestLedgerConformance:
         row = ledger.job(jid)
         assert row["status"] == "held" and 0 < row["steps_done"] < row["total_steps"]
         assert ledger.cancel(jid) == "cancelled"
-        with pytest.raises(TransitionError, match="cancelled and cannot become queued"):
-            ledger.unhold(jid)
+        with pytest.raises(TransitionError, match="is cancelled, so it cannot be released"):
+            ledger.release(jid)
 
     def test_extend_is_exact(self, ledger):
         # Run to T1, extend to T2 == a straight run to T2, bit for bit.
@@ -172,13 +172,19 @@ class TestLedgerConformance:
 
 
 def test_transition_table_is_closed_and_checked():
+    ops = sorted(WORKER_OPS | USER_OPS)
     for old, news in TRANSITIONS.items():
         for new in JobStatus:
-            if new in news:
-                check_transition(1, old, new)
-            else:
-                with pytest.raises(TransitionError):
-                    check_transition(1, old, new)
+            for op in ops:
+                if op in news.get(new, ()):
+                    check_transition(1, old, new, op)
+                else:
+                    with pytest.raises(TransitionError):
+                        check_transition(1, old, new, op)
+    # Users never take a running job from its worker, nor re-queue a finished one.
+    for op in USER_OPS:
+        assert not any(op in allowed for allowed in TRANSITIONS[JobStatus.RUNNING].values())
+    assert TRANSITIONS[JobStatus.DONE] == {JobStatus.QUEUED: {"extend"}}
 
 
 def test_samples_are_readable_by_xarray(tmp_path):

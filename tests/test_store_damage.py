@@ -86,7 +86,7 @@ def test_full_disk_holds_the_job_and_loses_nothing(tmp_path, monkeypatch):
     assert "No space left on device" in row["reason"]
     assert row["n_checkpoints"] == 2  # both earlier commits kept
     monkeypatch.setattr(store_mod, "_put", real_put)
-    led.unhold(j)
+    led.release(j)
     Worker(led).run()
     assert led.job(j)["status"] == "done"
     led.close()

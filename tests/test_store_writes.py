@@ -28,7 +28,7 @@ def test_blocks_of_any_size_read_back_exactly(tmp_path, raw):
     store = Store(tmp_path / "s")
     store.create_job(1, BODIES, capacity=100)  # small: the arrays must grow too
     if not raw:
-        store._handles(1)["raw"] = dict.fromkeys(store._handles(1)["raw"])
+        store._handles(1, 1)["raw"] = dict.fromkeys(store._handles(1, 1)["raw"])
     blocks, start = [], 0
     sizes = [1, 5, defaults.SAMPLE_CHUNK - 6, 1, 2 * defaults.SAMPLE_CHUNK + 3, 0, 700, 1]
     for i, n in enumerate(sizes):
@@ -36,16 +36,16 @@ def test_blocks_of_any_size_read_back_exactly(tmp_path, raw):
             # A new process resuming: nothing cached, the partial chunk is read back.
             store = Store(tmp_path / "s")
             if not raw:
-                store._handles(1)["raw"] = dict.fromkeys(store._handles(1)["raw"])
+                store._handles(1, 1)["raw"] = dict.fromkeys(store._handles(1, 1)["raw"])
         b = _block(rng, start, n)
-        store.write_samples(1, start, b)
+        store.write_samples(1, start, b, fence=1)
         blocks.append(b)
         start += n
     want = _expected(blocks)
     got = Store(tmp_path / "s").read_samples(1, n=start)
     for k in want:
         assert got[k].tobytes() == want[k].tobytes(), k
-    store.trim_samples(1, start)
+    store.trim_samples(1, start, fence=1)
     ds = xr.open_zarr(str(tmp_path / "s" / "job-00000001" / "samples"), consolidated=False)
     assert ds.sizes["sample"] == start
     assert ds["elements"].values.tobytes() == want["elements"].tobytes()
