@@ -129,8 +129,7 @@ def work(workspace: WorkspaceOpt = None, db: DbOpt = None,
 
     Exit code 0: nothing left to claim; 3: stopped with work remaining; 1: a worker failed.
     """
-    if workers == 1:
-        stopflag.install()  # before the heavy imports: a stop during start-up is clean
+    stopflag.install()  # before the heavy imports: a stop during start-up is clean
     from .worker import Worker, run_pool, self_command
 
     if order not in ("breadth", "depth"):

@@ -16,9 +16,32 @@ def _handler(signum, _frame):
 
 
 def install():
-    """Route the stop signals to the flag."""
+    """Route the stop signals to the flag, then let through any that arrived blocked.
+
+    A worker started by a pool begins life with the stop signals blocked
+    (see :func:`child_setup`), so one sent before this point waits for the
+    handler instead of killing a half-started process.
+    """
     for sig in STOP_SIGNALS:
         signal.signal(sig, _handler)
+    signal.pthread_sigmask(signal.SIG_UNBLOCK, STOP_SIGNALS)
+
+
+def child_setup():
+    """Run in a pool's worker process between fork and exec (Linux).
+
+    Blocks the stop signals until the new program installs its handlers, and
+    asks the kernel to send SIGTERM if the pool dies, so no worker is ever
+    left running unsupervised.
+    """
+    signal.pthread_sigmask(signal.SIG_BLOCK, STOP_SIGNALS)
+    try:
+        import ctypes
+
+        libc = ctypes.CDLL(None, use_errno=True)
+        libc.prctl(1, int(signal.SIGTERM), 0, 0, 0)  # PR_SET_PDEATHSIG
+    except (OSError, AttributeError):
+        pass  # not Linux: the pool still forwards every signal it receives
 
 
 def requested():

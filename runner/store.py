@@ -449,11 +449,16 @@ class Store:
 
         root = LocalStore(str(self.job_path(job_id)))
         names = list(_SERIES) + ["elements"]
+        # The job's and the samples' group metadata are read too, so a damaged
+        # one stops the writer here (with the file named) rather than later
+        # in a reader's hands.
         opened = await asyncio.gather(
             za.open_group(store=root, path="checkpoints", mode="r+"),
+            za.open_group(store=root, mode="r"),
+            za.open_group(store=root, path="samples", mode="r"),
             *[za.open_array(store=root, path=f"samples/{k}", mode="r+", config=_WRITE_ALL)
               for k in names])
-        samples = dict(zip(names, opened[1:]))
+        samples = dict(zip(names, opened[3:]))
         return {"checkpoints": opened[0], "samples": samples,
                 "raw": {k: _raw_chunks(a) for k, a in samples.items()},
                 "tail": {}, "ready": {}}

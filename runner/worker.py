@@ -288,18 +288,31 @@ def _over_budget(plan, max_e, max_l):
 def run_pool(argv_one, n_workers):
     """Run n_workers worker processes (each `argv_one`) and forward stop signals.
 
-    Returns the most telling exit code: EXIT_FAILED if any failed, else
-    EXIT_WORK_REMAINS if any says work remains, else 0.
+    The pool forwards every stop signal to every worker at any moment of its
+    life, including one that arrived while the pool itself was starting
+    (recorded by :mod:`stopflag`, installed first thing by `work`). Workers
+    start with the stop signals blocked until their handlers are in place
+    and get SIGTERM if the pool dies. Returns the most telling exit code:
+    EXIT_FAILED if any failed, else EXIT_WORK_REMAINS if any says work
+    remains, else 0.
     """
-    procs = [subprocess.Popen(argv_one) for _ in range(n_workers)]
+    procs = []
 
-    def forward(signum, _frame):
-        for p in procs:
+    def forward(signum, frame):
+        stopflag._handler(signum, frame)
+        for p in list(procs):
             if p.poll() is None:
                 p.send_signal(signum)
 
     old = {sig: signal.signal(sig, forward) for sig in STOP_SIGNALS}
     try:
+        for _ in range(n_workers):
+            procs.append(subprocess.Popen(argv_one, preexec_fn=stopflag.child_setup))
+            pending = stopflag.requested()
+            if pending is not None:
+                # Asked to stop before or while this worker started: it gets
+                # the request too (blocked until its handler is in place).
+                procs[-1].send_signal(signal.Signals[pending])
         codes = [p.wait() for p in procs]
     finally:
         for sig, h in old.items():

@@ -103,3 +103,53 @@ def ledger_url(request):
         return lambda tmp_path: f"sqlite:///{tmp_path}/ledger.sqlite"
     admin = request.getfixturevalue("pg_server")
     return lambda tmp_path: new_pg_database(admin)
+
+
+# -- every ledger a test opened is verified when the test ends -------------------
+# A silent loss (samples or checkpoints that no longer match the hashes the
+# ledger recorded) fails the test that caused it, whatever that test checks.
+# Tests that damage a store on purpose are marked `damages_store`.
+@pytest.fixture(autouse=True)
+def verify_every_job(request, monkeypatch):
+    from runner.ledger import Ledger
+
+    opened = []
+    init = Ledger.__init__
+
+    def recording_init(self, url, store_root, *args, **kwargs):
+        init(self, url, store_root, *args, **kwargs)
+        if (url, str(store_root)) not in opened:
+            opened.append((url, str(store_root)))
+
+    monkeypatch.setattr(Ledger, "__init__", recording_init)
+    yield
+    monkeypatch.setattr(Ledger, "__init__", init)
+    if request.node.get_closest_marker("damages_store") or _failed(request):
+        return
+    from runner.audit import verify
+
+    bad = []
+    for url, root in opened:
+        try:
+            led = Ledger(url, root)
+        except Exception:  # noqa: BLE001 - the ledger was removed by the test itself
+            continue
+        with led:
+            for row in led.jobs():
+                rep = verify(led, row["id"])
+                if not rep.ok:
+                    bad.append(f"job {row['id']}: checkpoint {rep.first_bad}: {rep.problem}")
+    assert not bad, "verify failed after the test: " + "; ".join(bad)
+
+
+def _failed(request):
+    rep = getattr(request.node, "rep_call", None)
+    return rep is not None and rep.failed
+
+
+@pytest.hookimpl(wrapper=True, tryfirst=True)
+def pytest_runtest_makereport(item, call):
+    rep = yield
+    if rep.when == "call":
+        item.rep_call = rep
+    return rep
