@@ -16,7 +16,9 @@ from .stops import KIND_BY_CODE, StopConditions, StopKind
 # Format tag of state_arrays(). Bump it when the layout changes or when the
 # kernels' arithmetic changes (a state can only be continued bit for bit by
 # the arithmetic that wrote it). 2: g' - 1 of the drift from f g' - f' g = 1.
-STATE_FORMAT = 2
+# 3: that identity only where |f| >= 1/2 (the direct form elsewhere); Kepler
+# solver kept inside the root's bracket and stopped at its rounding noise.
+STATE_FORMAT = 3
 
 
 @dataclass(frozen=True)

@@ -27,6 +27,14 @@ from .constants import TWO_PI
 
 # Arguments of the Stumpff series are quartered until |x| is at most this.
 _STUMPFF_REDUCED = 0.1
+# Most quarterings of a Stumpff argument (4^64 ~ 3e38): no loop runs unbounded.
+_STUMPFF_MAX_QUARTERS = 64
+# |f| (Lagrange coefficient) above which g' comes from f g' - f' g = 1; below
+# it the identity's division by f would amplify rounding, and g' = 1 - mu G2 / r.
+_F_IDENTITY = 0.5
+# A residual of Kepler's equation below this many times the sum of its terms'
+# magnitudes is rounding noise (4 units of 2^-52).
+_T_NOISE = 4.0 * 2.0 ** -52
 # Halley iterations tried before the bracketed fallback.
 _HALLEY_MAX = 12
 # Relative change in s that counts as converged (bracketed fallback).
@@ -57,9 +65,13 @@ def stumpff(x):
     c3(4x) = (c2 + c0 c3) / 4 (Danby 1988, eq. 6.9.29) undo the reduction.
     """
     n = 0
-    while x > _STUMPFF_REDUCED or x < -_STUMPFF_REDUCED:
+    # Bounded: a non-finite or absurd argument (|x| > 0.1 * 4^_STUMPFF_MAX_QUARTERS)
+    # leaves the loop with |x| still large, and the results are not finite.
+    while (x > _STUMPFF_REDUCED or x < -_STUMPFF_REDUCED) and n < _STUMPFF_MAX_QUARTERS:
         x = x * 0.25
         n += 1
+    if x > _STUMPFF_REDUCED or x < -_STUMPFF_REDUCED:
+        return np.nan, np.nan, np.nan, np.nan
     c3 = (1.0 - x * _R20 * (1.0 - x * _R42 * (1.0 - x * _R72 * (1.0 - x * _R110
           * (1.0 - x * _R156 * (1.0 - x * _R210 * (1.0 - x * _R272))))))) * _R6
     c2 = (1.0 - x * _R12 * (1.0 - x * _R30 * (1.0 - x * _R56 * (1.0 - x * _R90
@@ -76,15 +88,19 @@ def stumpff(x):
 
 @njit(cache=True, error_model="numpy", inline="always")
 def _kepler_eq(s, beta, r0, eta0, zeta0, mu):
-    """t(s), r(s) = t'(s), r'(s) and G0, G1, G2 of the universal Kepler equation."""
+    """t(s), r(s) = t'(s), r'(s), G0, G1, G2 of the universal Kepler equation, and the
+    sum of the magnitudes of t's terms (the scale of its rounding)."""
     c0, c1, c2, c3 = stumpff(beta * s * s)
     g1 = s * c1
     g2 = s * s * c2
     g3 = s * s * s * c3
-    t = r0 * s + eta0 * g2 + zeta0 * g3
+    a = r0 * s
+    b = eta0 * g2
+    c = zeta0 * g3
+    t = a + b + c
     r = r0 * c0 + eta0 * g1 + mu * g2
     rp = eta0 * c0 + zeta0 * g1
-    return t, r, rp, c0, g1, g2
+    return t, r, rp, c0, g1, g2, abs(a) + abs(b) + abs(c)
 
 
 @njit(cache=True, error_model="numpy", inline="always")
@@ -106,17 +122,42 @@ def solve_universal(r0, eta0, beta, mu, dt):
             s = s_max
         elif s < -s_max:
             s = -s_max
+    # t(s) increases with s (t' = r > 0) and t(0) = 0; on a bound orbit
+    # t(+-s_max) = +-one period, beyond the reduced |dt|. So the root lies in
+    # [lo, hi], which every residual narrows; an iterate that leaves it (a step
+    # taken where r is far from its value near the root) goes to the fallback
+    # instead of crawling to a false convergence.
+    if dt >= 0.0:
+        lo = 0.0
+        hi = TWO_PI / np.sqrt(beta) if beta > 0.0 else np.inf
+    else:
+        lo = -TWO_PI / np.sqrt(beta) if beta > 0.0 else -np.inf
+        hi = 0.0
+    if not (lo <= s <= hi):
+        # The cubic guess can take the wrong sign for a long hyperbolic drift;
+        # dt / r0 has the right one.
+        s = min(max(dt * ir0, lo), hi)
     ds_prev = np.inf
     for it in range(_HALLEY_MAX):
-        t, r, rp, g0, g1, g2 = _kepler_eq(s, beta, r0, eta0, zeta0, mu)
+        t, r, rp, g0, g1, g2, t_scale = _kepler_eq(s, beta, r0, eta0, zeta0, mu)
         f = t - dt
-        if f == 0.0:
+        if not (abs(f) < np.inf):
+            break  # overflow (a far hyperbolic guess) or NaN: the fallback copes
+        if f == 0.0 or abs(f) <= _T_NOISE * t_scale:
+            # The residual is rounding noise: s is as good as this equation can
+            # give (a timing error of a few ulps of t), and a step computed from
+            # noise would only move it away (by noise / r: far, where r is
+            # small, as at the pericentre of an eccentric orbit).
             return s, r, g0, g1, g2, it + 1, False
+        if f > 0.0:
+            hi = s
+        else:
+            lo = s
         ds = -f / r
         ds = -f / (r + 0.5 * ds * rp)
         s_new = s + ds
-        if not (s_new == s_new) or not (r > 0.0):
-            break
+        if not (lo <= s_new <= hi) or not (r > 0.0):
+            break  # also a NaN: every comparison with it is false
         if abs(ds) <= _S_SHIFT * abs(s_new) and abs(ds) <= 1e-3 * abs(ds_prev):
             # Halley converges cubically: once a correction is this small and
             # at least 1000x smaller than the one before (the cubic regime is
@@ -139,14 +180,14 @@ def solve_universal(r0, eta0, beta, mu, dt):
     if hi == 0.0:
         return 0.0, r0, 1.0, 0.0, 0.0, _HALLEY_MAX, True
     for _ in range(2000):
-        t, r, rp, g0, g1, g2 = _kepler_eq(hi, beta, r0, eta0, zeta0, mu)
+        t, r, rp, g0, g1, g2, _ = _kepler_eq(hi, beta, r0, eta0, zeta0, mu)
         if (t - dt) * sign >= 0.0:
             break
         lo = hi
         hi = 2.0 * hi
     s = 0.5 * (lo + hi)
     for _ in range(400):
-        t, r, rp, g0, g1, g2 = _kepler_eq(s, beta, r0, eta0, zeta0, mu)
+        t, r, rp, g0, g1, g2, _ = _kepler_eq(s, beta, r0, eta0, zeta0, mu)
         f = t - dt
         if f * sign > 0.0:
             hi = s
@@ -200,8 +241,16 @@ def drift_row(x, v, i, mu, dt):
     # G-functions has a small bias; taken independently it makes f g' - f' g
     # differ from 1 by the same sign every step (3e-19 per drift measured), and
     # angular momentum then drifts linearly. Closing the identity leaves only
-    # unbiased rounding (tests/benchmarks/bench_drift_bias.py).
-    gdm1 = (fd * g - fm1) / (1.0 + fm1)
+    # unbiased rounding (tests/benchmarks/bench_drift_bias.py). The identity
+    # divides by f, which vanishes where a drift sweeps about 90 or 270
+    # degrees of true anomaly: there (|f| < _F_IDENTITY, only in drifts of a
+    # sizeable part of an orbit) the direct form -mu G2 / r is used, well
+    # conditioned for every f.
+    f = 1.0 + fm1
+    if f >= _F_IDENTITY or f <= -_F_IDENTITY:
+        gdm1 = (fd * g - fm1) / f
+    else:
+        gdm1 = -mu * g2 / r
     x[i, 0] = x0 + (fm1 * x0 + g * v0)
     x[i, 1] = x1 + (fm1 * x1 + g * v1)
     x[i, 2] = x2 + (fm1 * x2 + g * v2)

@@ -2,6 +2,8 @@
 
 import os
 
+import pytest
+
 from typer.testing import CliRunner
 
 from runner.audit import replay, verify
@@ -30,6 +32,7 @@ def test_intact_job_verifies_and_replays(tmp_path):
     led.close()
 
 
+@pytest.mark.damages_store
 def test_flipped_bit_is_named_by_verify(tmp_path):
     ws, led, j = _job(tmp_path)
     ck = led.checkpoints(j)[6]
@@ -45,6 +48,7 @@ def test_flipped_bit_is_named_by_verify(tmp_path):
     led.close()
 
 
+@pytest.mark.damages_store
 def test_truncated_sample_chunk_is_named(tmp_path):
     ws, led, j = _job(tmp_path)
     d = led.store.job_path(j) / "samples" / "energy_error" / "c"
@@ -56,6 +60,7 @@ def test_truncated_sample_chunk_is_named(tmp_path):
     led.close()
 
 
+@pytest.mark.damages_store
 def test_tampered_chain_is_named(tmp_path):
     ws, led, j = _job(tmp_path)
     from runner.db import checkpoints

@@ -23,7 +23,8 @@ static int n;
 
 static void stumpff(double x, double *c0, double *c1, double *c2, double *c3) {
     int k = 0;
-    while (x > 0.1 || x < -0.1) { x *= 0.25; k++; }
+    while ((x > 0.1 || x < -0.1) && k < 64) { x *= 0.25; k++; }
+    if (x > 0.1 || x < -0.1) { *c0 = *c1 = *c2 = *c3 = NAN; return; }
     double s3 = (1.0 - x * (1.0/20) * (1.0 - x * (1.0/42) * (1.0 - x * (1.0/72) * (1.0 - x * (1.0/110)
                  * (1.0 - x * (1.0/156) * (1.0 - x * (1.0/210) * (1.0 - x * (1.0/272)))))))) * (1.0/6);
     double s2 = (1.0 - x * (1.0/12) * (1.0 - x * (1.0/30) * (1.0 - x * (1.0/56) * (1.0 - x * (1.0/90)
@@ -50,17 +51,25 @@ static void drift1(int i, double dt) {
     double s = dt * ir0 * (1.0 + dt * ir0 * ir0 * (-0.5 * eta0 + dt * ir0 * ir0
                                                    * (0.5 * eta0 * eta0 * ir0 - zeta0 * (1.0 / 6.0))));
     if (beta > 0.0) { double smax = TWO_PI / sqrt(beta); if (s > smax) s = smax; if (s < -smax) s = -smax; }
+    double lo, hi;  /* the root's bracket, as in kepler.py */
+    if (dt >= 0.0) { lo = 0.0; hi = beta > 0.0 ? TWO_PI / sqrt(beta) : INFINITY; }
+    else { lo = beta > 0.0 ? -TWO_PI / sqrt(beta) : -INFINITY; hi = 0.0; }
+    if (!(lo <= s && s <= hi)) { s = dt * ir0; if (s < lo) s = lo; if (s > hi) s = hi; }
     double c0, c1, c2, c3, g0 = 1, g1 = 0, g2 = 0, r = r0, dsp = INFINITY;
     int ok = 0;
     for (int it = 0; it < 12; it++) {
         stumpff(beta * s * s, &c0, &c1, &c2, &c3);
         g1 = s * c1; g2 = s * s * c2; double g3 = s * s * s * c3; g0 = c0;
-        double t = r0 * s + eta0 * g2 + zeta0 * g3;
+        double ta = r0 * s, tb = eta0 * g2, tc = zeta0 * g3;
+        double t = ta + tb + tc;
         r = r0 * c0 + eta0 * g1 + m * g2;
         double rp = eta0 * c0 + zeta0 * g1, f = t - dt;
-        if (f == 0.0) { ok = 1; break; }
+        if (!(fabs(f) < INFINITY)) break;
+        if (f == 0.0 || fabs(f) <= 4.0 * 0x1p-52 * (fabs(ta) + fabs(tb) + fabs(tc))) { ok = 1; break; }
+        if (f > 0.0) hi = s; else lo = s;
         double ds = -f / r; ds = -f / (r + 0.5 * ds * rp);
         double sn = s + ds;
+        if (!(lo <= sn && sn <= hi) || !(r > 0.0)) break;
         if (fabs(ds) <= 1e-7 * fabs(sn) && fabs(ds) <= 1e-3 * fabs(dsp)) {
             double hh = 0.5 * ds * ds;
             double n0 = g0 - beta * (g1 * ds + g0 * hh), n1 = g1 + g0 * ds - beta * g1 * hh;
@@ -71,7 +80,8 @@ static void drift1(int i, double dt) {
     }
     if (!ok) { fprintf(stderr, "no convergence\n"); exit(1); }
     double fm1 = -m * g2 / r0, g = r0 * g1 + eta0 * g2, fd = -m * g1 / (r0 * r);
-    double gdm1 = (fd * g - fm1) / (1.0 + fm1);  /* f g' - f' g = 1, as in kepler.py */
+    double f1 = 1.0 + fm1;  /* g' - 1 as in kepler.py: f g' - f' g = 1 unless |f| < 0.5 */
+    double gdm1 = (f1 >= 0.5 || f1 <= -0.5) ? (fd * g - fm1) / f1 : -m * g2 / r;
     double x0 = x[0], x1 = x[1], x2 = x[2];
     x[0] = x0 + (fm1 * x0 + g * v[0]); x[1] = x1 + (fm1 * x1 + g * v[1]); x[2] = x2 + (fm1 * x2 + g * v[2]);
     v[0] = v[0] + (fd * x0 + gdm1 * v[0]); v[1] = v[1] + (fd * x1 + gdm1 * v[1]); v[2] = v[2] + (fd * x2 + gdm1 * v[2]);
