@@ -1,4 +1,5 @@
-"""Bit-for-bit determinism: compiled vs plain Python, split runs, output cadence."""
+"""Reproducibility tests (the code compared with itself, not correctness): bit-for-bit
+determinism of compiled vs plain Python, split runs and output cadence."""
 
 import json
 import os

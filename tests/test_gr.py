@@ -47,7 +47,10 @@ def test_mercury_perihelion_advance_42_98_arcsec_per_century():
                              [standish_elements("Mercury")])
     rate = perihelion_rate(s, 0.5, years=200)
     per_century = rate * 36525.0 / ARCSEC
-    assert per_century == pytest.approx(42.98, rel=0.01)
+    # 0.05" is about the rounding of the published value and the difference
+    # between the Sun-Mercury two-body problem and the full fit (42.981"
+    # measured); a 1% tolerance would hide a regression of 0.4".
+    assert per_century == pytest.approx(42.98, abs=0.05)
 
 
 def test_gr_off_has_no_advance():
