@@ -1,5 +1,5 @@
 """Reproducibility test (not correctness): the numba kernel against a plain C implementation
-of the same map, bit for bit."""
+of the same map, bit for bit.
 
 tests/benchmarks/wh_ref.c is written in C for the benchmark and compiled by
 gcc -O2 -ffp-contract=off. Identical bits show that the compiled kernel has
