@@ -367,17 +367,13 @@ def compare_cmd(job_a: JobArg, job_b: Annotated[int, typer.Argument(help="Other 
     from rich.table import Table
 
     from . import plots
-    from .compare import compare_jobs, element_ranges
+    from .compare import compare_jobs, describe_divergence, element_ranges
 
     with open_ledger(workspace, db) as ledger:
         t, d, fit = compare_jobs(ledger, job_a, job_b)
         ra, rb = element_ranges(ledger, job_a), element_ranges(ledger, job_b)
         names = ledger.store.body_names(job_a)[1:]
-    if fit["kind"] == "exponential":
-        out.print(f"exponential divergence: Lyapunov time {fit['lyapunov_time']:.4g} ± "
-                  f"{fit['lyapunov_time_err']:.2g} yr (fitted before saturation)")
-    else:
-        out.print(f"linear divergence (distance ~ t^{fit['power']:.2f}): no sign of chaos here")
+    out.print(describe_divergence(fit), markup=False, highlight=False)
     tab = Table(title=f"Element ranges: job {job_a} | job {job_b}", header_style="bold")
     for col in ("body", "a (au)", "e", "i (deg)"):
         tab.add_column(col)

@@ -1,4 +1,4 @@
-"""Comparisons of runs: the reversibility residual of a backward run."""
+"""Comparisons of runs: the reversibility residual of a backward run, the divergence of two runs."""
 
 import numpy as np
 
@@ -35,27 +35,33 @@ def reversibility(ledger, backward_id):
 
 # -- divergence of two runs and Lyapunov times ---------------------------------
 
-def shadow_lyapunov(step, x0, d0, n, distance, towards, discard=50):
-    """Largest Lyapunov exponent per step by a renormalised shadow trajectory.
+# Largest power of t with which two runs may separate and still count as
+# regular: quasi-periodic motion separates at most linearly in time (phase
+# drift; common practice, no source), so anything steeper is not regular.
+POWER_REGULAR_MAX = 1.5
 
-    (Benettin, Galgani, Giorgilli & Strelcyn 1980.) ``step(x)`` advances a
-    state one step; ``distance(a, b)`` measures separation; ``towards(a, b, f)``
-    returns the point a + f (b - a). The shadow starts d0 away and is pulled
-    back to distance d0 along the separation after every step. The first
-    `discard` steps, while the separation turns towards the most unstable
-    direction, are left out. Returns (lambda, standard error of the mean of
-    the per-step log growths).
-    """
-    x = np.asarray(x0, dtype=float)
-    y = towards(x, x + np.r_[d0, np.zeros(len(x) - 1)], 1.0)
-    logs = np.empty(n)
-    for k in range(n):
-        x, y = step(x), step(y)
-        d = distance(x, y)
-        logs[k] = np.log(d / d0)
-        y = towards(x, y, d0 / d)
-    logs = logs[discard:]
-    return float(logs.mean()), float(logs.std(ddof=1) / np.sqrt(len(logs)))
+
+def describe_divergence(fit):
+    """Two plain sentences on a divergence: its kind, and the Lyapunov time if known."""
+    if fit["kind"] == "regular":
+        kind = (f"regular: the runs separate as t^{fit['power']:.2f} (at most linearly), "
+                "no sign of chaos over this span")
+    else:
+        kind = (f"chaotic: the runs separate faster than linearly (t^{fit['power']:.2f} "
+                "before saturation)")
+    if fit.get("lyapunov_time") is None:
+        if fit.get("exponent_per_yr") is None:
+            return kind + "."
+        return kind + ("; renormalised shadow estimate: no positive exponent over "
+                       f"{fit['lyapunov_span_yr']:.4g} yr.")
+    text = kind + (f"; Lyapunov time {fit['lyapunov_time']:.4g} ± "
+                   f"{fit['lyapunov_time_err']:.2g} yr (renormalised shadow over the first "
+                   f"{fit['lyapunov_span_yr']:.4g} yr, before the runs saturate; error from the "
+                   "spread over 10 windows)")
+    if fit.get("lyapunov_time_full"):
+        text += (f"; over the whole common span of {fit['lyapunov_span_yr_full']:.4g} yr "
+                 f"{fit['lyapunov_time_full']:.4g} ± {fit['lyapunov_time_err_full']:.2g} yr")
+    return text + "."
 
 
 def states_from_samples(samples, gm):
@@ -88,42 +94,47 @@ def phase_distance(xa, va, xb, vb):
 
 
 def classify_divergence(t, d, saturation=0.1):
-    """Linear (power law) or exponential growth of d(t), with a Lyapunov time if exponential.
+    """Regular or chaotic growth of the separation d(t) of two runs.
 
-    Fits ln d = a + b ln t (power law; regular motion gives b near 1) and
-    ln d = a + lambda t (exponential) on the stretch before d reaches
-    `saturation` (the separation of unrelated orbits); the model with the
-    smaller residual is chosen. Returns a dict with "kind", "power",
-    "lyapunov_time" and "lyapunov_time_err" (years if t is in years).
+    Fits ln d = a + p ln t (power law) and ln d = a + k t (exponential) on the
+    stretch before d reaches `saturation` (the separation of unrelated
+    orbits). Regular only if the power law fits at least as well AND p is at
+    most POWER_REGULAR_MAX; super-linear or exponential growth is chaotic.
+    Returns a dict with "kind" ("regular" or "chaotic"), "power", "samples"
+    (the stretch fitted) and "efold_time" (1/k of the exponential fit, in the
+    unit of t; a description of this curve, not a Lyapunov time: see
+    :mod:`runner.lyapunov`).
     """
     t = np.asarray(t, dtype=float)
     d = np.asarray(d, dtype=float)
     keep = (t > 0) & (d > 0) & np.isfinite(d)
     t, d = t[keep], d[keep]
-    if d.max() >= saturation:
+    saturated = bool(d.max() >= saturation)
+    if saturated:
         stop = int(np.argmax(d >= saturation))
         t, d = t[:max(stop, 8)], d[:max(stop, 8)]
     if len(t) < 8:
         raise LedgerError("too few common samples with a non-zero separation to classify.")
     y = np.log(d)
-    lt = np.log(t)
-    pw, pw_res = np.polyfit(lt, y, 1, full=True)[:2]
+    pw, pw_res = np.polyfit(np.log(t), y, 1, full=True)[:2]
     ex, ex_res = np.polyfit(t, y, 1, full=True)[:2]
     pw_res = float(pw_res[0]) if len(pw_res) else 0.0
     ex_res = float(ex_res[0]) if len(ex_res) else 0.0
-    out = {"power": float(pw[0]), "kind": "linear" if pw_res <= ex_res else "exponential",
-           "lyapunov_time": None, "lyapunov_time_err": None, "samples": len(t)}
-    if out["kind"] == "exponential":
-        lam = float(ex[0])
-        resid = y - np.polyval(ex, t)
-        se = np.sqrt(float(resid @ resid) / (len(t) - 2) / float(((t - t.mean()) ** 2).sum()))
-        out["lyapunov_time"] = 1.0 / lam
-        out["lyapunov_time_err"] = se / lam**2
-    return out
+    power = float(pw[0])
+    regular = pw_res <= ex_res and power <= POWER_REGULAR_MAX
+    return {"power": power, "kind": "regular" if regular else "chaotic",
+            "samples": len(t), "window": float(t[-1]), "saturated": saturated,
+            "efold_time": 1.0 / ex[0] if ex[0] > 0 else None,
+            "lyapunov_time": None, "lyapunov_time_err": None}
 
 
-def compare_jobs(ledger, a_id, b_id):
-    """Divergence of two jobs of the same system at their common output times."""
+def compare_jobs(ledger, a_id, b_id, lyapunov=True):
+    """Divergence of two jobs of the same system at their common output times.
+
+    Returns (t in years, scaled distance, dict from :func:`classify_divergence`
+    with the renormalised shadow estimate of job a over the common span added
+    unless ``lyapunov`` is false).
+    """
     ra, rb = ledger.job(a_id), ledger.job(b_id)
     if ra["n_bodies"] != rb["n_bodies"]:
         raise LedgerError(f"jobs {a_id} and {b_id} are not of the same system "
@@ -141,7 +152,40 @@ def compare_jobs(ledger, a_id, b_id):
     xb, vb = states_from_samples(pick(sb, ib), gm)
     t = np.abs(common - common[0]) / 365.25
     d = phase_distance(xa, va, xb, vb)
-    return t, d, classify_divergence(t, d)
+    fit = classify_divergence(t, d)
+    if lyapunov:
+        fit.update(_shadow_estimates(ledger, a_id, ra, fit, abs(common[-1] - common[0])))
+    return t, d, fit
+
+
+def _shadow_estimates(ledger, job_id, row, fit, common_days):
+    """The Lyapunov time by the renormalised shadow of one job (Benettin et al. 1980).
+
+    Not a fit of the two-run curve, which mixes the early, linearly growing
+    stretch in and whose formal error ignores the estimate's spread. Taken
+    over the stretch the two runs share before they saturate (the stretch
+    the divergence describes) and, when they saturate, over their whole
+    common span too (the exponent of a system heading for instability
+    grows). At least 200 renormalisations per stretch, at most one per output.
+    """
+    from .lyapunov import job_lyapunov
+
+    dt = abs(row["dt"])
+    done = int(row["steps_done"])
+    out = {}
+    spans = [("", fit["window"] * 365.25)]
+    if fit["saturated"]:
+        spans.append(("_full", common_days))
+    for suffix, days in spans:
+        steps = min(int(round(days / dt)), done)
+        every = max(1, min(int(row["output_steps"]), steps // 200))
+        est = job_lyapunov(ledger, job_id, 0, span_steps=steps, every=every)
+        out.update({f"lyapunov_time{suffix}": est["lyapunov_time_yr"],
+                    f"lyapunov_time_err{suffix}": est["lyapunov_time_err_yr"],
+                    f"exponent_per_yr{suffix}": est["exponent_per_yr"],
+                    f"exponent_err_per_yr{suffix}": est["exponent_err_per_yr"],
+                    f"lyapunov_span_yr{suffix}": est["span_yr"]})
+    return out
 
 
 def element_ranges(ledger, job_id):

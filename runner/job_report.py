@@ -51,13 +51,10 @@ def job_report(ledger, job_id, compare_with=None):
                              f"{plots.png_data_uri(plots.elements_figure(samples, names[1:], title))}'>"),
     ]
     if compare_with is not None:
-        from .compare import compare_jobs
+        from .compare import compare_jobs, describe_divergence
 
         t, d, fit = compare_jobs(ledger, job_id, compare_with)
-        text = (f"{fit['kind']} growth" + (f", Lyapunov time {fit['lyapunov_time']:.4g} ± "
-                                           f"{fit['lyapunov_time_err']:.2g} yr"
-                                           if fit["lyapunov_time"] else
-                                           f", power {fit['power']:.2f}"))
+        text = describe_divergence(fit)
         fig = plots.divergence_figure(t, d, fit, f"jobs {job_id} and {compare_with}")
         sections.append((f"Divergence from job {compare_with}",
                          f"<p>{text}</p><img alt='divergence' src='{plots.png_data_uri(fig)}'>"))

@@ -124,12 +124,14 @@ def divergence_figure(t, d, fit, title):
     fig, ax = plt.subplots(figsize=(7, 4.2), dpi=110)
     ax.semilogy(t, d, lw=1, label="scaled phase-space distance")
     if fit.get("lyapunov_time"):
+        # The renormalised estimate's slope, drawn through the end of the
+        # stretch before saturation (not fitted to this curve).
         n = fit["samples"]
         tt = np.asarray(t[:n])
         lam = 1.0 / fit["lyapunov_time"]
-        c = np.exp(np.mean(np.log(np.maximum(d[:n], 1e-300)) - lam * tt))
+        c = max(float(d[n - 1]), 1e-300) * np.exp(-lam * tt[-1])
         ax.semilogy(tt, c * np.exp(lam * tt), "--",
-                    label=f"exp(t / {fit['lyapunov_time']:.3g} yr)")
+                    label=f"exp(t / {fit['lyapunov_time']:.3g} yr), renormalised shadow")
     ax.set_xlabel("time (yr)")
     ax.set_ylabel("distance")
     ax.set_title(title + f" ({fit['kind']} growth)")
