@@ -10,7 +10,8 @@ Statistics:
   via scipy.stats.binomtest(k, n).proportion_ci(method="wilson");
 - survival curve by Kaplan-Meier (Kaplan & Meier 1958) with unfinished
   members right-censored, via scipy.stats.ecdf on CensoredData, with its
-  pointwise confidence band (Greenwood's formula, scipy's default);
+  pointwise confidence band (Greenwood's formula, scipy's default),
+  undefined (NaN) where the curve has reached 0;
 - median time to instability: the first time the survival curve falls to
   0.5 or below, when it does.
 """
@@ -38,7 +39,7 @@ class Summary:
     events: np.ndarray         # True where the member went unstable
     km_t: np.ndarray           # Kaplan-Meier step times, years
     km_s: np.ndarray           # survival probability just after each time
-    km_lo: np.ndarray
+    km_lo: np.ndarray          # pointwise confidence band; NaN where undefined (S = 0)
     km_hi: np.ndarray
     median: float | None       # median time to instability, years
     rows: list
@@ -71,9 +72,12 @@ def kaplan_meier(times, events, confidence=0.95):
     q = np.asarray(sf.quantiles)
     # scipy lists censoring times too; the curve only steps at event times.
     keep = np.isin(q, np.unique(times[events]))
+    # Where the curve has reached 0, Greenwood's variance is 0/0 and scipy
+    # gives NaN: the band is undefined there and stays NaN (plots leave it
+    # out, tables print a dash); it is never filled with 0 or 1.
     return (q[keep], np.asarray(sf.probabilities)[keep],
-            np.nan_to_num(np.asarray(ci.low.probabilities)[keep], nan=0.0),
-            np.nan_to_num(np.asarray(ci.high.probabilities)[keep], nan=1.0))
+            np.asarray(ci.low.probabilities, dtype=float)[keep],
+            np.asarray(ci.high.probabilities, dtype=float)[keep])
 
 
 def wilson(k, n, confidence=0.95):

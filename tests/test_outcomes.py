@@ -61,3 +61,13 @@ def test_summary_treats_unfinished_members_as_censored():
     np.testing.assert_allclose(s.km_s, [0.8, 0.6])
     assert s.median is None
     assert s.ci == wilson(2, 5)
+
+
+def test_band_is_undefined_where_survival_reaches_zero():
+    # Every member unstable: S falls to 0 at the last time. Greenwood's
+    # variance (Kaplan & Meier 1958; Greenwood 1926) is 0/0 there, so the
+    # band is undefined (NaN), never a filled-in 1.0.
+    km_t, km_s, lo, hi = kaplan_meier([1.0, 2.0, 3.0, 5.0], [True, True, True, True])
+    np.testing.assert_allclose(km_s, [0.75, 0.5, 0.25, 0.0])
+    assert np.isnan(lo[-1]) and np.isnan(hi[-1])
+    assert np.all(np.isfinite(hi[:-1])) and np.all(np.isfinite(lo[:-1]))
