@@ -9,7 +9,7 @@ from numba import njit
 
 from .base import Integrator
 from .nbody import accelerations
-from .stops import check_stops
+from .stops import NUMERICAL_FAILURE_CODE, check_stops, first_broken, is_broken
 
 
 @njit(cache=True, error_model="numpy")
@@ -35,6 +35,8 @@ def leapfrog_steps(x, v, gm, dt, n_steps, pending, pairs, params, mu, acc, xj, v
             v[i, 0] += dt * acc[i, 0]
             v[i, 1] += dt * acc[i, 1]
             v[i, 2] += dt * acc[i, 2]
+        if is_broken(v[n - 1, 0]):
+            return k + 1, pending, NUMERICAL_FAILURE_CODE, first_broken(x, v), -1
         if check:
             # Stop checks want Jacobi two-body states for eccentricity/unbound.
             for i in range(n):

@@ -22,11 +22,36 @@ class StopKind(str, Enum):
     EJECTION = "ejection"
     STAR_COLLISION = "star_collision"
     ECCENTRICITY = "eccentricity"
+    # Not a physical outcome: the state stopped being finite numbers (e.g. two
+    # bodies at the same place). Always checked, whatever the stop settings.
+    NUMERICAL_FAILURE = "numerical_failure"
 
 
 # Kernel codes, index into KIND_BY_CODE.
 KIND_BY_CODE = (StopKind.DONE, StopKind.CLOSE_ENCOUNTER, StopKind.EJECTION,
-                StopKind.STAR_COLLISION, StopKind.ECCENTRICITY)
+                StopKind.STAR_COLLISION, StopKind.ECCENTRICITY, StopKind.NUMERICAL_FAILURE)
+NUMERICAL_FAILURE_CODE = 5
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def is_broken(v):
+    """True if the state has stopped being finite, from one velocity component.
+
+    Every kick sums accelerations over all bodies, so a NaN or infinity in
+    any body's position reaches every velocity within one step: one
+    comparison per step watches the whole state.
+    """
+    return not (v - v == 0.0)
+
+
+@njit(cache=True, error_model="numpy")
+def first_broken(x, v):
+    """Index of the first body whose position or velocity is not finite, or -1."""
+    for i in range(x.shape[0]):
+        for d in range(3):
+            if not (x[i, d] - x[i, d] == 0.0) or not (v[i, d] - v[i, d] == 0.0):
+                return i
+    return -1
 
 
 @dataclass(frozen=True)

@@ -19,7 +19,7 @@ from .base import Integrator
 from .diagnostics import diagnose
 from .kepler import drift_row
 from .nbody import accelerations, gr_coefficient
-from .stops import check_stops
+from .stops import NUMERICAL_FAILURE_CODE, check_stops, first_broken, is_broken
 from .system import jacobi_from_inertial, jacobi_mu
 
 
@@ -127,6 +127,8 @@ def wh_steps(xj, vj, gm, mu, eta, dt, n_steps, pending, gr_coef, pairs, params, 
             drift_all(xj, vj, mu, half)
             pending = True
         kick(xj, vj, gm, mu, eta, dt, gr_coef, xi, acc)
+        if is_broken(vj[vj.shape[0] - 1, 0]):
+            return k + 1, pending, NUMERICAL_FAILURE_CODE, first_broken(xj, vj), -1, rows
         if check:
             code, a, b = check_stops(xi, xj, vj, mu, pairs, params, rh)
             if code != 0:

@@ -65,6 +65,11 @@ def _guard(fn):
             return fn(*args, **kwargs)
         except OrbitLedgerError as exc:
             fail(str(exc))
+        except OSError as exc:
+            # A file the user named (or a folder it needs) cannot be written or read.
+            where = f" {exc.filename}" if exc.filename else ""
+            fail(f"could not use{where}: {exc.strerror or exc}; check the path and its "
+                 "permissions.")
     return wrapper
 
 
@@ -87,15 +92,30 @@ def submit(spec_file: Annotated[Path, typer.Argument(help="Job spec (TOML).")],
 
     from .stepcheck import advice
 
+    from .sanity import projected_samples, projected_store_bytes
+
     spec = spec_mod.load(spec_file)  # validated before the ledger is touched
     with open_ledger(workspace, db) as ledger:
         if spec.ensemble is not None and spec.member is None:
             ens_id, ids = ledger.submit_ensemble(spec, priority=priority)
             out.print(f"ensemble {ens_id}: jobs {ids[0]}..{ids[-1]}")
         else:
-            out.print(ledger.submit(spec, priority=priority))
-    for line in advice(spec_mod.resolve(spec)):
+            ids = [ledger.submit(spec, priority=priority)]
+            out.print(ids[0])
+    plan = spec_mod.resolve(spec)
+    size = projected_store_bytes(plan) * len(ids)
+    err.print(f"projected sample store: {_bytes(size)} (at most {projected_samples(plan)} "
+              f"samples per job x {len(ids)} job(s)); limit per job `span.max_store_gb` = "
+              f"{spec.span.max_store_gb:g}", markup=False, highlight=False)
+    for line in advice(plan):
         err.print(line, markup=False, highlight=False)
+
+
+def _bytes(n):
+    for unit, size in (("GB", 1e9), ("MB", 1e6), ("kB", 1e3)):
+        if n >= size:
+            return f"{n / size:.3g} {unit}"
+    return f"{n:.0f} B"
 
 
 _WALL_UNITS = {"s": 1.0, "sec": 1.0, "min": 60.0, "m": 60.0, "h": 3600.0, "hr": 3600.0,
@@ -204,6 +224,8 @@ def status(workspace: WorkspaceOpt = None, db: DbOpt = None,
     from .report import status_table
 
     with open_ledger(workspace, db) as ledger:
+        if ensemble is not None:
+            ledger.ensemble(ensemble)  # one line if there is no such ensemble
         out.print(status_table(ledger.jobs(ensemble_id=ensemble)))
 
 
@@ -491,17 +513,31 @@ def batch(workspace: WorkspaceOpt = None, db: DbOpt = None,
           partition: Annotated[Optional[str], typer.Option(help="SLURM partition.")] = None,
           output: Annotated[Optional[Path], typer.Option(
               help="Script file (default <workspace>/slurm/orbitledger.sbatch).")] = None,
-          do_submit: Annotated[bool, typer.Option("--submit", help="Also sbatch it.")] = False):
+          do_submit: Annotated[bool, typer.Option("--submit", help="Also sbatch it.")] = False,
+          dry_run: Annotated[bool, typer.Option(
+              "--dry-run", help="Only write the script; do not connect to the database "
+              "(prepare it anywhere).")] = False):
     """Write (and with --submit, submit) a SLURM array script of workers."""
     from . import cluster
+    from .status import ACTIVE
     from .workspace import resolve_path
 
+    if dry_run and do_submit:
+        fail("--dry-run and --submit exclude each other; drop one.")
     ws = resolve_path(workspace)
-    open_ledger(workspace, db).close()  # the workspace must exist
     url = cluster.resolve_url(ws, db)
     cluster.check_shared_db(url)
     text = cluster.script(ws, tasks, _parse_wall(time_limit), margin, partition=partition)
-    (ws / "slurm").mkdir(exist_ok=True)
+    if not dry_run:
+        with open_ledger(workspace, db) as ledger:  # the workspace must exist
+            counts = ledger.counts()
+        left = sum(counts.get(st.value, 0) for st in ACTIVE)
+        if tasks > left:
+            err.print(f"note: --tasks {tasks} for {left} job(s) with work left: "
+                      f"{tasks - left} task(s) would find nothing to claim and end at once.",
+                      markup=False, highlight=False)
+    if output is None:
+        (ws / "slurm").mkdir(parents=True, exist_ok=True)
     path = output or ws / "slurm" / "orbitledger.sbatch"
     cluster.write(path, text)
     out.print(f"script written to {path}")

@@ -18,6 +18,9 @@ LEASE_SECONDS = 60.0
 HEARTBEAT_SECONDS = 10.0
 # Most steps one kernel call takes before the worker looks at clocks and signals.
 MAX_STEPS_PER_CALL = 50_000
+# Wall time one kernel call aims at (fewer steps for large systems), seconds:
+# signals, hold and cancel requests are seen within about this long.
+SLICE_SECONDS = 0.5
 # Output cadence when a spec gives none, steps.
 DEFAULT_OUTPUT_STEPS = 1_000
 # Chunk (checkpoint interval) when a spec gives none, in outputs.

@@ -27,3 +27,7 @@ class FencedError(LedgerError):
 
 class StoreError(OrbitLedgerError, IOError):
     """The checkpoint store is damaged or could not be written."""
+
+
+class NumericalFailureError(OrbitLedgerError, ArithmeticError):
+    """The integration produced non-finite numbers (a degenerate system or step)."""

@@ -62,6 +62,7 @@ class MethodSpec(_Strict):
     step: str
     corrector: int = 0
     relativity: bool = False
+    allow_long_step: bool = False
 
     @field_validator("corrector")
     @classmethod
@@ -76,6 +77,14 @@ class SpanSpec(_Strict):
     direction: Literal["forward", "backward"] = "forward"
     chunk: str | None = None
     output: str | None = None
+    max_store_gb: float = 20.0
+
+    @field_validator("max_store_gb")
+    @classmethod
+    def _store(cls, v):
+        if not v > 0:
+            raise ValueError("must be a positive size in GB such as 50")
+        return v
 
 
 class BudgetSpec(_Strict):
@@ -317,6 +326,11 @@ def _body_state(key, body, mu):
                         "for an ellipse give a positive a.")
     if a == 0:
         raise SpecError(f"`{key}.a` must be non-zero, got {body.a!r}; give the semi-major axis.")
+    inc = parse_quantity(f"{key}.i", body.i, "angle")
+    if not 0.0 <= inc <= 180.0:
+        raise SpecError(f"`{key}.i` must be between 0 and 180 deg, got {body.i!r}; an "
+                        "inclination i outside that range is the orbit with 360 deg - i "
+                        "(or -i) and the node turned by 180 deg.")
     ang = [parse_quantity(f"{key}.{n}", getattr(body, n), "angle") * math.pi / 180.0
            for n in ("i", "node", "peri", "mean_anomaly")]
     return el.to_state(mu, a, e, *ang)
@@ -446,6 +460,10 @@ def resolve(spec):
     )
     if stops.eject_distance < 0 or stops.star_radius < 0 or stops.unbound_distance < 0:
         raise SpecError("`stops` distances must be >= 0; give 0 to turn a condition off.")
-    return Plan(system, spec.method.name, dt, spec.method.corrector, spec.method.relativity,
+    plan = Plan(system, spec.method.name, dt, spec.method.corrector, spec.method.relativity,
                 int(total), int(chunk), int(output), stops, spec.budget.energy,
                 spec.budget.angular_momentum, spec.budget.on_exceed)
+    from .sanity import check
+
+    check(plan, spec)
+    return plan

@@ -17,7 +17,9 @@ import time
 import numpy as np
 
 from . import defaults, provenance, stopflag
-from .errors import FencedError, StoreError
+from integrators import StopKind
+
+from .errors import FencedError, NumericalFailureError, StoreError
 from .ledger import angmom0, repair_by_replay
 from .sampling import SampleBuffer, sample_now
 from .store import state_layout
@@ -129,6 +131,14 @@ class Worker:
         except FencedError:
             self.ledger.end_segment(seg, None, "fenced", now=self.clock())
             return "fenced"
+        except NumericalFailureError as err:
+            # Deterministic: a rerun would fail the same way, so the job is
+            # failed with the reason, never claimed again by itself.
+            self.failed = True
+            self.ledger.give_back(claim, now=self.clock(), status=JobStatus.FAILED,
+                                  reason=str(err))
+            self.ledger.end_segment(seg, None, "numerical_failure", now=self.clock())
+            return JobStatus.FAILED
         except StoreError as err:
             # Nothing beyond the last commit is lost; hold the job with the reason.
             self.ledger.give_back(claim, now=self.clock(), status=JobStatus.HELD,
@@ -155,6 +165,7 @@ class Worker:
         max_e, max_l = row["max_energy_error"], row["max_angmom_error"]
         last_beat = self.clock()
         buf = SampleBuffer(len(integ.gm), e0, l0, capacity=min(chunk // out + 1, 4096))
+        steps_per_call = min(self.max_steps_per_call, 1000)  # tuned after the first call
         layout = state_layout(integ.state_arrays())
         while True:
             # Open the job's arrays and create the coming checkpoint's array
@@ -169,10 +180,23 @@ class Worker:
             wall0 = self.clock()
             step0 = integ.step
             while integ.step < chunk_end:
-                res = buf.advance(integ, min(chunk_end, integ.step + self.max_steps_per_call)
-                                  - integ.step, out)
+                n_call = min(chunk_end - integ.step, steps_per_call)
+                t_call = time.perf_counter()
+                res = buf.advance(integ, n_call, out)
+                # Kernel calls last about SLICE_SECONDS whatever the system's
+                # size, so signals and requests are seen within seconds. How
+                # the steps are sliced never changes the trajectory.
+                per_step = (time.perf_counter() - t_call) / max(res.steps, 1)
+                steps_per_call = max(1, min(self.max_steps_per_call,
+                                            int(defaults.SLICE_SECONDS / max(per_step, 1e-9))))
                 failpoint("first_step")
                 if res.stopped:
+                    if res.kind == StopKind.NUMERICAL_FAILURE:
+                        raise NumericalFailureError(
+                            f"numerical failure at step {integ.step} (t = {integ.time:.6g} d): "
+                            "the state is no longer finite numbers (first seen in "
+                            f"{_body_names(integ, res.bodies)}; bodies at the same place, or a "
+                            "step far too long); nothing after the last checkpoint was kept")
                     stop = res
                     break
                 now = self.clock()
@@ -240,6 +264,11 @@ class Worker:
                     # Finished: leave exactly the committed rows for readers.
                     self.ledger.store.trim_samples(job_id, n_samples, claim.fence)
                 return result.status
+
+
+def _body_names(integ, bodies):
+    names = [integ.names[b] for b in bodies if 0 <= b < len(integ.names)]
+    return ", ".join(names) or "?"
 
 
 _HELPER = None

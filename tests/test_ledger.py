@@ -54,6 +54,7 @@ class TestLedgerConformance:
         assert ledger.heartbeat(b, now=1032.0) is None
         assert any(e["kind"] == "lease_taken_over" for e in ledger.events(jid))
 
+    @pytest.mark.damages_store  # commits made-up hashes, with nothing in the store
     def test_worker_whose_lease_was_taken_over_cannot_commit(self, ledger):
         jid = ledger.submit(small_spec())
         a = ledger.claim("A", now=0.0)
