@@ -24,7 +24,7 @@ WorkspaceOpt = Annotated[Optional[Path], typer.Option(
 DbOpt = Annotated[Optional[str], typer.Option(
     "--db", envvar=defaults.ENV_DB,
     help="Database URL (default: the workspace's SQLite file).")]
-JobArg = Annotated[int, typer.Argument(help="Job id.", min=1)]
+JobArg = Annotated[int, typer.Argument(help="Job id.", min=1, max=2**62)]
 # True when running as the `orbitledger` program (not inside a test's CliRunner).
 _AS_PROGRAM = [False]
 
@@ -42,11 +42,17 @@ def open_ledger(path, url, **kw):
 
 
 def write_atomic(path, text):
-    """Write a text file so that readers never see it half-written."""
+    """Write a text file so that readers never see it half-written (nothing left on failure)."""
     path = Path(path)
+    if path.is_dir():
+        fail(f"{path} is a folder; give a file name, e.g. {path / 'report.html'}.")
     tmp = path.with_name(path.name + ".part")
-    tmp.write_text(text, encoding="utf-8")
-    tmp.replace(path)
+    try:
+        tmp.write_text(text, encoding="utf-8")
+        tmp.replace(path)
+    except BaseException:
+        tmp.unlink(missing_ok=True)
+        raise
 
 
 def fail(message, code=2):
@@ -391,6 +397,8 @@ def compare_cmd(job_a: JobArg, job_b: Annotated[int, typer.Argument(help="Other 
     from . import plots
     from .compare import compare_jobs, describe_divergence, element_ranges
 
+    if job_a == job_b:
+        fail(f"compare needs two different jobs, got job {job_a} twice.")
     with open_ledger(workspace, db) as ledger:
         t, d, fit = compare_jobs(ledger, job_a, job_b)
         ra, rb = element_ranges(ledger, job_a), element_ranges(ledger, job_b)
@@ -433,9 +441,18 @@ def export(job_id: JobArg, to: Annotated[Path, typer.Option(help="JSON file to w
 @_guard
 def backward(job_id: JobArg, workspace: WorkspaceOpt = None, db: DbOpt = None,
              checkpoint: Annotated[Optional[int], typer.Option(
-                 help="Start from this checkpoint (default: the last).")] = None):
+                 help="Start from this checkpoint (default: the last).")] = None,
+             at: Annotated[Optional[str], typer.Option(
+                 help="Start from the committed checkpoint at this time, e.g. '300 kyr' "
+                      "(checkpoint numbers shift with interruptions; times do not).")] = None):
     """Queue a backward run from a checkpoint of a job, back to its start."""
+    from .units import parse_quantity
+
+    if at is not None and checkpoint is not None:
+        fail("give --at or --checkpoint, not both.")
     with open_ledger(workspace, db) as ledger:
+        if at is not None:
+            checkpoint = ledger.checkpoint_at(job_id, parse_quantity("--at", at, "time"))
         new = ledger.submit_backward(job_id, checkpoint)
     out.print(new)
 

@@ -170,7 +170,12 @@ def make_engine(url):
 
         return engine
     if parsed.get_backend_name() == "postgresql":
-        return create_engine(url, pool_pre_ping=True, pool_size=2, max_overflow=2)
+        try:
+            return create_engine(url, pool_pre_ping=True, pool_size=2, max_overflow=2)
+        except ModuleNotFoundError as err:
+            raise LedgerError(f"database URL {redact(url)} needs the {err.name!r} driver, which "
+                              "is not installed; install it with "
+                              "pip install 'orbitledger[postgres]'.") from None
     raise LedgerError(f"database URL {redact(url)} names backend {parsed.get_backend_name()!r}; "
                       "use sqlite:/// or postgresql+psycopg://.")
 

@@ -596,6 +596,21 @@ class Ledger:
             return dict(conn.execute(select(checkpoints).where(and_(
                 checkpoints.c.job_id == job_id, checkpoints.c.idx == n))).mappings().one())
 
+    def checkpoint_at(self, job_id, time_days):
+        """Index of the committed checkpoint at a time (days from the job's start), within
+        half a step; raises NotFoundError naming the nearest ones otherwise."""
+        row = self.job(job_id)
+        cks = self.checkpoints(job_id)
+        t0 = cks[0]["time"]
+        best = min(cks, key=lambda c: abs(abs(c["time"] - t0) - time_days))
+        if abs(abs(best["time"] - t0) - time_days) <= 0.5 * abs(row["dt"]):
+            return int(best["idx"])
+        yr = lambda d: f"{d / 365.25:.9g} yr"  # noqa: E731 - precise enough to paste back
+        near = ", ".join(yr(abs(c["time"] - t0)) for c in
+                         sorted(cks, key=lambda c: abs(abs(c["time"] - t0) - time_days))[:3])
+        raise NotFoundError(f"job {job_id} has no checkpoint at {yr(time_days)}; the nearest "
+                            f"are at {near}.")
+
     def segments(self, job_id):
         """A job's segments, in order."""
         return self._job_rows(segments, job_id, segments.c.id)

@@ -47,11 +47,18 @@ class Worker:
         Called as progress(job_row, step, rate_days_per_s) now and then.
     clock : callable
         Wall clock, for tests.
+    max_steps_per_call : int
+        Most steps one kernel call takes.
+    slice_seconds : float or None
+        Wall time one kernel call aims at (fewer steps for a large system), so
+        signals and requests are seen within about this long; None: every call
+        takes ``max_steps_per_call`` steps (tests that need exact slices).
     """
 
     def __init__(self, ledger, owner=None, deadline=None, job_id=None, order="breadth",
                  progress=None, clock=time.time, max_steps_per_call=defaults.MAX_STEPS_PER_CALL,
-                 heartbeat_seconds=defaults.HEARTBEAT_SECONDS):
+                 heartbeat_seconds=defaults.HEARTBEAT_SECONDS,
+                 slice_seconds=defaults.SLICE_SECONDS):
         self.ledger = ledger
         self.owner = owner or f"{socket.gethostname()}:{os.getpid()}"
         self.deadline = deadline
@@ -61,6 +68,7 @@ class Worker:
         self.clock = clock
         self.max_steps_per_call = int(max_steps_per_call)
         self.heartbeat_seconds = float(heartbeat_seconds)
+        self.slice_seconds = None if slice_seconds is None else float(slice_seconds)
         self.stop_requested = None
         self._use_flag = False
         self.failed = False
@@ -165,7 +173,9 @@ class Worker:
         max_e, max_l = row["max_energy_error"], row["max_angmom_error"]
         last_beat = self.clock()
         buf = SampleBuffer(len(integ.gm), e0, l0, capacity=min(chunk // out + 1, 4096))
-        steps_per_call = min(self.max_steps_per_call, 1000)  # tuned after the first call
+        # With a wall-time slice, a short first call measures the cost of a step.
+        steps_per_call = (self.max_steps_per_call if self.slice_seconds is None
+                          else min(self.max_steps_per_call, 100))
         layout = state_layout(integ.state_arrays())
         while True:
             # Open the job's arrays and create the coming checkpoint's array
@@ -186,9 +196,10 @@ class Worker:
                 # Kernel calls last about SLICE_SECONDS whatever the system's
                 # size, so signals and requests are seen within seconds. How
                 # the steps are sliced never changes the trajectory.
-                per_step = (time.perf_counter() - t_call) / max(res.steps, 1)
-                steps_per_call = max(1, min(self.max_steps_per_call,
-                                            int(defaults.SLICE_SECONDS / max(per_step, 1e-9))))
+                if self.slice_seconds is not None:
+                    per_step = (time.perf_counter() - t_call) / max(res.steps, 1)
+                    steps_per_call = max(1, min(self.max_steps_per_call, int(
+                        self.slice_seconds / max(per_step, 1e-9))))
                 failpoint("first_step")
                 if res.stopped:
                     if res.kind == StopKind.NUMERICAL_FAILURE:

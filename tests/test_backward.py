@@ -103,14 +103,14 @@ def test_backward_from_an_interrupted_checkpoint_shares_the_forward_sample_times
     from helpers import samples_bytes
 
     j = led.submit(small_spec(length="200 yr"))  # 10 d steps, a sample every 500
-    w = Worker(led, max_steps_per_call=1234)
+    w = Worker(led, max_steps_per_call=1234, slice_seconds=None)
     w.progress = lambda *a: setattr(w, "stop_requested", "test")
     w.run()  # stops after the second kernel call: a checkpoint off the output grid
     S_ = led.last_checkpoint(j)["step"]
     assert S_ == 2468 and S_ % 500
     fwd = led.store.read_samples(j, led.job(j)["n_samples"])
     b1, b2 = led.submit_backward(j), led.submit_backward(j)
-    w = Worker(led, job_id=b1, max_steps_per_call=1000)
+    w = Worker(led, job_id=b1, max_steps_per_call=1000, slice_seconds=None)
     w.progress = lambda *a: setattr(w, "stop_requested", "test")
     w.run()  # interrupted once, then resumed
     Worker(led, job_id=b1).run()

@@ -60,7 +60,7 @@ def test_henon_map_largest_exponent():
     assert est.error < 0.002
 
 
-def test_classifier_never_calls_super_linear_growth_regular():
+def test_classifier_never_calls_steep_growth_regular():
     t = np.linspace(0.1, 100, 500)
     lin = classify_divergence(t, 1e-12 * t)
     assert lin["kind"] == "regular" and lin["power"] == pytest.approx(1.0, abs=1e-9)
@@ -68,7 +68,9 @@ def test_classifier_never_calls_super_linear_growth_regular():
     # A steep power law: once called "linear (power 5.24)".
     steep = classify_divergence(t, 1e-12 * t ** 5.24)
     assert steep["kind"] == "chaotic" and steep["power"] == pytest.approx(5.24, rel=1e-9)
-    assert classify_divergence(t, 1e-12 * t ** 2)["kind"] == "chaotic"
+    assert classify_divergence(t, 1e-12 * t ** 3)["kind"] == "chaotic"
+    # Round-off alone grows as t^(3/2) (Brouwer 1937): still regular.
+    assert classify_divergence(t, 1e-15 * t ** 1.5)["kind"] == "regular"
 
 
 def _clones(tmp_path, text, members=2, body=None):

@@ -190,3 +190,59 @@ def test_submit_states_the_projected_store_size(tmp_path):
     # 2000 yr / 10 d = 73050 steps, one sample per 500 steps: 146 + the start
     # + an end off the output grid = 148 samples of (4 + 3 x 6) x 8 bytes = 26 kB.
     assert "projected sample store: 26 kB (at most 148 samples per job x 1 job(s))" in res.stderr
+
+
+def test_one_line_for_absurd_ids_same_job_twice_and_missing_driver(tmp_path):
+    ws, led = init(tmp_path / "ws")
+    led.close()
+    for args, part in [(("show", "99999999999999999999"), "Invalid value"),
+                       (("compare", "1", "1"), "error: compare needs two different jobs, "
+                                               "got job 1 twice."),
+                       (("status", "--db", "postgresql+pg8000://u@127.0.0.1/x"),
+                        "needs the 'pg8000' driver, which is not installed; install it with "
+                        "pip install 'orbitledger[postgres]'")]:
+        res = cli(*args, "--workspace", ws)
+        assert res.returncode == 2 and part in res.stderr, res.stderr
+        assert "Traceback" not in res.stderr
+
+
+def test_report_into_a_folder_is_one_line_and_leaves_nothing(tmp_path):
+    from runner.worker import Worker
+
+    ws, led = init(tmp_path / "ws")
+    led.submit(small_spec(length="100 yr"))
+    Worker(led).run()
+    led.close()
+    (tmp_path / "out").mkdir()
+    for cmd in (("report", "1", "--to", tmp_path / "out"),
+                ("export", "1", "--to", tmp_path / "out"),
+                ("plot", "1", "--to", tmp_path / "missing" / "p.png")):
+        res = cli(*cmd, "--workspace", ws)
+        assert res.returncode == 2 and len(res.stderr.strip().splitlines()) == 1, res.stderr
+    assert list((tmp_path / "out").iterdir()) == []
+    assert not list(tmp_path.glob("*.part"))
+
+
+def test_backward_at_a_time_and_compare_along_its_own_axis(tmp_path):
+    from runner.compare import compare_jobs
+    from runner.worker import Worker
+
+    ws, led = init(tmp_path / "ws")
+    j = led.submit(small_spec(length="2000 yr"))
+    Worker(led).run()
+    res = cli("backward", str(j), "--at", "1369.0 yr", "--workspace", ws)
+    assert res.returncode == 2 and "no checkpoint at 1369 yr; the nearest are at 1368.925" in res.stderr
+    cks = led.checkpoints(j)
+    at_years = (cks[5]["time"] - cks[0]["time"]) / 365.25
+    res = cli("backward", str(j), "--at", f"{at_years!r} yr", "--workspace", ws)
+    assert res.returncode == 0, res.stderr
+    b = int(res.stdout.strip())
+    assert led.job(b)["parent_checkpoint"] == 5
+    Worker(led).run()
+    t, d, fit = compare_jobs(led, j, b)
+    # Measured from the backward run's start, where both runs coincide.
+    assert t[0] == 0.0 and d[0] < 1e-12 and np.all(np.diff(t) > 0)
+    assert t[-1] == pytest.approx(at_years, rel=1e-9)
+    assert fit["kind"] == "regular"
+    assert fit["lyapunov_time"] is None and fit["exponent_per_yr"] is not None
+    led.close()
