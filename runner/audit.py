@@ -40,6 +40,7 @@ class VerifyReport:
 
 def verify(ledger, job_id):
     """Check the chain, the stored states and the sample blocks of a job."""
+    ledger.job(job_id)  # NotFoundError for a job that does not exist
     rep = VerifyReport(job_id)
     prev = GENESIS
     n_prev = 0
@@ -89,6 +90,7 @@ def replay(ledger, job_id, indices=None, sample=None, seed=None):
 
     ``indices`` chooses k explicitly; ``sample`` picks that many at random.
     """
+    ledger.job(job_id)  # NotFoundError for a job that does not exist
     cks = ledger.checkpoints(job_id)
     ks = list(range(len(cks) - 1))
     if indices is not None:
