@@ -61,6 +61,12 @@ def fail(message, code=2):
     raise typer.Exit(code)
 
 
+def _db_errors():
+    from sqlalchemy.exc import SQLAlchemyError
+
+    return SQLAlchemyError
+
+
 def _guard(fn):
     """Turn project errors into one line on stderr and exit code 2."""
     import functools
@@ -71,7 +77,16 @@ def _guard(fn):
             return fn(*args, **kwargs)
         except OrbitLedgerError as exc:
             fail(str(exc))
+        except _db_errors() as exc:
+            text = str(getattr(exc, "orig", exc)).strip().splitlines()[0]
+            if "readonly" in text or "read-only" in text:
+                fail("the ledger is read-only (a read-only workspace): viewing works, but "
+                     "this command writes; run it where the workspace is writable.")
+            fail(f"the ledger database refused the operation: {text}")
         except OSError as exc:
+            if getattr(exc, "errno", None) == 30:  # EROFS
+                fail(f"{exc.filename or 'the workspace'} is on a read-only file system; "
+                     "this command writes, run it where the workspace is writable.")
             # A file the user named (or a folder it needs) cannot be written or read.
             where = f" {exc.filename}" if exc.filename else ""
             fail(f"could not use{where}: {exc.strerror or exc}; check the path and its "

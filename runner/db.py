@@ -137,6 +137,34 @@ def redact(url):
         return "<unparsable database URL>"
 
 
+def read_only_engine(url):
+    """A read-only engine on an existing SQLite ledger (a read-only workspace), or None.
+
+    A WAL database whose -wal file is gone was closed cleanly and is opened
+    immutable (SQLite cannot create its shared-memory file on a read-only
+    file system); otherwise read-only with the -wal file's contents.
+    """
+    import os
+
+    parsed = make_url(url)
+    if parsed.get_backend_name() != "sqlite" or not parsed.database:
+        return None
+    path = os.path.abspath(parsed.database)
+    if not os.path.exists(path):
+        return None
+    flags = "mode=ro" if os.path.exists(path + "-wal") else "immutable=1"
+    engine = create_engine(f"sqlite:///file:{path}?{flags}&uri=true",
+                           connect_args={"timeout": defaults.SQLITE_BUSY_MS / 1000,
+                                         "check_same_thread": False})
+    try:
+        with engine.connect() as conn:
+            conn.exec_driver_sql("SELECT count(*) FROM jobs")
+    except Exception:  # noqa: BLE001 - not a readable ledger
+        engine.dispose()
+        return None
+    return engine
+
+
 def make_engine(url):
     """An engine for url, configured for the ledger's transaction discipline."""
     try:

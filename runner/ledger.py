@@ -72,12 +72,20 @@ class Ledger:
 
         from .db import redact
 
+        self.read_only = False
         try:
             create_schema(self.engine)
         except SQLAlchemyError as err:
-            reason = str(getattr(err, "orig", err)).strip().splitlines()[0]
-            raise LedgerError(f"cannot open the ledger database {redact(url)}: {reason}; "
-                              "check the URL and that the server is running.") from None
+            from .db import read_only_engine
+
+            ro = read_only_engine(url)
+            if ro is None:
+                reason = str(getattr(err, "orig", err)).strip().splitlines()[0]
+                raise LedgerError(f"cannot open the ledger database {redact(url)}: {reason}; "
+                                  "check the URL and that the server is running.") from None
+            # A read-only workspace (a read-only mount, an archive): viewable.
+            self.engine.dispose()
+            self.engine, self.read_only = ro, True
 
     def close(self):
         """Release database connections."""

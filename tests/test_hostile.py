@@ -4,6 +4,7 @@ Each case goes through the real CLI in a subprocess where a signal or an exit
 code is involved.
 """
 
+import os
 import signal
 import subprocess
 import sys
@@ -246,3 +247,38 @@ def test_backward_at_a_time_and_compare_along_its_own_axis(tmp_path):
     assert fit["kind"] == "regular"
     assert fit["lyapunov_time"] is None and fit["exponent_per_yr"] is not None
     led.close()
+
+
+@pytest.fixture
+def read_only_workspace(tmp_path):
+    """A workspace with one finished job, seen through a read-only bind mount."""
+    from runner.worker import Worker
+
+    ws, led = init(tmp_path / "ws")
+    led.submit(small_spec(length="100 yr"))
+    Worker(led).run()
+    led.close()
+    ro = tmp_path / "ro"
+    ro.mkdir()
+    for cmd in (["mount", "--bind", str(ws), str(ro)],
+                ["mount", "-o", "remount,ro,bind", str(ro)]):
+        out = subprocess.run(cmd, capture_output=True, text=True)
+        if out.returncode != 0:
+            subprocess.run(["umount", str(ro)], capture_output=True)
+            pytest.fail(f"a read-only bind mount is needed (run the tests as root): "
+                        f"{out.stderr.strip()}")
+    yield ro
+    subprocess.run(["umount", str(ro)], capture_output=True)
+
+
+def test_read_only_workspace_is_viewable(read_only_workspace, tmp_path):
+    ro = read_only_workspace
+    assert not os.access(ro, os.W_OK)
+    for args in (["status"], ["show", "1"], ["verify", "1"],
+                 ["report", "1", "--to", str(tmp_path / "r.html")]):
+        res = cli(*args, "--workspace", ro)
+        assert res.returncode == 0, (args, res.stderr)
+    assert "done" in cli("status", "--workspace", ro).stdout
+    res = cli("extend", "1", "--by", "10 yr", "--workspace", ro)
+    assert res.returncode == 2 and len(res.stderr.strip().splitlines()) == 1, res.stderr
+    assert "read-only" in res.stderr
