@@ -355,12 +355,16 @@ class Store:
 
     # -- creation -------------------------------------------------------------
     def create_job(self, job_id, body_names, capacity=0):
-        """Create (or reset) a job's group with sample arrays of `capacity` rows.
+        """Create (or reset) a job's group with sample arrays of up to one chunk of rows.
 
-        Sizing the arrays for the whole run up front costs no disk (unwritten
-        Zarr chunks do not exist) and spares a resize per commit; unwritten
-        rows read as NaN (step -1).
+        ``capacity`` (the rows the whole run needs) only caps the first size:
+        the arrays start at most one Zarr chunk long and double as commits
+        need rows (a handful of metadata writes over a whole run). Sizing them
+        for the whole run up front would make trimming a cancelled job walk
+        every chunk key of the plan (a 1 Gyr job sampled every step: 10^6 keys
+        per array, gigabytes of memory). Unwritten rows read as NaN (step -1).
         """
+        capacity = min(int(capacity), defaults.SAMPLE_CHUNK)
         try:
             path = self.job_path(job_id)
             self._forget(job_id)

@@ -282,3 +282,35 @@ def test_read_only_workspace_is_viewable(read_only_workspace, tmp_path):
     res = cli("extend", "1", "--by", "10 yr", "--workspace", ro)
     assert res.returncode == 2 and len(res.stderr.strip().splitlines()) == 1, res.stderr
     assert "read-only" in res.stderr
+
+
+def test_memory_stays_bounded_and_cancel_is_prompt_for_any_plan(tmp_path):
+    # A 1 Gyr job sampled at every step: once its arrays were sized for the
+    # whole plan, and cancelling it trimmed 10^6 chunk keys per array (7 GB,
+    # SIGTERM ignored for 30 s). Peak memory of the worker and the time to
+    # stop after a cancel are measured here.
+    ws, led = init(tmp_path / "ws")
+    text = small_spec_text(length="1e9 yr", step="10 d", output="1 steps",
+                           chunk="50000 steps", on_exceed="continue").replace(
+        "[budget]", "max_store_gb = 1e6\n[budget]")
+    (tmp_path / "big.toml").write_text(text)
+    assert cli("submit", tmp_path / "big.toml", "--workspace", ws).returncode == 0
+    p = subprocess.Popen([sys.executable, "-c", "from runner.entry import main; main()", "work",
+                          "--workspace", str(ws), "--quiet", "--lease", "4"], cwd=ROOT,
+                         stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
+    time.sleep(8.0)
+    assert led.cancel(1) == "requested"
+    t0 = time.time()
+    _, status, usage = os.wait4(p.pid, 0)  # this worker's own peak memory
+    stopped_in = time.time() - t0
+    peak_mb = usage.ru_maxrss / 1024
+    assert os.waitstatus_to_exitcode(status) == 0, p.stderr.read().decode()
+    row = led.job(1)
+    assert row["status"] == "cancelled" and row["n_samples"] > 1000
+    assert stopped_in < 15.0, stopped_in  # a heartbeat (at most lease / 4) plus a chunk
+    assert peak_mb < 500, peak_mb
+    import zarr
+
+    assert zarr.open_group(str(led.store.job_path(1)), mode="r")["samples/time"].shape[0] == \
+        row["n_samples"]
+    led.close()
