@@ -139,18 +139,11 @@ def _bytes(n):
     return f"{n:.0f} B"
 
 
-_WALL_UNITS = {"s": 1.0, "sec": 1.0, "min": 60.0, "m": 60.0, "h": 3600.0, "hr": 3600.0,
-               "d": 86400.0, "day": 86400.0}
+def _parse_wall(value, option="--deadline"):
+    """A wall-clock duration in seconds (see :mod:`runner.walltime`)."""
+    from .walltime import parse_wall
 
-
-def _parse_wall(value):
-    """A wall-clock duration like '47 h', '30min' or '90 s' in seconds."""
-    import re
-
-    m = re.match(r"^\s*([0-9]*\.?[0-9]+(?:e[+-]?[0-9]+)?)\s*([a-z]+)\s*$", value)
-    if not m or m.group(2) not in _WALL_UNITS:
-        fail(f"--deadline must be a wall time such as '47 h', '30 min' or '90 s', got {value!r}.")
-    return float(m.group(1)) * _WALL_UNITS[m.group(2)]
+    return parse_wall(option, value)
 
 
 @app.command()
@@ -559,7 +552,8 @@ def batch(workspace: WorkspaceOpt = None, db: DbOpt = None,
     ws = resolve_path(workspace)
     url = cluster.resolve_url(ws, db)
     cluster.check_shared_db(url)
-    text = cluster.script(ws, tasks, _parse_wall(time_limit), margin, partition=partition)
+    text = cluster.script(ws, tasks, _parse_wall(time_limit, "--time"), margin,
+                         partition=partition)
     if not dry_run:
         with open_ledger(workspace, db) as ledger:  # the workspace must exist
             counts = ledger.counts()
