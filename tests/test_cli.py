@@ -22,7 +22,7 @@ def test_submit_work_status_show_extend(tmp_path):
     spec = tmp_path / "j.toml"
     spec.write_text(small_spec_text(name="cli-job"))
     res = runner.invoke(app, ["submit", str(spec), "--workspace", str(ws)])
-    assert res.exit_code == 0 and res.output.strip() == "1"
+    assert res.exit_code == 0 and res.stdout.strip() == "1"
     res = runner.invoke(app, ["work", "--workspace", str(ws), "--quiet"])
     assert res.exit_code == 0, res.output
     res = runner.invoke(app, ["status", "--workspace", str(ws)])
