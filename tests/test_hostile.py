@@ -282,6 +282,9 @@ def test_read_only_workspace_is_viewable(read_only_workspace, tmp_path):
     res = cli("extend", "1", "--by", "10 yr", "--workspace", ro)
     assert res.returncode == 2 and len(res.stderr.strip().splitlines()) == 1, res.stderr
     assert "read-only" in res.stderr
+    res = cli("init", "--workspace", ro / "new")
+    assert res.returncode == 2 and len(res.stderr.strip().splitlines()) == 1, res.stderr
+    assert "read-only file system" in res.stderr and "Traceback" not in res.stderr
 
 
 def test_memory_stays_bounded_and_cancel_is_prompt_for_any_plan(tmp_path):
