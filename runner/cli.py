@@ -158,20 +158,31 @@ def work(workspace: WorkspaceOpt = None, db: DbOpt = None,
          lease: Annotated[float, typer.Option(
              min=1.0, help="Lease length in seconds; a crashed worker's job waits this long.")]
          = defaults.LEASE_SECONDS,
-         quiet: Annotated[bool, typer.Option(help="No progress display.")] = False):
+         quiet: Annotated[bool, typer.Option(help="No progress display.")] = False,
+         log_level: Annotated[Optional[str], typer.Option(
+             help="Log events at this level: debug, info, warning (default: info, or "
+                  "warning beside a progress display).")] = None,
+         log_file: Annotated[Optional[Path], typer.Option(
+             help="Append the log here instead of standard error.")] = None):
     """Run workers until no work is left, a deadline, or a stop signal.
 
     Exit code 0: nothing left to claim; 3: stopped with work remaining; 1: a worker failed.
     """
     stopflag.install()  # before the heavy imports: a stop during start-up is clean
     from .worker import Worker, run_pool, self_command
+    from .worklog import setup_logging
+
+    show = not quiet and out.is_terminal and workers == 1
+    setup_logging(log_level, log_file, quiet_default=show)
 
     if order not in ("breadth", "depth"):
         fail(f"--order must be 'breadth' or 'depth', got {order!r}.")
     end = None if deadline is None else time.time() + _parse_wall(deadline)
     if workers > 1:
         argv = self_command() + ["work", "--workers", "1", "--order", order, "--quiet",
-                                 "--lease", str(lease)]
+                                 "--lease", str(lease), "--log-level", log_level or "info"]
+        if log_file is not None:
+            argv += ["--log-file", str(log_file)]
         if workspace:
             argv += ["--workspace", str(workspace)]
         if db:
@@ -186,7 +197,6 @@ def work(workspace: WorkspaceOpt = None, db: DbOpt = None,
             stopflag.exit_now(code)
         raise typer.Exit(code)
     beat = min(defaults.HEARTBEAT_SECONDS, lease / 4)
-    show = not quiet and out.is_terminal
     with open_ledger(workspace, db, lease_seconds=lease) as ledger:
         if show:
             code = _work_with_progress(ledger, end, job, order, beat)

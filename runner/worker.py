@@ -7,6 +7,7 @@ EXIT_WORK_REMAINS if any work is left, 0 otherwise.
 """
 
 import json
+import logging
 import os
 import signal
 import socket
@@ -25,6 +26,7 @@ from .sampling import SampleBuffer, sample_now
 from .store import state_layout
 from .faults import failpoint
 from .status import ACTIVE, JobStatus
+from .worklog import LOG
 
 STOP_SIGNALS = stopflag.STOP_SIGNALS
 
@@ -89,13 +91,24 @@ class Worker:
     # -- main loop ----------------------------------------------------------------
     def run(self):
         """Work until nothing is claimable, a deadline, or a stop signal. Returns an exit code."""
+        LOG.info("worker %s started", self.owner)
         while not self._should_stop():
             claim = self.ledger.claim(self.owner, now=self.clock(), job_id=self.job_id,
                                       order=self.order, provenance=provenance.collect())
             if claim is None:
+                LOG.info("nothing left to claim")
                 break
-            self.results.append((claim.job_id, self.run_claim(claim)))
-        return self.exit_code()
+            LOG.info("job %d claimed (fencing token %d)", claim.job_id, claim.fence)
+            status = self.run_claim(claim)
+            LOG.info("job %d: %s", claim.job_id, getattr(status, "value", status))
+            self.results.append((claim.job_id, status))
+        if self.stop_requested is not None:
+            LOG.info("stopped by %s", self.stop_requested)
+        elif self.deadline is not None and self.clock() >= self.deadline:
+            LOG.info("deadline reached")
+        code = self.exit_code()
+        LOG.info("worker %s exits with code %d", self.owner, code)
+        return code
 
     def exit_code(self):
         """EXIT_WORK_REMAINS if stopped early with work left, EXIT_FAILED on failure, else 0."""
@@ -270,6 +283,12 @@ class Worker:
             idx += 1
             n_samples += len(block["time"])
             total = result.total_steps
+            if LOG.isEnabledFor(logging.INFO):
+                rate = _rate(integ, step0, wall0, self.clock())
+                LOG.info("job %d checkpoint %d at step %d, t = %.6g yr (%.3g%%), %s",
+                         job_id, idx, integ.step, abs(integ.time) / 365.25,
+                         100.0 * integ.step / total if total else 100.0,
+                         "rate unknown" if rate is None else f"{rate * 3600 / 365.25e6:.3g} Myr/h")
             if result.status != JobStatus.RUNNING:
                 if result.status in (JobStatus.DONE, JobStatus.STOPPED, JobStatus.CANCELLED):
                     # Finished: leave exactly the committed rows for readers.
@@ -354,6 +373,11 @@ def run_pool(argv_one, n_workers):
                 # the request too (blocked until its handler is in place).
                 procs[-1].send_signal(signal.Signals[pending])
         codes = [p.wait() for p in procs]
+        for p, c in zip(procs, codes):
+            if c < 0:
+                LOG.warning("worker pid %d died by %s", p.pid, signal.Signals(-c).name)
+            else:
+                LOG.info("worker pid %d exited with code %d", p.pid, c)
     finally:
         for sig, h in old.items():
             signal.signal(sig, h)

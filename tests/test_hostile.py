@@ -317,3 +317,28 @@ def test_memory_stays_bounded_and_cancel_is_prompt_for_any_plan(tmp_path):
     assert zarr.open_group(str(led.store.job_path(1)), mode="r")["samples/time"].shape[0] == \
         row["n_samples"]
     led.close()
+
+
+def test_work_logs_a_plain_line_per_event(tmp_path):
+    ws, led = init(tmp_path / "ws")
+    led.submit(small_spec(length="300 yr"))
+    log = tmp_path / "work.log"
+    res = cli("work", "--workspace", ws, "--quiet", "--log-file", log)
+    assert res.returncode == 0, res.stderr
+    text = log.read_text()
+    for part in ("started", "job 1 claimed (fencing token 1)", "job 1 checkpoint 1 at step 5000",
+                 "Myr/h", "job 1: done", "nothing left to claim", "exits with code 0"):
+        assert part in text, (part, text)
+    # In a pool, a worker's death is logged with its signal.
+    led.submit(small_spec(name="long", length="300000 yr"))
+    p = subprocess.Popen([sys.executable, "-c", "from runner.entry import main; main()", "work",
+                          "--workspace", str(ws), "--workers", "2", "--log-file", str(log)],
+                         cwd=ROOT, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    deadline = time.time() + 60
+    while led.job(2)["owner"] is None and time.time() < deadline:
+        time.sleep(0.1)
+    owner_pid = int(led.job(2)["owner"].rsplit(":", 1)[1])
+    os.kill(owner_pid, signal.SIGKILL)
+    p.wait(timeout=60)
+    assert f"worker pid {owner_pid} died by SIGKILL" in log.read_text()
+    led.close()
