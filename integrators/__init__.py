@@ -10,7 +10,8 @@ from .stops import StopConditions, StopKind
 from .system import System
 from .wisdom_holman import WisdomHolman
 
-METHODS = {WisdomHolman.method: WisdomHolman, Leapfrog.method: Leapfrog}
+# The methods, by name: each class joined Integrator.registry when defined.
+METHODS = dict(Integrator.registry)
 
 __all__ = [
     "AdvanceResult", "Integrator", "C_AU_PER_DAY", "G", "GAUSS_K", "YEAR_D",

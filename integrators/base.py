@@ -57,6 +57,13 @@ class Integrator:
     """
 
     method = "base"
+    # Every method class joins this registry by subclassing (see
+    # __init_subclass__), so the base never imports the classes built on it.
+    registry = {}
+
+    def __init_subclass__(cls, **kwargs):
+        super().__init_subclass__(**kwargs)
+        Integrator.registry[cls.method] = cls
 
     def __init__(self, system, dt, stops=None):
         dt = float(dt)
@@ -218,9 +225,6 @@ class Integrator:
     @staticmethod
     def from_state_arrays(arrays):
         """Rebuild an integrator of the right method from :meth:`state_arrays` output."""
-        from .leapfrog import Leapfrog
-        from .wisdom_holman import WisdomHolman
-
         fmt = int(np.asarray(arrays["format"])[0])
         if fmt != STATE_FORMAT:
             raise IntegratorError(
@@ -229,7 +233,7 @@ class Integrator:
                 "it bit for bit; finish it with the version recorded in its provenance, or start "
                 "the job again.")
         method = bytes(np.asarray(arrays["method"], dtype=np.uint8)).decode("ascii")
-        classes = {WisdomHolman.method: WisdomHolman, Leapfrog.method: Leapfrog}
+        classes = Integrator.registry
         if method not in classes:
             raise IntegratorError(f"unknown method {method!r} in state arrays.")
         cls = classes[method]

@@ -10,11 +10,11 @@ import time
 
 from rich.table import Table
 
-from . import spec as spec_mod
-from .report import status_table
-from .status import JobStatus
-from .units import format_time
-from .workspace import MARKER, init
+from runner.inputs import spec as spec_mod
+from runner.presentation.tables import status_table
+from runner.ledger.status import JobStatus
+from runner.inputs.units import format_time
+from runner.ledger.workspace import MARKER, init
 
 JOBS_DIR = Path(__file__).resolve().parents[1] / "jobs"
 DEMO_SPECS = ("veyra-giants.toml", "veyra-full.toml")

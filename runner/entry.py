@@ -10,11 +10,11 @@ import sys
 
 def main():
     """Run the `orbitledger` command line."""
-    from . import stopflag
+    from runner.execution import signals as stopflag
 
     words = [a for a in sys.argv[1:] if not a.startswith("-")]
     if words[:1] == ["work"]:
         stopflag.install()
-    from .cli import main as cli_main
+    from runner.cli import main as cli_main
 
     cli_main()

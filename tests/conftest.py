@@ -111,7 +111,7 @@ def ledger_url(request):
 # Tests that damage a store on purpose are marked `damages_store`.
 @pytest.fixture(autouse=True)
 def verify_every_job(request, monkeypatch):
-    from runner.ledger import Ledger
+    from runner.ledger.operations import Ledger
 
     opened = []
     init = Ledger.__init__
@@ -126,7 +126,7 @@ def verify_every_job(request, monkeypatch):
     monkeypatch.setattr(Ledger, "__init__", init)
     if request.node.get_closest_marker("damages_store") or _failed(request):
         return
-    from runner.audit import verify
+    from runner.analysis.integrity import verify
 
     bad = []
     for url, root in opened:

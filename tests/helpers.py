@@ -57,7 +57,7 @@ def small_spec_text(name="orrin", step="10 d", corrector=3, length="2000 yr",
 
 
 def small_spec(**kw):
-    from runner import spec
+    from runner.inputs import spec
 
     return spec.load_text(small_spec_text(**kw))
 

@@ -45,7 +45,7 @@ def run_c(exe, system, dt, steps):
 
 @pytest.mark.parametrize("make,dt", [
     (lambda: solar_subset(["Jupiter", "Saturn"]), 30.0),
-    (lambda: __import__("runner.spec", fromlist=["resolve"]).resolve(small_spec()).system, 10.0),
+    (lambda: __import__("runner.inputs.spec", fromlist=["resolve"]).resolve(small_spec()).system, 10.0),
 ])
 def test_kernel_equals_plain_c_bit_for_bit(c_exe, make, dt):
     system = make()

@@ -25,12 +25,12 @@ import numpy as np
 import pytest
 
 from integrators import Integrator
-from runner import spec as S
-from runner.audit import verify
-from runner.ledger import Ledger
-from runner.store import state_sha256, to_storable
-from runner.worker import Worker
-from runner.workspace import init
+from runner.inputs import spec as S
+from runner.analysis.integrity import verify
+from runner.ledger.operations import Ledger
+from runner.store.zarr_store import state_sha256, to_storable
+from runner.execution.worker import Worker
+from runner.ledger.workspace import init
 from helpers import ROOT, assert_no_double_commit, small_spec_text
 
 LEASE = 2.0

@@ -6,12 +6,12 @@ import os
 import numpy as np
 import pytest
 
-from runner import spec as S
-from runner.compare import classify_divergence, compare_jobs
-from runner.lyapunov import shadow_lyapunov
-from runner.ensemble import member_spec
-from runner.ledger import Ledger
-from runner.worker import Worker
+from runner.inputs import spec as S
+from runner.analysis.divergence import classify_divergence, compare_jobs
+from runner.analysis.lyapunov import shadow_lyapunov
+from runner.inputs.ensemble import member_spec
+from runner.ledger.operations import Ledger
+from runner.execution.worker import Worker
 from helpers import ROOT, small_spec_text
 
 
@@ -157,14 +157,14 @@ def test_packed_clones_lyapunov_time_from_the_renormalised_shadow(tmp_path):
     assert 0 < err < T
     # The other clone samples the same chaotic zone: its own renormalised
     # estimate over the same stretch must agree within the combined errors.
-    from runner.lyapunov import job_lyapunov
+    from runner.analysis.lyapunov import job_lyapunov
 
     steps = int(round(fit["window"] * 365.25 / 0.5))
     other = job_lyapunov(led, b, 0, span_steps=steps, every=max(1, min(100, steps // 200)))
     diff = abs(1 / T - other["exponent_per_yr"])
     assert diff < 3 * math.hypot(fit["exponent_err_per_yr"], other["exponent_err_per_yr"])
     # The divergence plot draws that slope; the sentence names the method.
-    from runner.compare import describe_divergence
+    from runner.analysis.divergence import describe_divergence
 
     assert "renormalised shadow" in describe_divergence(fit)
     led.close()

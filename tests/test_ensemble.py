@@ -10,11 +10,11 @@ import time
 import numpy as np
 import pytest
 
-from runner import spec as S
-from runner.ensemble import draws, member_spec
-from runner.ledger import Ledger
-from runner.worker import Worker
-from runner.workspace import init
+from runner.inputs import spec as S
+from runner.inputs.ensemble import draws, member_spec
+from runner.ledger.operations import Ledger
+from runner.execution.worker import Worker
+from runner.ledger.workspace import init
 from helpers import ROOT, final_state, small_spec_text
 
 ILVAR = os.path.join(ROOT, "jobs", "ilvar-ensemble.toml")

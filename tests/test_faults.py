@@ -13,10 +13,10 @@ import time
 
 import pytest
 
-from runner import spec as S
-from runner.ledger import Ledger
-from runner.worker import Worker
-from runner.workspace import init
+from runner.inputs import spec as S
+from runner.ledger.operations import Ledger
+from runner.execution.worker import Worker
+from runner.ledger.workspace import init
 from helpers import ROOT, assert_no_double_commit, final_state, samples_bytes, small_spec_text
 
 POINTS = ["mid_store_write", "in_commit", "before_commit", "before_store_write",

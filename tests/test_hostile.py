@@ -13,9 +13,9 @@ import time
 import numpy as np
 import pytest
 
-from runner import spec as S
+from runner.inputs import spec as S
 from runner.errors import SpecError
-from runner.workspace import init
+from runner.ledger.workspace import init
 from helpers import ROOT, cli, small_spec, small_spec_text
 
 
@@ -32,9 +32,9 @@ def test_kernels_stop_on_a_non_finite_state():
 
 def test_non_finite_state_fails_the_job_with_the_reason_and_is_not_reclaimed(tmp_path,
                                                                             monkeypatch):
-    from runner.ledger import Ledger
-    from runner.status import JobStatus
-    from runner.worker import Worker
+    from runner.ledger.operations import Ledger
+    from runner.ledger.status import JobStatus
+    from runner.execution.worker import Worker
 
     ws, led = init(tmp_path / "ws")
     jid = led.submit(small_spec(length="500 yr"))
@@ -208,7 +208,7 @@ def test_one_line_for_absurd_ids_same_job_twice_and_missing_driver(tmp_path):
 
 
 def test_report_into_a_folder_is_one_line_and_leaves_nothing(tmp_path):
-    from runner.worker import Worker
+    from runner.execution.worker import Worker
 
     ws, led = init(tmp_path / "ws")
     led.submit(small_spec(length="100 yr"))
@@ -225,8 +225,8 @@ def test_report_into_a_folder_is_one_line_and_leaves_nothing(tmp_path):
 
 
 def test_backward_at_a_time_and_compare_along_its_own_axis(tmp_path):
-    from runner.compare import compare_jobs
-    from runner.worker import Worker
+    from runner.analysis.divergence import compare_jobs
+    from runner.execution.worker import Worker
 
     ws, led = init(tmp_path / "ws")
     j = led.submit(small_spec(length="2000 yr"))
@@ -252,7 +252,7 @@ def test_backward_at_a_time_and_compare_along_its_own_axis(tmp_path):
 @pytest.fixture
 def read_only_workspace(tmp_path):
     """A workspace with one finished job, seen through a read-only bind mount."""
-    from runner.worker import Worker
+    from runner.execution.worker import Worker
 
     ws, led = init(tmp_path / "ws")
     led.submit(small_spec(length="100 yr"))

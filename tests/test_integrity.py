@@ -15,14 +15,14 @@ import numpy as np
 import pytest
 import zarr
 
-from runner import provenance
-from runner import spec as S
-from runner.audit import verify
+from runner.ledger import provenance
+from runner.inputs import spec as S
+from runner.analysis.integrity import verify
 from runner.errors import TransitionError
-from runner.ledger import Ledger
-from runner.status import JobStatus
-from runner.worker import Worker
-from runner.workspace import init
+from runner.ledger.operations import Ledger
+from runner.ledger.status import JobStatus
+from runner.execution.worker import Worker
+from runner.ledger.workspace import init
 from helpers import ROOT, cli, final_state, samples_bytes, small_spec, small_spec_text
 from test_ensemble import ensemble_text
 

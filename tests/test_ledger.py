@@ -8,9 +8,9 @@ import numpy as np
 import pytest
 
 from runner.errors import FencedError, LedgerError, TransitionError
-from runner.ledger import Ledger
-from runner.status import TRANSITIONS, USER_OPS, WORKER_OPS, JobStatus, check_transition
-from runner.worker import Worker
+from runner.ledger.operations import Ledger
+from runner.ledger.status import TRANSITIONS, USER_OPS, WORKER_OPS, JobStatus, check_transition
+from runner.execution.worker import Worker
 from helpers import assert_no_double_commit, final_state, samples_bytes, small_spec
 
 

@@ -11,8 +11,8 @@ import pytest
 from typer.testing import CliRunner
 
 from runner.cli import app
-from runner.workspace import init
-from runner.worker import Worker
+from runner.ledger.workspace import init
+from runner.execution.worker import Worker
 from helpers import small_spec, small_spec_text
 
 runner = CliRunner()

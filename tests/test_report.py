@@ -9,8 +9,8 @@ import pytest
 from typer.testing import CliRunner
 
 from runner.cli import app
-from runner.worker import Worker
-from runner.workspace import init
+from runner.execution.worker import Worker
+from runner.ledger.workspace import init
 from conftest import SERVICES
 from helpers import small_spec
 

@@ -15,9 +15,9 @@ import time
 
 import pytest
 
-from runner.ledger import Ledger
-from runner.worker import Worker
-from runner.workspace import init
+from runner.ledger.operations import Ledger
+from runner.execution.worker import Worker
+from runner.ledger.workspace import init
 from helpers import (ROOT, assert_no_double_commit, final_state, samples_bytes,
                      small_spec, small_spec_text)
 
@@ -48,7 +48,7 @@ def test_sigkill_at_random_moments_resumes_bit_for_bit(tmp_path):
     ws, led = init(tmp_path / "ws")
     spec_file = tmp_path / "job.toml"
     spec_file.write_text(small_spec_text(**LONG))
-    from runner import spec as spec_mod
+    from runner.inputs import spec as spec_mod
 
     jid = led.submit(spec_mod.load(spec_file))
     rng = random.Random(20261202)

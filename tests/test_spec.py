@@ -11,7 +11,7 @@ import numpy as np
 import pytest
 from typer.testing import CliRunner
 
-from runner import spec as S
+from runner.inputs import spec as S
 from runner.cli import app
 from runner.errors import SpecError
 from helpers import small_spec_text

@@ -5,7 +5,7 @@ import pytest
 import xarray as xr
 
 from runner import defaults
-from runner.store import Store, state_layout
+from runner.store.zarr_store import Store, state_layout
 
 BODIES = ["Star", "b", "c", "d"]
 

@@ -22,7 +22,7 @@ sys.path.insert(0, ROOT)
 
 from integrators import WisdomHolman  # noqa: E402
 from integrators.nbody import accelerations, energy  # noqa: E402
-from runner import spec as spec_mod  # noqa: E402
+from runner.inputs import spec as spec_mod  # noqa: E402
 
 
 def bench_system(spec_file):

@@ -27,9 +27,9 @@ HERE = os.path.dirname(os.path.abspath(__file__))
 ROOT = os.path.dirname(os.path.dirname(HERE))
 sys.path.insert(0, ROOT)
 
-from runner import spec as spec_mod  # noqa: E402
-from runner.ledger import Ledger  # noqa: E402
-from runner.worker import Worker  # noqa: E402
+from runner.inputs import spec as spec_mod  # noqa: E402
+from runner.ledger.operations import Ledger  # noqa: E402
+from runner.execution.worker import Worker  # noqa: E402
 
 STEPS = 1_000_000
 
@@ -71,7 +71,7 @@ def worker_warm(spec, led):
 
 def resume_latency(spec, tmp, repeats=5):
     shutil.rmtree(tmp, ignore_errors=True)
-    from runner.workspace import init
+    from runner.ledger.workspace import init
 
     ws, led = init(tmp)
     led.submit(spec)

@@ -13,13 +13,13 @@ import time
 import numpy as np
 from sqlalchemy import and_, func, insert, or_, select, update
 
-from . import defaults
-from .db import (checkpoints, create_schema, ensembles, events, is_sqlite, jobs, make_engine,
+from runner import defaults
+from runner.ledger.db import (checkpoints, create_schema, ensembles, events, is_sqlite, jobs, make_engine,
                  segments)
-from .errors import FencedError, LedgerError, NotFoundError
-from .faults import failpoint
-from .status import JobStatus, check_transition
-from .store import Store, chain_sha256
+from runner.errors import FencedError, LedgerError, NotFoundError
+from runner.execution.failpoints import failpoint
+from runner.ledger.status import JobStatus, check_transition
+from runner.store.zarr_store import Store, chain_sha256
 
 GENESIS = "0" * 64  # chain link before checkpoint 0
 
@@ -70,13 +70,13 @@ class Ledger:
         self.lease_seconds = float(lease_seconds)
         from sqlalchemy.exc import SQLAlchemyError
 
-        from .db import redact
+        from runner.ledger.db import redact
 
         self.read_only = False
         try:
             create_schema(self.engine)
         except SQLAlchemyError as err:
-            from .db import read_only_engine
+            from runner.ledger.db import read_only_engine
 
             ro = read_only_engine(url)
             if ro is None:
@@ -142,7 +142,7 @@ class Ledger:
 
         Returns (ensemble id, [member job ids]).
         """
-        from .ensemble import member_spec
+        from runner.inputs.ensemble import member_spec
 
         now = _now(now)
         members = [member_spec(spec, k) for k in range(spec.ensemble.members)]
@@ -156,14 +156,14 @@ class Ledger:
 
     def _submit_in(self, conn, spec, now, priority, ensemble_id, plan, integrator, parent):
         if plan is None:
-            from .spec import resolve
+            from runner.inputs.spec import resolve
 
             plan = resolve(spec)
         integ = integrator if integrator is not None else plan.make_integrator()
         sysm = integ.synchronized()
         energy0 = integ.energy()
         angmom0 = integ.angular_momentum()
-        from .sampling import sample_now
+        from runner.store.sampling import sample_now
 
         first = sample_now(integ, energy0, angmom0)
         total = integ.step + plan.total_steps if parent else plan.total_steps
@@ -199,7 +199,7 @@ class Ledger:
         It starts from that checkpoint's exact internal state and runs back to
         the forward job's start. Returns the new job id.
         """
-        from .spec import from_json, resolve
+        from runner.inputs.spec import from_json, resolve
 
         integ, ck = self.load_integrator(job_id, checkpoint)
         if ck["step"] == 0:
@@ -243,7 +243,7 @@ class Ledger:
         exists is runnable at once (its lease cannot be renewed by anyone).
 
         One atomic update sets the owner, the lease expiry and a new fencing
-        token. With ``provenance`` (see :mod:`runner.provenance`) the segment
+        token. With ``provenance`` (see :mod:`runner.ledger.provenance`) the segment
         of work is opened in the same transaction. Returns a :class:`Claim`
         or None if nothing is runnable.
         """
@@ -446,7 +446,7 @@ class Ledger:
 
     def _trim_finished(self, job_id, n_samples):
         """Leave exactly the committed sample rows of a job that will never run again."""
-        from .errors import StoreError
+        from runner.errors import StoreError
 
         try:
             self.store.trim_samples(job_id, int(n_samples))
@@ -664,7 +664,7 @@ def repair_by_replay(ledger, job_id, claim=None):
     """
     from integrators import Integrator
 
-    from .errors import StoreError
+    from runner.errors import StoreError
 
     cks = ledger.checkpoints(job_id)
     good = None
@@ -717,13 +717,13 @@ def _dead_local_owners(conn):
 
 
 def _spec_json(spec):
-    from .spec import canonical_json
+    from runner.inputs.spec import canonical_json
 
     return canonical_json(spec)
 
 
 def _spec_sha(spec):
-    from .spec import spec_sha256
+    from runner.inputs.spec import spec_sha256
 
     return spec_sha256(spec)
 

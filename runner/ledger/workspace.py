@@ -3,9 +3,9 @@
 import os
 from pathlib import Path
 
-from . import defaults
-from .errors import NotFoundError
-from .ledger import Ledger
+from runner import defaults
+from runner.errors import NotFoundError
+from runner.ledger.operations import Ledger
 
 MARKER = "orbitledger-workspace"
 

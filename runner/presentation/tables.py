@@ -5,8 +5,8 @@ import time
 
 from rich.table import Table
 
-from .status import JobStatus
-from .units import format_time
+from runner.ledger.status import JobStatus
+from runner.inputs.units import format_time
 
 MYR_D = 365.25e6  # days in a megayear
 
@@ -125,8 +125,8 @@ def show_tables(ledger, job_id):
 
 
 def _step_resolution(row):
-    """The least resolved orbit at the job's start (see runner.stepcheck)."""
-    from .spec import from_json, resolve
-    from .stepcheck import summary
+    """The least resolved orbit at the job's start (see runner.inputs.stepcheck)."""
+    from runner.inputs.spec import from_json, resolve
+    from runner.inputs.stepcheck import summary
 
     return summary(resolve(from_json(row["spec_json"])))

@@ -8,7 +8,7 @@ import math
 
 import astropy.units as u
 
-from .errors import SpecError
+from runner.errors import SpecError
 
 _KIND_UNITS = {
     "time": u.day,

@@ -2,7 +2,7 @@
 
 import numpy as np
 
-from .errors import LedgerError
+from runner.errors import LedgerError
 
 
 def reversibility(ledger, backward_id):
@@ -112,7 +112,7 @@ def classify_divergence(t, d, saturation=0.1):
     Returns a dict with "kind" ("regular" or "chaotic"), "power", "samples"
     (the stretch fitted) and "efold_time" (1/k of the exponential fit, in the
     unit of t; a description of this curve, not a Lyapunov time: see
-    :mod:`runner.lyapunov`).
+    :mod:`runner.analysis.lyapunov`).
     """
     t = np.asarray(t, dtype=float)
     d = np.asarray(d, dtype=float)
@@ -183,7 +183,7 @@ def _shadow_estimates(ledger, job_id, row, fit, common_days):
     common span too (the exponent of a system heading for instability
     grows). At least 200 renormalisations per stretch, at most one per output.
     """
-    from .lyapunov import job_lyapunov
+    from runner.analysis.lyapunov import job_lyapunov
 
     dt = abs(row["dt"])
     done = int(row["steps_done"])

@@ -22,7 +22,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .errors import LedgerError
+from runner.errors import LedgerError
 
 WINDOWS = 10  # windows of the batch-means error
 DISCARD_FRACTION = 0.1  # share of the intervals left out at the start (at most 50)

@@ -15,9 +15,9 @@ import subprocess
 import sys
 from pathlib import Path
 
-from . import defaults
-from .errors import LedgerError
-from .workspace import db_url
+from runner import defaults
+from runner.errors import LedgerError
+from runner.ledger.workspace import db_url
 
 # Seconds between the worker's own deadline and SLURM's warning signal.
 DEADLINE_SLACK = 30

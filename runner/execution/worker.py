@@ -17,16 +17,18 @@ import time
 
 import numpy as np
 
-from . import defaults, provenance, stopflag
+from runner import defaults
+from runner.ledger import provenance
+from runner.execution import signals as stopflag
 from integrators import StopKind
 
-from .errors import FencedError, NumericalFailureError, StoreError
-from .ledger import angmom0, repair_by_replay
-from .sampling import SampleBuffer, sample_now
-from .store import state_layout
-from .faults import failpoint
-from .status import ACTIVE, JobStatus
-from .worklog import LOG
+from runner.errors import FencedError, NumericalFailureError, StoreError
+from runner.ledger.operations import angmom0, repair_by_replay
+from runner.store.sampling import SampleBuffer, sample_now
+from runner.store.zarr_store import state_layout
+from runner.execution.failpoints import failpoint
+from runner.ledger.status import ACTIVE, JobStatus
+from runner.execution.worklog import LOG
 
 STOP_SIGNALS = stopflag.STOP_SIGNALS
 

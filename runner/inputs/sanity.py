@@ -13,7 +13,7 @@ import math
 
 import numpy as np
 
-from .errors import SpecError
+from runner.errors import SpecError
 
 # Bytes of one sample row besides the elements: time, step, energy and
 # angular-momentum errors (8 bytes each).
@@ -87,7 +87,7 @@ def _farthest(plan):
 
 
 def _check_step(plan, spec):
-    from .stepcheck import resolution
+    from runner.inputs.stepcheck import resolution
 
     res = resolution(plan)
     if not res or spec.method.allow_long_step:

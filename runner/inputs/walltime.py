@@ -10,7 +10,7 @@ Accepted, in seconds out:
 
 import re
 
-from .errors import OrbitLedgerError
+from runner.errors import OrbitLedgerError
 
 _UNITS = {
     "s": 1, "sec": 1, "secs": 1, "second": 1, "seconds": 1,

@@ -27,9 +27,9 @@ from pathlib import Path
 import numpy as np
 import zarr
 
-from . import defaults
-from .errors import StoreError
-from .faults import failpoint
+from runner import defaults
+from runner.errors import StoreError
+from runner.execution.failpoints import failpoint
 
 ELEMENT_NAMES = ["a", "e", "i", "node", "peri", "mean_anomaly"]
 _SERIES = {

@@ -19,9 +19,9 @@ from pydantic import BaseModel, ConfigDict, ValidationError, field_validator
 from integrators import CORRECTOR_ORDERS, METHODS, StopConditions, System
 from integrators.constants import G
 
-from . import defaults
-from .errors import SpecError
-from .units import parse_quantity
+from runner import defaults
+from runner.errors import SpecError
+from runner.inputs.units import parse_quantity
 
 _NAME_RE = re.compile(r"^[A-Za-z0-9][A-Za-z0-9 ._+-]{0,99}$")
 _STEPS_RE = re.compile(r"^\s*([0-9]+)\s*steps?\s*$")
@@ -347,7 +347,7 @@ def build_system(sysspec, ensemble=None, member=None):
     """The initial System (barycentric frame) of a validated spec.
 
     With an ensemble rule and a member index, that member's perturbation is
-    applied (see :mod:`runner.ensemble`).
+    applied (see :mod:`runner.inputs.ensemble`).
     """
     from integrators.system import inertial_from_jacobi, jacobi_mu
 
@@ -381,7 +381,7 @@ def build_system(sysspec, ensemble=None, member=None):
     mu = jacobi_mu(gm_arr) if sysspec.frame == "jacobi" else gm_arr[0] + gm_arr
     target, offset = None, 0.0
     if ensemble is not None:
-        from .ensemble import member_offset
+        from runner.inputs.ensemble import member_offset
 
         target, offset = member_offset(sysspec, ensemble, member)
     for k, b in enumerate(sysspec.bodies):
@@ -463,7 +463,7 @@ def resolve(spec):
     plan = Plan(system, spec.method.name, dt, spec.method.corrector, spec.method.relativity,
                 int(total), int(chunk), int(output), stops, spec.budget.energy,
                 spec.budget.angular_momentum, spec.budget.on_exceed)
-    from .sanity import check
+    from runner.inputs.sanity import check
 
     check(plan, spec)
     return plan
