@@ -8,9 +8,9 @@ from typing import Annotated, Optional
 import typer
 from rich.console import Console
 
-from runner import defaults
-from runner.execution import signals as stopflag
-from runner.errors import OrbitLedgerError
+from orbitledger.runner import defaults
+from orbitledger.runner.execution import signals as stopflag
+from orbitledger.runner.errors import OrbitLedgerError
 
 app = typer.Typer(add_completion=False, no_args_is_help=True, pretty_exceptions_show_locals=False,
                   help="Queue, run, resume and audit long planetary-system integrations.")
@@ -31,13 +31,13 @@ _AS_PROGRAM = [False]
 
 
 def init_workspace(path, url):
-    from runner.ledger.workspace import init
+    from orbitledger.runner.ledger.workspace import init
 
     return init(path, url)
 
 
 def open_ledger(path, url, **kw):
-    from runner.ledger.workspace import open_ledger as _open
+    from orbitledger.runner.ledger.workspace import open_ledger as _open
 
     return _open(path, url, **kw)
 
@@ -110,11 +110,11 @@ def submit(spec_file: Annotated[Path, typer.Argument(help="Job spec (TOML).")],
            workspace: WorkspaceOpt = None, db: DbOpt = None,
            priority: Annotated[int, typer.Option(help="Higher runs first.")] = 0):
     """Validate a spec and queue it; prints the job id."""
-    from runner.inputs import spec as spec_mod
+    from orbitledger.runner.inputs import spec as spec_mod
 
-    from runner.inputs.stepcheck import advice
+    from orbitledger.runner.inputs.stepcheck import advice
 
-    from runner.inputs.sanity import projected_samples, projected_store_bytes
+    from orbitledger.runner.inputs.sanity import projected_samples, projected_store_bytes
 
     spec = spec_mod.load(spec_file)  # validated before the ledger is touched
     with open_ledger(workspace, db) as ledger:
@@ -142,7 +142,7 @@ def _bytes(n):
 
 def _parse_wall(value, option="--deadline"):
     """A wall-clock duration in seconds (see :mod:`runner.walltime`)."""
-    from runner.inputs.walltime import parse_wall
+    from orbitledger.runner.inputs.walltime import parse_wall
 
     return parse_wall(option, value)
 
@@ -170,8 +170,8 @@ def work(workspace: WorkspaceOpt = None, db: DbOpt = None,
     Exit code 0: nothing left to claim; 3: stopped with work remaining; 1: a worker failed.
     """
     stopflag.install()  # before the heavy imports: a stop during start-up is clean
-    from runner.execution.worker import Worker, run_pool, self_command
-    from runner.execution.worklog import setup_logging
+    from orbitledger.runner.execution.worker import Worker, run_pool, self_command
+    from orbitledger.runner.execution.worklog import setup_logging
 
     show = not quiet and out.is_terminal and workers == 1
     setup_logging(log_level, log_file, quiet_default=show)
@@ -213,9 +213,9 @@ def work(workspace: WorkspaceOpt = None, db: DbOpt = None,
 def _work_with_progress(ledger, end, job, order, beat):
     from rich.progress import BarColumn, Progress, TextColumn, TimeRemainingColumn
 
-    from runner.presentation.tables import myr_per_hour
-    from runner.inputs.units import format_time
-    from runner.execution.worker import Worker
+    from orbitledger.runner.presentation.tables import myr_per_hour
+    from orbitledger.runner.inputs.units import format_time
+    from orbitledger.runner.execution.worker import Worker
 
     tasks = {}
     last = [0.0]
@@ -246,7 +246,7 @@ def status(workspace: WorkspaceOpt = None, db: DbOpt = None,
            ensemble: Annotated[Optional[int], typer.Option(help="Only this ensemble's members.")]
            = None):
     """A table of all jobs."""
-    from runner.presentation.tables import status_table
+    from orbitledger.runner.presentation.tables import status_table
 
     with open_ledger(workspace, db) as ledger:
         if ensemble is not None:
@@ -265,8 +265,8 @@ def outcomes(ensemble_id: Annotated[int, typer.Argument(help="Ensemble id.", min
     """An ensemble's outcomes: counts, instability fraction, survival curve."""
     from rich.table import Table
 
-    from runner.presentation import plots
-    from runner.analysis.outcomes import ensemble_section, summarise, summary_rows
+    from orbitledger.runner.presentation import plots
+    from orbitledger.runner.analysis.outcomes import ensemble_section, summarise, summary_rows
 
     with open_ledger(workspace, db) as ledger:
         ens = ledger.ensemble(ensemble_id)
@@ -298,7 +298,7 @@ def outcomes(ensemble_id: Annotated[int, typer.Argument(help="Ensemble id.", min
 @_guard
 def show(job_id: JobArg, workspace: WorkspaceOpt = None, db: DbOpt = None):
     """One job in detail, with its provenance."""
-    from runner.presentation.tables import show_tables
+    from orbitledger.runner.presentation.tables import show_tables
 
     with open_ledger(workspace, db) as ledger:
         t, p, _ = show_tables(ledger, job_id)
@@ -313,7 +313,7 @@ def extend(job_id: JobArg,
            by: Annotated[Optional[str], typer.Option(help="Add this much, e.g. '1 Myr'.")] = None,
            workspace: WorkspaceOpt = None, db: DbOpt = None):
     """Move a job's end to a later time; a done job is queued again."""
-    from runner.inputs.units import parse_quantity
+    from orbitledger.runner.inputs.units import parse_quantity
 
     if (to is None) == (by is None):
         fail("give exactly one of --to (new span length) or --by (time to add).")
@@ -350,7 +350,7 @@ def audit(job_id: JobArg, workspace: WorkspaceOpt = None, db: DbOpt = None):
     """Energy and angular-momentum budgets: growth law, projection, verdict."""
     from rich.table import Table
 
-    from runner.analysis.budgets import audit_job
+    from orbitledger.runner.analysis.budgets import audit_job
 
     with open_ledger(workspace, db) as ledger:
         verdicts = audit_job(ledger, job_id)
@@ -373,7 +373,7 @@ def report(job_id: JobArg, to: Annotated[Path, typer.Option(help="HTML file to w
            compare: Annotated[Optional[int], typer.Option(
                help="Add the divergence from this job.")] = None):
     """Write a static, self-contained HTML report of a job."""
-    from runner.presentation.html import job_report
+    from orbitledger.runner.presentation.html import job_report
 
     with open_ledger(workspace, db) as ledger:
         page = job_report(ledger, job_id, compare)
@@ -387,7 +387,7 @@ def plot(job_id: JobArg, to: Annotated[Path, typer.Option(help="Image file (.png
          kind: Annotated[str, typer.Option(help="energy or elements.")] = "energy",
          workspace: WorkspaceOpt = None, db: DbOpt = None):
     """Plot a job's energy error (log-log, with a t^1/2 line) or its elements over time."""
-    from runner.presentation import plots
+    from orbitledger.runner.presentation import plots
 
     if kind not in ("energy", "elements"):
         fail(f"--kind must be 'energy' or 'elements', got {kind!r}.")
@@ -413,8 +413,8 @@ def compare_cmd(job_a: JobArg, job_b: Annotated[int, typer.Argument(help="Other 
     """Divergence of two jobs of one system; element ranges side by side."""
     from rich.table import Table
 
-    from runner.presentation import plots
-    from runner.analysis.divergence import compare_jobs, describe_divergence, element_ranges
+    from orbitledger.runner.presentation import plots
+    from orbitledger.runner.analysis.divergence import compare_jobs, describe_divergence, element_ranges
 
     if job_a == job_b:
         fail(f"compare needs two different jobs, got job {job_a} twice.")
@@ -465,7 +465,7 @@ def backward(job_id: JobArg, workspace: WorkspaceOpt = None, db: DbOpt = None,
                  help="Start from the committed checkpoint at this time, e.g. '300 kyr' "
                       "(checkpoint numbers shift with interruptions; times do not).")] = None):
     """Queue a backward run from a checkpoint of a job, back to its start."""
-    from runner.inputs.units import parse_quantity
+    from orbitledger.runner.inputs.units import parse_quantity
 
     if at is not None and checkpoint is not None:
         fail("give --at or --checkpoint, not both.")
@@ -483,7 +483,7 @@ def reversibility(job_id: Annotated[int, typer.Argument(help="A finished backwar
     """How far a backward run misses its forward job's start."""
     from rich.table import Table
 
-    from runner.analysis.divergence import reversibility as residual
+    from orbitledger.runner.analysis.divergence import reversibility as residual
 
     with open_ledger(workspace, db) as ledger:
         r = residual(ledger, job_id)
@@ -501,7 +501,7 @@ def reversibility(job_id: Annotated[int, typer.Argument(help="A finished backwar
 @_guard
 def verify(job_id: JobArg, workspace: WorkspaceOpt = None, db: DbOpt = None):
     """Check a job's hash chain, stored checkpoints and samples against the ledger."""
-    from runner.analysis.integrity import verify as run_verify
+    from orbitledger.runner.analysis.integrity import verify as run_verify
 
     with open_ledger(workspace, db) as ledger:
         rep = run_verify(ledger, job_id)
@@ -523,7 +523,7 @@ def replay(job_id: JobArg, workspace: WorkspaceOpt = None, db: DbOpt = None,
            sample: Annotated[Optional[int], typer.Option(
                help="Replay this many randomly chosen stretches.")] = None):
     """Re-run stretches between checkpoints and require them bit for bit."""
-    from runner.analysis.integrity import replay as run_replay
+    from orbitledger.runner.analysis.integrity import replay as run_replay
 
     with open_ledger(workspace, db) as ledger:
         try:
@@ -554,9 +554,9 @@ def batch(workspace: WorkspaceOpt = None, db: DbOpt = None,
               "--dry-run", help="Only write the script; do not connect to the database "
               "(prepare it anywhere).")] = False):
     """Write (and with --submit, submit) a SLURM array script of workers."""
-    from runner.execution import slurm as cluster
-    from runner.ledger.status import ACTIVE
-    from runner.ledger.workspace import resolve_path
+    from orbitledger.runner.execution import slurm as cluster
+    from orbitledger.runner.ledger.status import ACTIVE
+    from orbitledger.runner.ledger.workspace import resolve_path
 
     if dry_run and do_submit:
         fail("--dry-run and --submit exclude each other; drop one.")
@@ -587,7 +587,7 @@ def batch(workspace: WorkspaceOpt = None, db: DbOpt = None,
 def demo(workspace: Annotated[Path, typer.Option(help="Demo workspace folder.")]
          = Path("demo-ledger")):
     """Set up a demo workspace, queue two invented-system jobs, interrupt, resume, report."""
-    from runner.demo import run_demo
+    from orbitledger.runner.demo import run_demo
 
     raise typer.Exit(run_demo(workspace, out))
 

@@ -10,11 +10,11 @@ import time
 
 from rich.table import Table
 
-from runner.inputs import spec as spec_mod
-from runner.presentation.tables import status_table
-from runner.ledger.status import JobStatus
-from runner.inputs.units import format_time
-from runner.ledger.workspace import MARKER, init
+from orbitledger.runner.inputs import spec as spec_mod
+from orbitledger.runner.presentation.tables import status_table
+from orbitledger.runner.ledger.status import JobStatus
+from orbitledger.runner.inputs.units import format_time
+from orbitledger.runner.ledger.workspace import MARKER, init
 
 JOBS_DIR = Path(__file__).resolve().parents[1] / "jobs"
 DEMO_SPECS = ("veyra-giants.toml", "veyra-full.toml")
@@ -22,7 +22,7 @@ DEMO_SPECS = ("veyra-giants.toml", "veyra-full.toml")
 
 def _work(ws, seconds=None):
     """Run `orbitledger work` with two worker processes; SIGTERM it after `seconds`."""
-    argv = [sys.executable, "-m", "runner.cli", "work", "--workspace", str(ws),
+    argv = [sys.executable, "-m", "orbitledger.runner.cli", "work", "--workspace", str(ws),
             "--workers", "2", "--quiet"]
     proc = subprocess.Popen(argv)
     if seconds is None:

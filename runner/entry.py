@@ -10,11 +10,11 @@ import sys
 
 def main():
     """Run the `orbitledger` command line."""
-    from runner.execution import signals as stopflag
+    from orbitledger.runner.execution import signals as stopflag
 
     words = [a for a in sys.argv[1:] if not a.startswith("-")]
     if words[:1] == ["work"]:
         stopflag.install()
-    from runner.cli import main as cli_main
+    from orbitledger.runner.cli import main as cli_main
 
     cli_main()

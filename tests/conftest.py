@@ -8,7 +8,7 @@ import pytest
 
 sys.path.insert(0, os.path.dirname(__file__))
 
-from integrators import System
+from orbitledger.integrators import System
 
 # Standish & Williams, "Keplerian Elements for Approximate Positions of the
 # Major Planets", Table 1 (J2000, 1800-2050): a (au), e, I, L, long.peri,
@@ -111,7 +111,7 @@ def ledger_url(request):
 # Tests that damage a store on purpose are marked `damages_store`.
 @pytest.fixture(autouse=True)
 def verify_every_job(request, monkeypatch):
-    from runner.ledger.operations import Ledger
+    from orbitledger.runner.ledger.operations import Ledger
 
     opened = []
     init = Ledger.__init__
@@ -126,7 +126,7 @@ def verify_every_job(request, monkeypatch):
     monkeypatch.setattr(Ledger, "__init__", init)
     if request.node.get_closest_marker("damages_store") or _failed(request):
         return
-    from runner.analysis.integrity import verify
+    from orbitledger.runner.analysis.integrity import verify
 
     bad = []
     for url, root in opened:

@@ -57,7 +57,7 @@ def small_spec_text(name="orrin", step="10 d", corrector=3, length="2000 yr",
 
 
 def small_spec(**kw):
-    from runner.inputs import spec
+    from orbitledger.runner.inputs import spec
 
     return spec.load_text(small_spec_text(**kw))
 
@@ -77,10 +77,10 @@ def samples_bytes(ledger, job_id):
 
 
 def cli(*args, env=None, timeout=300):
-    """Run `python -m runner.cli ...` as a subprocess."""
+    """Run `python -m orbitledger.runner.cli ...` as a subprocess."""
     full_env = dict(os.environ)
     full_env.update(env or {})
-    return subprocess.run([sys.executable, "-m", "runner.cli", *map(str, args)], cwd=ROOT,
+    return subprocess.run([sys.executable, "-m", "orbitledger.runner.cli", *map(str, args)], cwd=ROOT,
                           env=full_env, capture_output=True, text=True, timeout=timeout)
 
 

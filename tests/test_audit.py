@@ -6,10 +6,10 @@ import pytest
 
 from typer.testing import CliRunner
 
-from runner.analysis.integrity import replay, verify
-from runner.cli import app
-from runner.execution.worker import Worker
-from runner.ledger.workspace import init
+from orbitledger.runner.analysis.integrity import replay, verify
+from orbitledger.runner.cli import app
+from orbitledger.runner.execution.worker import Worker
+from orbitledger.runner.ledger.workspace import init
 from helpers import small_spec
 
 
@@ -63,7 +63,7 @@ def test_truncated_sample_chunk_is_named(tmp_path):
 @pytest.mark.damages_store
 def test_tampered_chain_is_named(tmp_path):
     ws, led, j = _job(tmp_path)
-    from runner.ledger.db import checkpoints
+    from orbitledger.runner.ledger.db import checkpoints
 
     with led.engine.begin() as conn:
         conn.execute(checkpoints.update().where(

@@ -5,12 +5,12 @@ import os
 import pytest
 from typer.testing import CliRunner
 
-from runner.inputs import spec as S
-from runner.cli import app
-from runner.analysis.divergence import reversibility
-from runner.errors import LedgerError
-from runner.ledger.operations import Ledger
-from runner.execution.worker import Worker
+from orbitledger.runner.inputs import spec as S
+from orbitledger.runner.cli import app
+from orbitledger.runner.analysis.divergence import reversibility
+from orbitledger.runner.errors import LedgerError
+from orbitledger.runner.ledger.operations import Ledger
+from orbitledger.runner.execution.worker import Worker
 from helpers import ROOT, small_spec
 
 
@@ -66,7 +66,7 @@ def test_chaotic_system_does_not_return_and_the_residual_grows_with_span(led):
 
 
 def test_cli_backward_and_reversibility(tmp_path):
-    from runner.ledger.workspace import init
+    from orbitledger.runner.ledger.workspace import init
 
     ws, led = init(tmp_path / "ws")
     led.submit(small_spec(length="500 yr"))

@@ -14,8 +14,8 @@ import sys
 import numpy as np
 import pytest
 
-from integrators import WisdomHolman
-from integrators.wisdom_holman import drift_all
+from orbitledger.integrators import WisdomHolman
+from orbitledger.integrators.wisdom_holman import drift_all
 
 sys.path.insert(0, os.path.dirname(__file__))
 from conftest import solar_subset  # noqa: E402
@@ -45,7 +45,7 @@ def run_c(exe, system, dt, steps):
 
 @pytest.mark.parametrize("make,dt", [
     (lambda: solar_subset(["Jupiter", "Saturn"]), 30.0),
-    (lambda: __import__("runner.inputs.spec", fromlist=["resolve"]).resolve(small_spec()).system, 10.0),
+    (lambda: __import__("orbitledger.runner.inputs.spec", fromlist=["resolve"]).resolve(small_spec()).system, 10.0),
 ])
 def test_kernel_equals_plain_c_bit_for_bit(c_exe, make, dt):
     system = make()

@@ -24,13 +24,13 @@ import time
 import numpy as np
 import pytest
 
-from integrators import Integrator
-from runner.inputs import spec as S
-from runner.analysis.integrity import verify
-from runner.ledger.operations import Ledger
-from runner.store.zarr_store import state_sha256, to_storable
-from runner.execution.worker import Worker
-from runner.ledger.workspace import init
+from orbitledger.integrators import Integrator
+from orbitledger.runner.inputs import spec as S
+from orbitledger.runner.analysis.integrity import verify
+from orbitledger.runner.ledger.operations import Ledger
+from orbitledger.runner.store.zarr_store import state_sha256, to_storable
+from orbitledger.runner.execution.worker import Worker
+from orbitledger.runner.ledger.workspace import init
 from helpers import ROOT, assert_no_double_commit, small_spec_text
 
 LEASE = 2.0
@@ -94,7 +94,7 @@ def reference(tmp_path_factory):
 
 
 def _spawn(ws, db, pool):
-    argv = [sys.executable, "-c", "from runner.entry import main; main()", "work",
+    argv = [sys.executable, "-c", "from orbitledger.runner.entry import main; main()", "work",
             "--workspace", str(ws), "--quiet", "--lease", str(LEASE)]
     if pool:
         argv += ["--workers", "2"]

@@ -4,7 +4,7 @@ import re
 
 from typer.testing import CliRunner
 
-from runner.cli import app
+from orbitledger.runner.cli import app
 from helpers import cli, small_spec_text
 
 runner = CliRunner()

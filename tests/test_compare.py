@@ -6,12 +6,12 @@ import os
 import numpy as np
 import pytest
 
-from runner.inputs import spec as S
-from runner.analysis.divergence import classify_divergence, compare_jobs
-from runner.analysis.lyapunov import shadow_lyapunov
-from runner.inputs.ensemble import member_spec
-from runner.ledger.operations import Ledger
-from runner.execution.worker import Worker
+from orbitledger.runner.inputs import spec as S
+from orbitledger.runner.analysis.divergence import classify_divergence, compare_jobs
+from orbitledger.runner.analysis.lyapunov import shadow_lyapunov
+from orbitledger.runner.inputs.ensemble import member_spec
+from orbitledger.runner.ledger.operations import Ledger
+from orbitledger.runner.execution.worker import Worker
 from helpers import ROOT, small_spec_text
 
 
@@ -157,14 +157,14 @@ def test_packed_clones_lyapunov_time_from_the_renormalised_shadow(tmp_path):
     assert 0 < err < T
     # The other clone samples the same chaotic zone: its own renormalised
     # estimate over the same stretch must agree within the combined errors.
-    from runner.analysis.lyapunov import job_lyapunov
+    from orbitledger.runner.analysis.lyapunov import job_lyapunov
 
     steps = int(round(fit["window"] * 365.25 / 0.5))
     other = job_lyapunov(led, b, 0, span_steps=steps, every=max(1, min(100, steps // 200)))
     diff = abs(1 / T - other["exponent_per_yr"])
     assert diff < 3 * math.hypot(fit["exponent_err_per_yr"], other["exponent_err_per_yr"])
     # The divergence plot draws that slope; the sentence names the method.
-    from runner.analysis.divergence import describe_divergence
+    from orbitledger.runner.analysis.divergence import describe_divergence
 
     assert "renormalised shadow" in describe_divergence(fit)
     led.close()

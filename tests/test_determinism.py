@@ -9,8 +9,8 @@ import sys
 import numpy as np
 import pytest
 
-from integrators import Integrator, Leapfrog, WisdomHolman, stumpff
-from integrators.kepler import _kepler_eq, solve_universal
+from orbitledger.integrators import Integrator, Leapfrog, WisdomHolman, stumpff
+from orbitledger.integrators.kepler import _kepler_eq, solve_universal
 
 sys.path.insert(0, os.path.dirname(__file__))
 from conftest import solar_subset, state_bytes  # noqa: E402
@@ -21,7 +21,7 @@ _SCRIPT = r"""
 import json, sys
 sys.path.insert(0, {root!r}); sys.path.insert(0, {tests!r})
 from conftest import solar_subset, state_bytes
-from integrators import WisdomHolman
+from orbitledger.integrators import WisdomHolman
 s = solar_subset(["Jupiter", "Saturn"])
 wh = WisdomHolman(s, 37.0, corrector={corr}, gr={gr})
 wh.advance({n})

@@ -10,9 +10,9 @@ import numpy as np
 import pytest
 from hypothesis import given, settings, strategies as st
 
-from integrators import G, System
-from integrators import elements as el
-from integrators.system import inertial_from_jacobi, jacobi_from_inertial
+from orbitledger.integrators import G, System
+from orbitledger.integrators import elements as el
+from orbitledger.integrators.system import inertial_from_jacobi, jacobi_from_inertial
 
 
 def _angle_diff(a, b):
@@ -97,7 +97,7 @@ def test_bad_elements_are_named():
 
 
 def test_compiled_elements_match_reference_conversion():
-    from integrators.diagnostics import heliocentric_elements
+    from orbitledger.integrators.diagnostics import heliocentric_elements
 
     s = System.from_elements(["Tessaly", "b", "c", "d"], [0.9, 1e-3, 3e-4, 1e-5],
                              [[1.0, 0.05, 1.0, 10, 20, 30], [2.5, 0.0, 0.0, 40, 50, 60],

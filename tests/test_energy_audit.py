@@ -3,7 +3,7 @@
 import numpy as np
 import pytest
 
-from runner.analysis.budgets import fit_growth, judge
+from orbitledger.runner.analysis.budgets import fit_growth, judge
 
 
 @pytest.mark.parametrize("alpha", [0.0, 0.5, 1.0, 1.5])

@@ -10,11 +10,11 @@ import time
 import numpy as np
 import pytest
 
-from runner.inputs import spec as S
-from runner.inputs.ensemble import draws, member_spec
-from runner.ledger.operations import Ledger
-from runner.execution.worker import Worker
-from runner.ledger.workspace import init
+from orbitledger.runner.inputs import spec as S
+from orbitledger.runner.inputs.ensemble import draws, member_spec
+from orbitledger.runner.ledger.operations import Ledger
+from orbitledger.runner.execution.worker import Worker
+from orbitledger.runner.ledger.workspace import init
 from helpers import ROOT, final_state, small_spec_text
 
 ILVAR = os.path.join(ROOT, "jobs", "ilvar-ensemble.toml")
@@ -112,7 +112,7 @@ def test_breadth_first_holds_with_several_workers(tmp_path):
     chunk = 2000
     _, ids = led.submit_ensemble(S.load_text(ensemble_text(
         members=6, length="3000 yr", chunk=f"{chunk} steps")))
-    procs = [subprocess.Popen([sys.executable, "-m", "runner.cli", "work", "--workspace", str(ws),
+    procs = [subprocess.Popen([sys.executable, "-m", "orbitledger.runner.cli", "work", "--workspace", str(ws),
                                "--quiet"], cwd=ROOT) for _ in range(2)]
     assert [p.wait(timeout=300) for p in procs] == [0, 0]
     # Replay the commits in time order; after each, no member is more than
@@ -144,14 +144,14 @@ def test_ensemble_survives_kills_with_the_same_outcomes(tmp_path):
     rng = random.Random(3)
     kills = 0
     for _ in range(6):
-        p = subprocess.Popen([sys.executable, "-m", "runner.cli", "work", "--workspace", str(ws),
+        p = subprocess.Popen([sys.executable, "-m", "orbitledger.runner.cli", "work", "--workspace", str(ws),
                               "--quiet"], cwd=ROOT)
         time.sleep(rng.uniform(1.2, 2.5))
         if p.poll() is None:
             p.send_signal(signal.SIGKILL)
             kills += 1
         p.wait()
-    p = subprocess.run([sys.executable, "-m", "runner.cli", "work", "--workspace", str(ws),
+    p = subprocess.run([sys.executable, "-m", "orbitledger.runner.cli", "work", "--workspace", str(ws),
                         "--quiet"], cwd=ROOT)
     assert p.returncode == 0 and kills >= 3
     for a, b in zip(ref_ids, ids):
@@ -166,7 +166,7 @@ def test_ensemble_survives_kills_with_the_same_outcomes(tmp_path):
 def test_outcomes_command_table_plot_and_report(tmp_path):
     from typer.testing import CliRunner
 
-    from runner.cli import app
+    from orbitledger.runner.cli import app
 
     ws, led = init(tmp_path / "ws")
     text = open(ILVAR).read().replace("members = 16", "members = 3").replace(

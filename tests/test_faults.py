@@ -13,10 +13,10 @@ import time
 
 import pytest
 
-from runner.inputs import spec as S
-from runner.ledger.operations import Ledger
-from runner.execution.worker import Worker
-from runner.ledger.workspace import init
+from orbitledger.runner.inputs import spec as S
+from orbitledger.runner.ledger.operations import Ledger
+from orbitledger.runner.execution.worker import Worker
+from orbitledger.runner.ledger.workspace import init
 from helpers import ROOT, assert_no_double_commit, final_state, samples_bytes, small_spec_text
 
 POINTS = ["mid_store_write", "in_commit", "before_commit", "before_store_write",
@@ -44,7 +44,7 @@ def _spawn(ws, db, failpoint=None):
     env = {k: v for k, v in os.environ.items() if k != "ORBITLEDGER_FAILPOINTS"}
     if failpoint:
         env["ORBITLEDGER_FAILPOINTS"] = failpoint
-    argv = [sys.executable, "-m", "runner.cli", "work", "--workspace", str(ws), "--quiet",
+    argv = [sys.executable, "-m", "orbitledger.runner.cli", "work", "--workspace", str(ws), "--quiet",
             "--lease", str(LEASE)]
     if db:
         argv += ["--db", db]

@@ -6,7 +6,7 @@ import sys
 import numpy as np
 import pytest
 
-from integrators import C_AU_PER_DAY, G, System, WisdomHolman
+from orbitledger.integrators import C_AU_PER_DAY, G, System, WisdomHolman
 
 sys.path.insert(0, __file__.rsplit("/", 1)[0])
 from conftest import MASS_RATIO, standish_elements  # noqa: E402

@@ -13,15 +13,15 @@ import time
 import numpy as np
 import pytest
 
-from runner.inputs import spec as S
-from runner.errors import SpecError
-from runner.ledger.workspace import init
+from orbitledger.runner.inputs import spec as S
+from orbitledger.runner.errors import SpecError
+from orbitledger.runner.ledger.workspace import init
 from helpers import ROOT, cli, small_spec, small_spec_text
 
 
 def test_kernels_stop_on_a_non_finite_state():
     # Two planets at one place (built directly: `submit` refuses such a spec).
-    from integrators import Leapfrog, StopKind, System, WisdomHolman
+    from orbitledger.integrators import Leapfrog, StopKind, System, WisdomHolman
 
     sysm = System.from_elements(["S", "a", "b"], [1.0, 1e-3, 1e-3],
                                 [[1.0, 0.0, 0, 0, 0, 0], [1.0, 0.0, 0, 0, 0, 0]])
@@ -32,9 +32,9 @@ def test_kernels_stop_on_a_non_finite_state():
 
 def test_non_finite_state_fails_the_job_with_the_reason_and_is_not_reclaimed(tmp_path,
                                                                             monkeypatch):
-    from runner.ledger.operations import Ledger
-    from runner.ledger.status import JobStatus
-    from runner.execution.worker import Worker
+    from orbitledger.runner.ledger.operations import Ledger
+    from orbitledger.runner.ledger.status import JobStatus
+    from orbitledger.runner.execution.worker import Worker
 
     ws, led = init(tmp_path / "ws")
     jid = led.submit(small_spec(length="500 yr"))
@@ -99,7 +99,7 @@ def test_a_slow_kernel_still_hears_sigterm_within_seconds(tmp_path):
     ws, led = init(tmp_path / "ws")
     (tmp_path / "crowd.toml").write_text(_many_bodies(300))
     assert cli("submit", tmp_path / "crowd.toml", "--workspace", ws).returncode == 0
-    p = subprocess.Popen([sys.executable, "-c", "from runner.entry import main; main()", "work",
+    p = subprocess.Popen([sys.executable, "-c", "from orbitledger.runner.entry import main; main()", "work",
                           "--workspace", str(ws), "--quiet"], cwd=ROOT,
                          stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
     deadline = time.time() + 60
@@ -208,7 +208,7 @@ def test_one_line_for_absurd_ids_same_job_twice_and_missing_driver(tmp_path):
 
 
 def test_report_into_a_folder_is_one_line_and_leaves_nothing(tmp_path):
-    from runner.execution.worker import Worker
+    from orbitledger.runner.execution.worker import Worker
 
     ws, led = init(tmp_path / "ws")
     led.submit(small_spec(length="100 yr"))
@@ -225,8 +225,8 @@ def test_report_into_a_folder_is_one_line_and_leaves_nothing(tmp_path):
 
 
 def test_backward_at_a_time_and_compare_along_its_own_axis(tmp_path):
-    from runner.analysis.divergence import compare_jobs
-    from runner.execution.worker import Worker
+    from orbitledger.runner.analysis.divergence import compare_jobs
+    from orbitledger.runner.execution.worker import Worker
 
     ws, led = init(tmp_path / "ws")
     j = led.submit(small_spec(length="2000 yr"))
@@ -252,7 +252,7 @@ def test_backward_at_a_time_and_compare_along_its_own_axis(tmp_path):
 @pytest.fixture
 def read_only_workspace(tmp_path):
     """A workspace with one finished job, seen through a read-only bind mount."""
-    from runner.execution.worker import Worker
+    from orbitledger.runner.execution.worker import Worker
 
     ws, led = init(tmp_path / "ws")
     led.submit(small_spec(length="100 yr"))
@@ -298,7 +298,7 @@ def test_memory_stays_bounded_and_cancel_is_prompt_for_any_plan(tmp_path):
         "[budget]", "max_store_gb = 1e6\n[budget]")
     (tmp_path / "big.toml").write_text(text)
     assert cli("submit", tmp_path / "big.toml", "--workspace", ws).returncode == 0
-    p = subprocess.Popen([sys.executable, "-c", "from runner.entry import main; main()", "work",
+    p = subprocess.Popen([sys.executable, "-c", "from orbitledger.runner.entry import main; main()", "work",
                           "--workspace", str(ws), "--quiet", "--lease", "4"], cwd=ROOT,
                          stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
     peak_mb = 0.0
@@ -349,7 +349,7 @@ def test_work_logs_a_plain_line_per_event(tmp_path):
         assert part in text, (part, text)
     # In a pool, a worker's death is logged with its signal.
     led.submit(small_spec(name="long", length="300000 yr"))
-    p = subprocess.Popen([sys.executable, "-c", "from runner.entry import main; main()", "work",
+    p = subprocess.Popen([sys.executable, "-c", "from orbitledger.runner.entry import main; main()", "work",
                           "--workspace", str(ws), "--workers", "2", "--log-file", str(log)],
                          cwd=ROOT, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
     deadline = time.time() + 60

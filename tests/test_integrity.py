@@ -15,14 +15,14 @@ import numpy as np
 import pytest
 import zarr
 
-from runner.ledger import provenance
-from runner.inputs import spec as S
-from runner.analysis.integrity import verify
-from runner.errors import TransitionError
-from runner.ledger.operations import Ledger
-from runner.ledger.status import JobStatus
-from runner.execution.worker import Worker
-from runner.ledger.workspace import init
+from orbitledger.runner.ledger import provenance
+from orbitledger.runner.inputs import spec as S
+from orbitledger.runner.analysis.integrity import verify
+from orbitledger.runner.errors import TransitionError
+from orbitledger.runner.ledger.operations import Ledger
+from orbitledger.runner.ledger.status import JobStatus
+from orbitledger.runner.execution.worker import Worker
+from orbitledger.runner.ledger.workspace import init
 from helpers import ROOT, cli, final_state, samples_bytes, small_spec, small_spec_text
 from test_ensemble import ensemble_text
 
@@ -188,7 +188,7 @@ def test_damaged_metadata_is_one_line_and_holds_the_job(tmp_path, which):
 
 @pytest.mark.damages_store
 def test_verify_names_the_first_checkpoint_of_a_truncated_chunk(tmp_path):
-    from runner import defaults
+    from orbitledger.runner import defaults
 
     ws, led = init(tmp_path / "ws")
     # 1461 samples in 100-sample blocks: the second Zarr chunk starts at row 1024.
@@ -210,7 +210,7 @@ def test_verify_names_the_first_checkpoint_of_a_truncated_chunk(tmp_path):
 
 def _pool(ws, n=2):
     # The installed program's entry point, as a batch script runs it.
-    return subprocess.Popen([sys.executable, "-c", "from runner.entry import main; main()",
+    return subprocess.Popen([sys.executable, "-c", "from orbitledger.runner.entry import main; main()",
                              "work", "--workspace", str(ws), "--workers", str(n), "--quiet"],
                             cwd=ROOT, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE,
                             start_new_session=True)

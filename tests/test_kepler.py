@@ -7,9 +7,9 @@ import pytest
 from hypothesis import given, settings, strategies as st
 from numba import njit
 
-from integrators import propagate, stumpff
-from integrators import elements as el
-from integrators.kepler import drift_row, solve_universal
+from orbitledger.integrators import propagate, stumpff
+from orbitledger.integrators import elements as el
+from orbitledger.integrators.kepler import drift_row, solve_universal
 import kepler_reference as K
 
 

@@ -22,7 +22,7 @@ import random
 import numpy as np
 import pytest
 
-from integrators import G, System, WisdomHolman, propagate
+from orbitledger.integrators import G, System, WisdomHolman, propagate
 import kepler_reference as K
 
 MU = G * (1.0 + 3e-6)  # a planet of three Earth masses around a solar-mass star

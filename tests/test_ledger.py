@@ -7,10 +7,10 @@ timing matters. The same class runs against every backend in BACKENDS.
 import numpy as np
 import pytest
 
-from runner.errors import FencedError, LedgerError, TransitionError
-from runner.ledger.operations import Ledger
-from runner.ledger.status import TRANSITIONS, USER_OPS, WORKER_OPS, JobStatus, check_transition
-from runner.execution.worker import Worker
+from orbitledger.runner.errors import FencedError, LedgerError, TransitionError
+from orbitledger.runner.ledger.operations import Ledger
+from orbitledger.runner.ledger.status import TRANSITIONS, USER_OPS, WORKER_OPS, JobStatus, check_transition
+from orbitledger.runner.execution.worker import Worker
 from helpers import assert_no_double_commit, final_state, samples_bytes, small_spec
 
 

@@ -10,9 +10,9 @@ import os
 import pytest
 from typer.testing import CliRunner
 
-from runner.cli import app
-from runner.ledger.workspace import init
-from runner.execution.worker import Worker
+from orbitledger.runner.cli import app
+from orbitledger.runner.ledger.workspace import init
+from orbitledger.runner.execution.worker import Worker
 from helpers import small_spec, small_spec_text
 
 runner = CliRunner()

@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from runner.analysis.outcomes import kaplan_meier, summarise, wilson
+from orbitledger.runner.analysis.outcomes import kaplan_meier, summarise, wilson
 
 
 @pytest.mark.parametrize("k,n", [(0, 16), (3, 16), (8, 16), (16, 16), (1, 1000), (57, 200)])

@@ -8,9 +8,9 @@ import numpy as np
 import pytest
 from typer.testing import CliRunner
 
-from runner.cli import app
-from runner.execution.worker import Worker
-from runner.ledger.workspace import init
+from orbitledger.runner.cli import app
+from orbitledger.runner.execution.worker import Worker
+from orbitledger.runner.ledger.workspace import init
 from conftest import SERVICES
 from helpers import small_spec
 

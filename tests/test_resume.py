@@ -15,9 +15,9 @@ import time
 
 import pytest
 
-from runner.ledger.operations import Ledger
-from runner.execution.worker import Worker
-from runner.ledger.workspace import init
+from orbitledger.runner.ledger.operations import Ledger
+from orbitledger.runner.execution.worker import Worker
+from orbitledger.runner.ledger.workspace import init
 from helpers import (ROOT, assert_no_double_commit, final_state, samples_bytes,
                      small_spec, small_spec_text)
 
@@ -31,7 +31,7 @@ def _spawn(ws, failpoints=None):
     env.pop("ORBITLEDGER_FAILPOINTS", None)
     if failpoints:
         env["ORBITLEDGER_FAILPOINTS"] = failpoints
-    return subprocess.Popen([sys.executable, "-m", "runner.cli", "work", "--workspace", str(ws),
+    return subprocess.Popen([sys.executable, "-m", "orbitledger.runner.cli", "work", "--workspace", str(ws),
                              "--quiet", "--lease", "5"], cwd=ROOT, env=env,
                             stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
 
@@ -48,7 +48,7 @@ def test_sigkill_at_random_moments_resumes_bit_for_bit(tmp_path):
     ws, led = init(tmp_path / "ws")
     spec_file = tmp_path / "job.toml"
     spec_file.write_text(small_spec_text(**LONG))
-    from runner.inputs import spec as spec_mod
+    from orbitledger.runner.inputs import spec as spec_mod
 
     jid = led.submit(spec_mod.load(spec_file))
     rng = random.Random(20261202)

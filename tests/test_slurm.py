@@ -13,11 +13,11 @@ import time
 import pytest
 from typer.testing import CliRunner
 
-from runner.inputs import spec as S
-from runner.cli import app
-from runner.ledger.operations import Ledger
-from runner.execution.worker import Worker
-from runner.ledger.workspace import init
+from orbitledger.runner.inputs import spec as S
+from orbitledger.runner.cli import app
+from orbitledger.runner.ledger.operations import Ledger
+from orbitledger.runner.execution.worker import Worker
+from orbitledger.runner.ledger.workspace import init
 from conftest import SERVICES, new_pg_database
 from helpers import final_state, samples_bytes, small_spec_text
 
@@ -118,7 +118,7 @@ def test_batch_refuses_sqlite_and_writes_no_password(tmp_path):
     led.close()
     res = CliRunner().invoke(app, ["batch", "--workspace", str(ws)])
     assert res.exit_code == 2 and "needs a database all nodes share" in res.stderr
-    from runner.execution.slurm import script
+    from orbitledger.runner.execution.slurm import script
 
     text = script(ws, 3, 3600, 120)
     assert "#SBATCH --array=0-2" in text and "#SBATCH --signal=B:USR1@120" in text

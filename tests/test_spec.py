@@ -11,9 +11,9 @@ import numpy as np
 import pytest
 from typer.testing import CliRunner
 
-from runner.inputs import spec as S
-from runner.cli import app
-from runner.errors import SpecError
+from orbitledger.runner.inputs import spec as S
+from orbitledger.runner.cli import app
+from orbitledger.runner.errors import SpecError
 from helpers import small_spec_text
 
 GOOD = small_spec_text()

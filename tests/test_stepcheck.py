@@ -5,9 +5,9 @@ import math
 import pytest
 from typer.testing import CliRunner
 
-from runner.inputs import spec as S
-from runner.cli import app
-from runner.inputs.stepcheck import MIN_STEPS_PER_PASSAGE, advice, resolution, summary
+from orbitledger.runner.inputs import spec as S
+from orbitledger.runner.cli import app
+from orbitledger.runner.inputs.stepcheck import MIN_STEPS_PER_PASSAGE, advice, resolution, summary
 from helpers import small_spec, small_spec_text
 
 ONE_PLANET = """

@@ -3,7 +3,7 @@
 import numpy as np
 import pytest
 
-from integrators import Leapfrog, StopConditions, StopKind, System, WisdomHolman
+from orbitledger.integrators import Leapfrog, StopConditions, StopKind, System, WisdomHolman
 
 
 def two_planets(phase_b=30.0):

@@ -4,8 +4,8 @@ import numpy as np
 import pytest
 import xarray as xr
 
-from runner import defaults
-from runner.store.zarr_store import Store, state_layout
+from orbitledger.runner import defaults
+from orbitledger.runner.store.zarr_store import Store, state_layout
 
 BODIES = ["Star", "b", "c", "d"]
 

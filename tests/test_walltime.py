@@ -2,7 +2,7 @@
 
 import pytest
 
-from runner.inputs.walltime import WallTimeError, parse_wall
+from orbitledger.runner.inputs.walltime import WallTimeError, parse_wall
 
 
 @pytest.mark.parametrize("text,seconds", [

@@ -6,8 +6,8 @@ import sys
 import numpy as np
 import pytest
 
-from integrators import Leapfrog, WisdomHolman, correctors
-from integrators.wisdom_holman import _stage_arrays, apply_stages
+from orbitledger.integrators import Leapfrog, WisdomHolman, correctors
+from orbitledger.integrators.wisdom_holman import _stage_arrays, apply_stages
 
 sys.path.insert(0, __file__.rsplit("/", 1)[0])
 from conftest import solar_subset  # noqa: E402

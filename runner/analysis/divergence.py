@@ -2,7 +2,7 @@
 
 import numpy as np
 
-from runner.errors import LedgerError
+from orbitledger.runner.errors import LedgerError
 
 
 def reversibility(ledger, backward_id):
@@ -75,7 +75,7 @@ def describe_divergence(fit):
 
 def states_from_samples(samples, gm):
     """Heliocentric positions and velocities (n_samples, n_bodies-1, 3) from sampled elements."""
-    from integrators import elements as el
+    from orbitledger.integrators import elements as el
 
     els = samples["elements"]
     ns, nb, _ = els.shape
@@ -183,7 +183,7 @@ def _shadow_estimates(ledger, job_id, row, fit, common_days):
     common span too (the exponent of a system heading for instability
     grows). At least 200 renormalisations per stretch, at most one per output.
     """
-    from runner.analysis.lyapunov import job_lyapunov
+    from orbitledger.runner.analysis.lyapunov import job_lyapunov
 
     dt = abs(row["dt"])
     done = int(row["steps_done"])

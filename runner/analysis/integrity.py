@@ -11,11 +11,11 @@
 from dataclasses import dataclass, field
 import random
 
-from integrators import Integrator
+from orbitledger.integrators import Integrator
 
-from runner.errors import StoreError
-from runner.ledger.operations import GENESIS
-from runner.store.zarr_store import chain_sha256, samples_sha256
+from orbitledger.runner.errors import StoreError
+from orbitledger.runner.ledger.operations import GENESIS
+from orbitledger.runner.store.zarr_store import chain_sha256, samples_sha256
 
 
 @dataclass
@@ -107,7 +107,7 @@ def replay(ledger, job_id, indices=None, sample=None, seed=None):
         arrays = ledger.store.read_checkpoint(job_id, a["idx"], a["fence"], a["state_sha256"])
         integ = Integrator.from_state_arrays(arrays)
         integ.advance(b["step"] - a["step"])
-        from runner.store.zarr_store import state_sha256, to_storable
+        from orbitledger.runner.store.zarr_store import state_sha256, to_storable
 
         out.append((k, state_sha256(to_storable(integ.state_arrays())) == b["state_sha256"]))
     return out

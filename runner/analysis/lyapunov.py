@@ -22,7 +22,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from runner.errors import LedgerError
+from orbitledger.runner.errors import LedgerError
 
 WINDOWS = 10  # windows of the batch-means error
 DISCARD_FRACTION = 0.1  # share of the intervals left out at the start (at most 50)
@@ -126,7 +126,7 @@ def integration_lyapunov(integ, steps_per_interval, intervals, d0=D0, seed=1,
     either (close encounter, ejection...) ends the estimate there. Returns
     (LyapunovEstimate, exponent per year, its error per year).
     """
-    from integrators import Integrator
+    from orbitledger.integrators import Integrator
 
     if not hasattr(integ, "xj"):
         raise LedgerError(f"the {integ.method} method keeps no Jacobi state to shadow.")

@@ -20,7 +20,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from runner.ledger.status import JobStatus
+from orbitledger.runner.ledger.status import JobStatus
 
 UNSTABLE = ("close_encounter", "ejection", "star_collision", "eccentricity")
 YEAR_D = 365.25
@@ -122,7 +122,7 @@ def summary_rows(summary):
 
 def ensemble_section(ledger, ensemble_id):
     """HTML section of an ensemble's outcomes (table, statistics, survival plot)."""
-    from runner.presentation import plots
+    from orbitledger.runner.presentation import plots
 
     ens = ledger.ensemble(ensemble_id)
     s = summarise(ledger.jobs(ensemble_id=ensemble_id))

@@ -15,9 +15,9 @@ import subprocess
 import sys
 from pathlib import Path
 
-from runner import defaults
-from runner.errors import LedgerError
-from runner.ledger.workspace import db_url
+from orbitledger.runner import defaults
+from orbitledger.runner.errors import LedgerError
+from orbitledger.runner.ledger.workspace import db_url
 
 # Seconds between the worker's own deadline and SLURM's warning signal.
 DEADLINE_SLACK = 30
@@ -31,8 +31,9 @@ def check_shared_db(url):
 
 
 def script(workspace, tasks, wall_seconds, margin, name="orbitledger", partition=None,
-           python=None, lease=defaults.LEASE_SECONDS):
-    """The text of an sbatch array script."""
+           program=None, lease=defaults.LEASE_SECONDS):
+    """The text of an sbatch array script; its tasks run the `orbitledger` program
+    (the console script beside this Python unless ``program`` names another)."""
     if tasks < 1:
         raise LedgerError(f"--tasks must be at least 1, got {tasks}.")
     if wall_seconds < 120:
@@ -42,7 +43,7 @@ def script(workspace, tasks, wall_seconds, margin, name="orbitledger", partition
     ws = Path(workspace).resolve()
     minutes = int(-(-wall_seconds // 60))
     deadline = max(30, minutes * 60 - margin - DEADLINE_SLACK)
-    py = shlex.quote(python or sys.executable)
+    prog = shlex.quote(program or os.path.join(os.path.dirname(sys.executable), "orbitledger"))
     lines = [
         "#!/bin/bash",
         f"#SBATCH --job-name={name}",
@@ -67,7 +68,7 @@ def script(workspace, tasks, wall_seconds, margin, name="orbitledger", partition
         f"export ORBITLEDGER_WORKSPACE={shlex.quote(str(ws))}",
         f'echo "task ${{SLURM_ARRAY_TASK_ID:-0}} of job ${{SLURM_JOB_ID}}, '
         f'restart ${{SLURM_RESTART_COUNT:-0}}, on $(hostname)"',
-        f"{py} -m runner.cli work --quiet --lease {lease:g} --deadline '{deadline} s' &",
+        f"{prog} work --quiet --lease {lease:g} --deadline '{deadline} s' &",
         "pid=$!",
         "# The warning signal reaches this shell; pass it to the worker, which",
         "# checkpoints at its next safe point.",

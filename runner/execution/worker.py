@@ -17,18 +17,18 @@ import time
 
 import numpy as np
 
-from runner import defaults
-from runner.ledger import provenance
-from runner.execution import signals as stopflag
-from integrators import StopKind
+from orbitledger.runner import defaults
+from orbitledger.runner.ledger import provenance
+from orbitledger.runner.execution import signals as stopflag
+from orbitledger.integrators import StopKind
 
-from runner.errors import FencedError, NumericalFailureError, StoreError
-from runner.ledger.operations import angmom0, repair_by_replay
-from runner.store.sampling import SampleBuffer, sample_now
-from runner.store.zarr_store import state_layout
-from runner.execution.failpoints import failpoint
-from runner.ledger.status import ACTIVE, JobStatus
-from runner.execution.worklog import LOG
+from orbitledger.runner.errors import FencedError, NumericalFailureError, StoreError
+from orbitledger.runner.ledger.operations import angmom0, repair_by_replay
+from orbitledger.runner.store.sampling import SampleBuffer, sample_now
+from orbitledger.runner.store.zarr_store import state_layout
+from orbitledger.runner.execution.failpoints import failpoint
+from orbitledger.runner.ledger.status import ACTIVE, JobStatus
+from orbitledger.runner.execution.worklog import LOG
 
 STOP_SIGNALS = stopflag.STOP_SIGNALS
 
@@ -390,4 +390,4 @@ def run_pool(argv_one, n_workers):
 
 def self_command():
     """argv that starts this program again (for worker subprocesses)."""
-    return [sys.executable, "-m", "runner.cli"]
+    return [sys.executable, "-m", "orbitledger.runner.cli"]

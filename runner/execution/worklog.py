@@ -13,7 +13,7 @@ _LEVELS = {"debug": logging.DEBUG, "info": logging.INFO, "warning": logging.WARN
 
 def setup_logging(level=None, path=None, quiet_default=False):
     """Send the work log to `path` (appended) or standard error at `level`."""
-    from runner.errors import OrbitLedgerError
+    from orbitledger.runner.errors import OrbitLedgerError
 
     if level is not None and level.lower() not in _LEVELS:
         raise OrbitLedgerError(f"--log-level must be one of debug, info, warning, got {level!r}.")

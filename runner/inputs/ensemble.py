@@ -16,8 +16,8 @@ relative to the unperturbed value when ``relative = true``):
 
 import numpy as np
 
-from runner.errors import SpecError
-from runner.inputs.units import parse_quantity
+from orbitledger.runner.errors import SpecError
+from orbitledger.runner.inputs.units import parse_quantity
 
 # Unit kind of the perturbation size, by quantity.
 _KIND = {"a": "length", "i": "angle", "mean_anomaly": "angle", "x": "length", "y": "length",

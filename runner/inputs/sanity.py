@@ -13,7 +13,7 @@ import math
 
 import numpy as np
 
-from runner.errors import SpecError
+from orbitledger.runner.errors import SpecError
 
 # Bytes of one sample row besides the elements: time, step, energy and
 # angular-momentum errors (8 bytes each).
@@ -73,7 +73,7 @@ def check(plan, spec):
 
 def _farthest(plan):
     """(body index, largest distance from the star its starting orbit reaches)."""
-    from integrators.elements import from_state
+    from orbitledger.integrators.elements import from_state
 
     sysm = plan.system
     out = []
@@ -87,7 +87,7 @@ def _farthest(plan):
 
 
 def _check_step(plan, spec):
-    from runner.inputs.stepcheck import resolution
+    from orbitledger.runner.inputs.stepcheck import resolution
 
     res = resolution(plan)
     if not res or spec.method.allow_long_step:

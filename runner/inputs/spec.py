@@ -16,12 +16,12 @@ from typing import Literal
 
 from pydantic import BaseModel, ConfigDict, ValidationError, field_validator
 
-from integrators import CORRECTOR_ORDERS, METHODS, StopConditions, System
-from integrators.constants import G
+from orbitledger.integrators import CORRECTOR_ORDERS, METHODS, StopConditions, System
+from orbitledger.integrators.constants import G
 
-from runner import defaults
-from runner.errors import SpecError
-from runner.inputs.units import parse_quantity
+from orbitledger.runner import defaults
+from orbitledger.runner.errors import SpecError
+from orbitledger.runner.inputs.units import parse_quantity
 
 _NAME_RE = re.compile(r"^[A-Za-z0-9][A-Za-z0-9 ._+-]{0,99}$")
 _STEPS_RE = re.compile(r"^\s*([0-9]+)\s*steps?\s*$")
@@ -296,7 +296,7 @@ def _steps(key, value, dt, default=None):
 
 
 def _body_state(key, body, mu):
-    from integrators import elements as el
+    from orbitledger.integrators import elements as el
 
     has_el = body.a is not None or body.e is not None
     has_xv = body.position is not None or body.velocity is not None
@@ -349,7 +349,7 @@ def build_system(sysspec, ensemble=None, member=None):
     With an ensemble rule and a member index, that member's perturbation is
     applied (see :mod:`runner.inputs.ensemble`).
     """
-    from integrators.system import inertial_from_jacobi, jacobi_mu
+    from orbitledger.integrators.system import inertial_from_jacobi, jacobi_mu
 
     if len(sysspec.bodies) < 1:
         raise SpecError("`system.bodies` must list at least one body; add a [[system.bodies]] table.")
@@ -381,7 +381,7 @@ def build_system(sysspec, ensemble=None, member=None):
     mu = jacobi_mu(gm_arr) if sysspec.frame == "jacobi" else gm_arr[0] + gm_arr
     target, offset = None, 0.0
     if ensemble is not None:
-        from runner.inputs.ensemble import member_offset
+        from orbitledger.runner.inputs.ensemble import member_offset
 
         target, offset = member_offset(sysspec, ensemble, member)
     for k, b in enumerate(sysspec.bodies):
@@ -463,7 +463,7 @@ def resolve(spec):
     plan = Plan(system, spec.method.name, dt, spec.method.corrector, spec.method.relativity,
                 int(total), int(chunk), int(output), stops, spec.budget.energy,
                 spec.budget.angular_momentum, spec.budget.on_exceed)
-    from runner.inputs.sanity import check
+    from orbitledger.runner.inputs.sanity import check
 
     check(plan, spec)
     return plan

@@ -16,8 +16,8 @@ about ten steps per pericentre passage the map's error rises steeply.
 from dataclasses import dataclass
 import math
 
-from integrators.elements import from_state
-from integrators.system import jacobi_from_inertial, jacobi_mu
+from orbitledger.integrators.elements import from_state
+from orbitledger.integrators.system import jacobi_from_inertial, jacobi_mu
 
 MIN_STEPS_PER_PASSAGE = 10.0
 

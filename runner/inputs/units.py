@@ -8,7 +8,7 @@ import math
 
 import astropy.units as u
 
-from runner.errors import SpecError
+from orbitledger.runner.errors import SpecError
 
 _KIND_UNITS = {
     "time": u.day,

@@ -10,7 +10,7 @@ Accepted, in seconds out:
 
 import re
 
-from runner.errors import OrbitLedgerError
+from orbitledger.runner.errors import OrbitLedgerError
 
 _UNITS = {
     "s": 1, "sec": 1, "secs": 1, "second": 1, "seconds": 1,

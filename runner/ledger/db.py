@@ -10,8 +10,8 @@ from sqlalchemy import (BigInteger, Column, Float, ForeignKey, Index, Integer, M
                         String, Table, Text, create_engine, event)
 from sqlalchemy.engine import make_url
 
-from runner import defaults
-from runner.errors import LedgerError
+from orbitledger.runner import defaults
+from orbitledger.runner.errors import LedgerError
 
 metadata = MetaData()
 

@@ -13,13 +13,13 @@ import time
 import numpy as np
 from sqlalchemy import and_, func, insert, or_, select, update
 
-from runner import defaults
-from runner.ledger.db import (checkpoints, create_schema, ensembles, events, is_sqlite, jobs, make_engine,
+from orbitledger.runner import defaults
+from orbitledger.runner.ledger.db import (checkpoints, create_schema, ensembles, events, is_sqlite, jobs, make_engine,
                  segments)
-from runner.errors import FencedError, LedgerError, NotFoundError
-from runner.execution.failpoints import failpoint
-from runner.ledger.status import JobStatus, check_transition
-from runner.store.zarr_store import Store, chain_sha256
+from orbitledger.runner.errors import FencedError, LedgerError, NotFoundError
+from orbitledger.runner.execution.failpoints import failpoint
+from orbitledger.runner.ledger.status import JobStatus, check_transition
+from orbitledger.runner.store.zarr_store import Store, chain_sha256
 
 GENESIS = "0" * 64  # chain link before checkpoint 0
 
@@ -70,13 +70,13 @@ class Ledger:
         self.lease_seconds = float(lease_seconds)
         from sqlalchemy.exc import SQLAlchemyError
 
-        from runner.ledger.db import redact
+        from orbitledger.runner.ledger.db import redact
 
         self.read_only = False
         try:
             create_schema(self.engine)
         except SQLAlchemyError as err:
-            from runner.ledger.db import read_only_engine
+            from orbitledger.runner.ledger.db import read_only_engine
 
             ro = read_only_engine(url)
             if ro is None:
@@ -142,7 +142,7 @@ class Ledger:
 
         Returns (ensemble id, [member job ids]).
         """
-        from runner.inputs.ensemble import member_spec
+        from orbitledger.runner.inputs.ensemble import member_spec
 
         now = _now(now)
         members = [member_spec(spec, k) for k in range(spec.ensemble.members)]
@@ -156,14 +156,14 @@ class Ledger:
 
     def _submit_in(self, conn, spec, now, priority, ensemble_id, plan, integrator, parent):
         if plan is None:
-            from runner.inputs.spec import resolve
+            from orbitledger.runner.inputs.spec import resolve
 
             plan = resolve(spec)
         integ = integrator if integrator is not None else plan.make_integrator()
         sysm = integ.synchronized()
         energy0 = integ.energy()
         angmom0 = integ.angular_momentum()
-        from runner.store.sampling import sample_now
+        from orbitledger.runner.store.sampling import sample_now
 
         first = sample_now(integ, energy0, angmom0)
         total = integ.step + plan.total_steps if parent else plan.total_steps
@@ -199,7 +199,7 @@ class Ledger:
         It starts from that checkpoint's exact internal state and runs back to
         the forward job's start. Returns the new job id.
         """
-        from runner.inputs.spec import from_json, resolve
+        from orbitledger.runner.inputs.spec import from_json, resolve
 
         integ, ck = self.load_integrator(job_id, checkpoint)
         if ck["step"] == 0:
@@ -446,7 +446,7 @@ class Ledger:
 
     def _trim_finished(self, job_id, n_samples):
         """Leave exactly the committed sample rows of a job that will never run again."""
-        from runner.errors import StoreError
+        from orbitledger.runner.errors import StoreError
 
         try:
             self.store.trim_samples(job_id, int(n_samples))
@@ -639,7 +639,7 @@ class Ledger:
         ``checkpoint`` is an index (default: the last); ``row`` a checkpoint
         row already read (a claim carries the last one).
         """
-        from integrators import Integrator
+        from orbitledger.integrators import Integrator
 
         if row is not None:
             ck = row
@@ -662,9 +662,9 @@ def repair_by_replay(ledger, job_id, claim=None):
     rewritten in the store. Returns (integrator at the last checkpoint, its
     row, [indices rewritten]). Raises StoreError if nothing can be recovered.
     """
-    from integrators import Integrator
+    from orbitledger.integrators import Integrator
 
-    from runner.errors import StoreError
+    from orbitledger.runner.errors import StoreError
 
     cks = ledger.checkpoints(job_id)
     good = None
@@ -717,13 +717,13 @@ def _dead_local_owners(conn):
 
 
 def _spec_json(spec):
-    from runner.inputs.spec import canonical_json
+    from orbitledger.runner.inputs.spec import canonical_json
 
     return canonical_json(spec)
 
 
 def _spec_sha(spec):
-    from runner.inputs.spec import spec_sha256
+    from orbitledger.runner.inputs.spec import spec_sha256
 
     return spec_sha256(spec)
 

@@ -8,7 +8,7 @@ or it would take the job from under its worker).
 
 from enum import Enum
 
-from runner.errors import TransitionError
+from orbitledger.runner.errors import TransitionError
 
 
 class JobStatus(str, Enum):

@@ -3,9 +3,9 @@
 import os
 from pathlib import Path
 
-from runner import defaults
-from runner.errors import NotFoundError
-from runner.ledger.operations import Ledger
+from orbitledger.runner import defaults
+from orbitledger.runner.errors import NotFoundError
+from orbitledger.runner.ledger.operations import Ledger
 
 MARKER = "orbitledger-workspace"
 

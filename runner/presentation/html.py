@@ -3,10 +3,10 @@
 import json
 import time
 
-from runner.presentation import plots
-from runner.analysis.budgets import audit_job
-from runner.presentation.tables import format_duration, outcome_text, progress_fraction
-from runner.inputs.units import format_time
+from orbitledger.runner.presentation import plots
+from orbitledger.runner.analysis.budgets import audit_job
+from orbitledger.runner.presentation.tables import format_duration, outcome_text, progress_fraction
+from orbitledger.runner.inputs.units import format_time
 
 
 def job_report(ledger, job_id, compare_with=None):
@@ -51,7 +51,7 @@ def job_report(ledger, job_id, compare_with=None):
                              f"{plots.png_data_uri(plots.elements_figure(samples, names[1:], title))}'>"),
     ]
     if compare_with is not None:
-        from runner.analysis.divergence import compare_jobs, describe_divergence
+        from orbitledger.runner.analysis.divergence import compare_jobs, describe_divergence
 
         t, d, fit = compare_jobs(ledger, job_id, compare_with)
         text = describe_divergence(fit)

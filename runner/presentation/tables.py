@@ -5,8 +5,8 @@ import time
 
 from rich.table import Table
 
-from runner.ledger.status import JobStatus
-from runner.inputs.units import format_time
+from orbitledger.runner.ledger.status import JobStatus
+from orbitledger.runner.inputs.units import format_time
 
 MYR_D = 365.25e6  # days in a megayear
 
@@ -126,7 +126,7 @@ def show_tables(ledger, job_id):
 
 def _step_resolution(row):
     """The least resolved orbit at the job's start (see runner.inputs.stepcheck)."""
-    from runner.inputs.spec import from_json, resolve
-    from runner.inputs.stepcheck import summary
+    from orbitledger.runner.inputs.spec import from_json, resolve
+    from orbitledger.runner.inputs.stepcheck import summary
 
     return summary(resolve(from_json(row["spec_json"])))

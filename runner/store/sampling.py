@@ -2,7 +2,7 @@
 
 import numpy as np
 
-from integrators.constants import G
+from orbitledger.integrators.constants import G
 
 
 class SampleBuffer:

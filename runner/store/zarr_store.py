@@ -27,9 +27,9 @@ from pathlib import Path
 import numpy as np
 import zarr
 
-from runner import defaults
-from runner.errors import StoreError
-from runner.execution.failpoints import failpoint
+from orbitledger.runner import defaults
+from orbitledger.runner.errors import StoreError
+from orbitledger.runner.execution.failpoints import failpoint
 
 ELEMENT_NAMES = ["a", "e", "i", "node", "peri", "mean_anomaly"]
 _SERIES = {

@@ -21,10 +21,10 @@ from numba import njit
 HERE = os.path.dirname(os.path.abspath(__file__))
 sys.path.insert(0, os.path.dirname(os.path.dirname(HERE)))
 
-from integrators.constants import G  # noqa: E402
-from integrators.elements import to_state  # noqa: E402
-from integrators.kepler import drift_row  # noqa: E402
-from runner.analysis.budgets import fit_growth  # noqa: E402
+from orbitledger.integrators.constants import G  # noqa: E402
+from orbitledger.integrators.elements import to_state  # noqa: E402
+from orbitledger.integrators.kepler import drift_row  # noqa: E402
+from orbitledger.runner.analysis.budgets import fit_growth  # noqa: E402
 
 DRIFTS = 2_000_000
 SAMPLES = 100

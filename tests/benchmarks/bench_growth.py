@@ -24,9 +24,9 @@ sys.path.insert(0, os.path.dirname(os.path.dirname(HERE)))
 sys.path.insert(0, os.path.dirname(HERE))
 
 from helpers import small_spec  # noqa: E402
-from runner.inputs import spec as S  # noqa: E402
-from runner.analysis.budgets import fit_growth  # noqa: E402
-from runner.store.sampling import SampleBuffer  # noqa: E402
+from orbitledger.runner.inputs import spec as S  # noqa: E402
+from orbitledger.runner.analysis.budgets import fit_growth  # noqa: E402
+from orbitledger.runner.store.sampling import SampleBuffer  # noqa: E402
 
 
 def main():

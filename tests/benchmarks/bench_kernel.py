@@ -20,9 +20,9 @@ HERE = os.path.dirname(os.path.abspath(__file__))
 ROOT = os.path.dirname(os.path.dirname(HERE))
 sys.path.insert(0, ROOT)
 
-from integrators import WisdomHolman  # noqa: E402
-from integrators.nbody import accelerations, energy  # noqa: E402
-from runner.inputs import spec as spec_mod  # noqa: E402
+from orbitledger.integrators import WisdomHolman  # noqa: E402
+from orbitledger.integrators.nbody import accelerations, energy  # noqa: E402
+from orbitledger.runner.inputs import spec as spec_mod  # noqa: E402
 
 
 def bench_system(spec_file):
@@ -104,7 +104,7 @@ def dop853_at_matched_error(system, dt, span, target):
 
 def warm_start_seconds():
     code = ("import time; t=time.perf_counter(); import sys; sys.path.insert(0, %r);"
-            "from integrators import WisdomHolman, System;"
+            "from orbitledger.integrators import WisdomHolman, System;"
             "s = System.from_elements(['S','p'], [1.0, 1e-3], [[1.0, 0.1, 0, 0, 0, 0]]);"
             "w = WisdomHolman(s, 1.0, corrector=5); w.advance(1); w.energy();"
             "print(time.perf_counter()-t)") % ROOT
@@ -136,7 +136,7 @@ def main():
         # The C merged run and the numba kernel follow the same trajectory.
         sync = WisdomHolman(system, dt)
         sync.advance(args.steps)
-        from integrators.wisdom_holman import drift_all
+        from orbitledger.integrators.wisdom_holman import drift_all
 
         xj, vj = sync.xj.copy(), sync.vj.copy()
         drift_all(xj, vj, sync.mu, 0.5 * dt)

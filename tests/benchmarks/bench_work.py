@@ -27,9 +27,9 @@ HERE = os.path.dirname(os.path.abspath(__file__))
 ROOT = os.path.dirname(os.path.dirname(HERE))
 sys.path.insert(0, ROOT)
 
-from runner.inputs import spec as spec_mod  # noqa: E402
-from runner.ledger.operations import Ledger  # noqa: E402
-from runner.execution.worker import Worker  # noqa: E402
+from orbitledger.runner.inputs import spec as spec_mod  # noqa: E402
+from orbitledger.runner.ledger.operations import Ledger  # noqa: E402
+from orbitledger.runner.execution.worker import Worker  # noqa: E402
 
 STEPS = 1_000_000
 
@@ -71,7 +71,7 @@ def worker_warm(spec, led):
 
 def resume_latency(spec, tmp, repeats=5):
     shutil.rmtree(tmp, ignore_errors=True)
-    from runner.ledger.workspace import init
+    from orbitledger.runner.ledger.workspace import init
 
     ws, led = init(tmp)
     led.submit(spec)
@@ -83,7 +83,7 @@ def resume_latency(spec, tmp, repeats=5):
     for _ in range(repeats):
         env = dict(os.environ, ORBITLEDGER_FAILPOINTS="first_step:1")
         t = time.perf_counter()
-        subprocess.run([sys.executable, "-m", "runner.cli", "work", "--workspace", str(ws),
+        subprocess.run([sys.executable, "-m", "orbitledger.runner.cli", "work", "--workspace", str(ws),
                         "--quiet"], env=env, cwd=ROOT)
         times.append(time.perf_counter() - t)
     return min(times), max(times)

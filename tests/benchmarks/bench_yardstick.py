@@ -22,8 +22,8 @@ ROOT = os.path.dirname(os.path.dirname(HERE))
 sys.path.insert(0, ROOT)
 BENCH = os.path.join(os.path.dirname(ROOT), "shared", "bench")
 
-from integrators import System, WisdomHolman  # noqa: E402
-from integrators.system import inertial_from_jacobi  # noqa: E402
+from orbitledger.integrators import System, WisdomHolman  # noqa: E402
+from orbitledger.integrators.system import inertial_from_jacobi  # noqa: E402
 
 
 def our_system(mass, jac, G):
