@@ -12,8 +12,27 @@ from orbitledger.runner import defaults
 from orbitledger.runner.execution import signals as stopflag
 from orbitledger.runner.errors import OrbitLedgerError
 
-app = typer.Typer(add_completion=False, no_args_is_help=True, pretty_exceptions_show_locals=False,
+app = typer.Typer(add_completion=True, no_args_is_help=True, pretty_exceptions_show_locals=False,
+                  rich_markup_mode=None,
                   help="Queue, run, resume and audit long planetary-system integrations.")
+
+
+def _version(value: bool):
+    if value:
+        from importlib.metadata import PackageNotFoundError, version
+
+        try:
+            print(f"orbitledger {version('orbitledger')}")
+        except PackageNotFoundError:
+            print("orbitledger (not installed)")
+        raise typer.Exit(0)
+
+
+@app.callback()
+def _main(version: Annotated[Optional[bool], typer.Option(
+        "--version", callback=_version, is_eager=True,
+        help="Print the version and exit.")] = None):
+    """Queue, run, resume and audit long planetary-system integrations."""
 # Wide tables when output goes to a file or pipe (rich would assume 80 columns).
 out = Console(width=None if sys.stdout.isatty() else 150)
 err = Console(stderr=True, width=None if sys.stderr.isatty() else 400)

@@ -105,3 +105,11 @@ def test_export_carries_provenance(tmp_path):
     for lib in ("python", "numpy", "numba", "zarr", "sqlalchemy", "orbitledger"):
         assert lib in seg["versions"], lib
     assert len(rec["checkpoints"]) == rec["job"]["n_checkpoints"] + 1
+
+
+def test_version_completion_and_plain_flags(tmp_path):
+    res = runner.invoke(app, ["--version"])
+    assert res.exit_code == 0 and res.stdout.startswith("orbitledger ")
+    text = runner.invoke(app, ["--help"]).stdout
+    assert "--install-completion" in text
+    assert "<bool>" not in runner.invoke(app, ["work", "--help"]).stdout
