@@ -44,6 +44,7 @@ WorkspaceOpt = Annotated[Optional[Path], typer.Option(
 DbOpt = Annotated[Optional[str], typer.Option(
     "--db", envvar=defaults.ENV_DB,
     help="Database URL (default: the workspace's SQLite file).")]
+JsonOpt = Annotated[bool, typer.Option("--json", help="Print JSON (stable keys, units in the key names) instead of tables.")]
 JobArg = Annotated[int, typer.Argument(help="Job id.", min=1, max=2**62)]
 # True when running as the `orbitledger` program (not inside a test's CliRunner).
 _AS_PROGRAM = [False]
@@ -73,6 +74,13 @@ def write_atomic(path, text):
     except BaseException:
         tmp.unlink(missing_ok=True)
         raise
+
+
+def print_json(obj):
+    """Print a record as JSON on stdout."""
+    import json
+
+    print(json.dumps(obj, indent=1, sort_keys=True, allow_nan=False))
 
 
 def fail(message, code=2):
@@ -263,14 +271,20 @@ def _work_with_progress(ledger, end, job, order, beat):
 @_guard
 def status(workspace: WorkspaceOpt = None, db: DbOpt = None,
            ensemble: Annotated[Optional[int], typer.Option(help="Only this ensemble's members.")]
-           = None):
+           = None, as_json: JsonOpt = False):
     """A table of all jobs."""
     from orbitledger.runner.presentation.tables import status_table
 
     with open_ledger(workspace, db) as ledger:
         if ensemble is not None:
             ledger.ensemble(ensemble)  # one line if there is no such ensemble
-        out.print(status_table(ledger.jobs(ensemble_id=ensemble)))
+        rows = ledger.jobs(ensemble_id=ensemble)
+    if as_json:
+        from orbitledger.runner.presentation.records import job_record
+
+        print_json({"jobs": [job_record(r) for r in rows]})
+        return
+    out.print(status_table(rows))
 
 
 @app.command()
@@ -280,7 +294,8 @@ def outcomes(ensemble_id: Annotated[int, typer.Argument(help="Ensemble id.", min
              plot: Annotated[Optional[Path], typer.Option(
                  help="Write the survival curve here (.png or .svg).")] = None,
              html: Annotated[Optional[Path], typer.Option(
-                 help="Write a self-contained HTML report here.")] = None):
+                 help="Write a self-contained HTML report here.")] = None,
+             as_json: JsonOpt = False):
     """An ensemble's outcomes: counts, instability fraction, survival curve."""
     from rich.table import Table
 
@@ -290,6 +305,11 @@ def outcomes(ensemble_id: Annotated[int, typer.Argument(help="Ensemble id.", min
     with open_ledger(workspace, db) as ledger:
         ens = ledger.ensemble(ensemble_id)
         s = summarise(ledger.jobs(ensemble_id=ensemble_id))
+        if as_json:
+            from orbitledger.runner.presentation.records import outcomes_record
+
+            print_json(outcomes_record(ensemble_id, ens["name"], s))
+            return
         t = Table(title=f"Ensemble {ensemble_id}: {ens['name']} ({s.n} members)",
                   header_style="bold")
         for col in ("outcome", "members", "times (yr)"):
@@ -315,11 +335,17 @@ def outcomes(ensemble_id: Annotated[int, typer.Argument(help="Ensemble id.", min
 
 @app.command()
 @_guard
-def show(job_id: JobArg, workspace: WorkspaceOpt = None, db: DbOpt = None):
+def show(job_id: JobArg, workspace: WorkspaceOpt = None, db: DbOpt = None,
+         as_json: JsonOpt = False):
     """One job in detail, with its provenance."""
     from orbitledger.runner.presentation.tables import show_tables
 
     with open_ledger(workspace, db) as ledger:
+        if as_json:
+            from orbitledger.runner.presentation.records import full_record
+
+            print_json(full_record(ledger, job_id))
+            return
         t, p, _ = show_tables(ledger, job_id)
         out.print(t)
         out.print(p)
@@ -365,7 +391,8 @@ app.command("cancel", help="Abandon a job (a running one at its next safe point)
 
 @app.command()
 @_guard
-def audit(job_id: JobArg, workspace: WorkspaceOpt = None, db: DbOpt = None):
+def audit(job_id: JobArg, workspace: WorkspaceOpt = None, db: DbOpt = None,
+          as_json: JsonOpt = False):
     """Energy and angular-momentum budgets: growth law, projection, verdict."""
     from rich.table import Table
 
@@ -373,6 +400,11 @@ def audit(job_id: JobArg, workspace: WorkspaceOpt = None, db: DbOpt = None):
 
     with open_ledger(workspace, db) as ledger:
         verdicts = audit_job(ledger, job_id)
+    if as_json:
+        from orbitledger.runner.presentation.records import audit_record
+
+        print_json(audit_record(job_id, verdicts))
+        return
     t = Table(title=f"Job {job_id}: error budgets", header_style="bold")
     for col in ("quantity", "max so far", "budget", "growth t^alpha", "projected at end", "verdict"):
         t.add_column(col)
@@ -428,7 +460,7 @@ def plot(job_id: JobArg, to: Annotated[Path, typer.Option(help="Image file (.png
 def compare_cmd(job_a: JobArg, job_b: Annotated[int, typer.Argument(help="Other job id.", min=1)],
                 workspace: WorkspaceOpt = None, db: DbOpt = None,
                 plot: Annotated[Optional[Path], typer.Option(help="Divergence plot (.png/.svg).")]
-                = None):
+                = None, as_json: JsonOpt = False):
     """Divergence of two jobs of one system; element ranges side by side."""
     from rich.table import Table
 
@@ -441,6 +473,11 @@ def compare_cmd(job_a: JobArg, job_b: Annotated[int, typer.Argument(help="Other 
         t, d, fit = compare_jobs(ledger, job_a, job_b)
         ra, rb = element_ranges(ledger, job_a), element_ranges(ledger, job_b)
         names = ledger.store.body_names(job_a)[1:]
+    if as_json:
+        from orbitledger.runner.presentation.records import compare_record
+
+        print_json(compare_record(job_a, job_b, t, d, fit, names, ra, rb))
+        return
     out.print(describe_divergence(fit), markup=False, highlight=False)
     tab = Table(title=f"Element ranges: job {job_a} | job {job_b}", header_style="bold")
     for col in ("body", "a (au)", "e", "i (deg)"):
@@ -461,17 +498,11 @@ def export(job_id: JobArg, to: Annotated[Path, typer.Option(help="JSON file to w
     """Write a job's record as JSON: spec, status, checkpoints, provenance of every segment, events."""
     import json
 
+    from orbitledger.runner.presentation.records import full_record
+
     with open_ledger(workspace, db) as ledger:
-        row = ledger.job(job_id)
-        record = {
-            "job": {k: v for k, v in row.items() if k != "spec_json"},
-            "spec": json.loads(row["spec_json"]),
-            "checkpoints": ledger.checkpoints(job_id),
-            "segments": [dict(s, versions=json.loads(s["versions"] or "{}"))
-                         for s in ledger.segments(job_id)],
-            "events": ledger.events(job_id),
-        }
-    write_atomic(to, json.dumps(record, indent=1, sort_keys=True, default=str))
+        record = full_record(ledger, job_id)
+    write_atomic(to, json.dumps(record, indent=1, sort_keys=True, allow_nan=False))
     out.print(f"job {job_id} exported to {to}")
 
 

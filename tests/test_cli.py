@@ -100,11 +100,48 @@ def test_export_carries_provenance(tmp_path):
     rec = json.loads((tmp_path / "j.json").read_text())
     assert rec["job"]["spec_sha256"] and rec["spec"]["method"]["corrector"] == 3
     seg = rec["segments"][0]
-    for key in ("host", "pid", "user", "argv", "platform", "cpu", "started_at", "ended_at"):
+    for key in ("host", "pid", "user", "argv", "platform", "cpu", "started_utc", "ended_utc"):
         assert seg[key] not in (None, ""), key
     for lib in ("python", "numpy", "numba", "zarr", "sqlalchemy", "orbitledger"):
         assert lib in seg["versions"], lib
-    assert len(rec["checkpoints"]) == rec["job"]["n_checkpoints"] + 1
+    assert len(rec["checkpoints"]) == rec["job"]["checkpoints"]
+    # ISO 8601 times with their zone, lists as lists, no JSON inside strings.
+    from datetime import datetime
+
+    assert datetime.fromisoformat(seg["started_utc"]).utcoffset().total_seconds() == 0
+    assert isinstance(rec["job"]["angular_momentum0_au2_per_day"], list)
+    assert rec["body_names"][0] == "Orrin" and rec["job"]["step_days"] == 10.0
+
+
+def test_json_outputs_have_stable_keys_with_units(tmp_path):
+    import json
+
+    ws = _ws(tmp_path)
+    spec = tmp_path / "e.toml"
+    spec.write_text(small_spec_text(length="300 yr") + """
+[ensemble]
+members = 3
+[ensemble.perturb]
+body = "Orrin c"
+quantity = "a"
+size = 1e-10
+relative = true
+""")
+    assert runner.invoke(app, ["submit", str(spec), "--workspace", str(ws)]).exit_code == 0
+    assert runner.invoke(app, ["work", "--workspace", str(ws), "--quiet"]).exit_code == 0
+    wsa = ["--workspace", str(ws), "--json"]
+    st = json.loads(runner.invoke(app, ["status", *wsa]).stdout)
+    assert [j["status"] for j in st["jobs"]] == ["done"] * 3
+    assert st["jobs"][0]["span_yr"] == 300.0 or abs(st["jobs"][0]["span_yr"] - 300) < 0.02
+    show = json.loads(runner.invoke(app, ["show", "1", *wsa]).stdout)
+    assert show["job"]["outcome"] == "survived" and show["checkpoints"][0]["index"] == 0
+    aud = json.loads(runner.invoke(app, ["audit", "1", *wsa]).stdout)
+    assert {b["quantity"] for b in aud["budgets"]} >= {"energy"}
+    out = json.loads(runner.invoke(app, ["outcomes", "1", *wsa]).stdout)
+    assert out["members"] == 3 and out["unstable"] == 0 and out["wilson_95_high"] > 0
+    cmp_ = json.loads(runner.invoke(app, ["compare", "1", "2", *wsa]).stdout)
+    assert cmp_["kind"] == "regular" and "Orrin b" in cmp_["element_ranges"]
+    assert len(cmp_["divergence"]["time_yr"]) == len(cmp_["divergence"]["distance"])
 
 
 def test_version_completion_and_plain_flags(tmp_path):
