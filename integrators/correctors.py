@@ -5,28 +5,71 @@ kick(c h) . drift(-a h), a corrector of order n = 2m + 1 is the product over
 j = 1..m of X(a_j, c_j) X(-a_j, -c_j), with a_j = j alpha, alpha = sqrt(7/40),
 and c_j solving 2 sum_j c_j a_j^(2k-1) / (2k-1)! = t_k for k = 1..m, where t_k
 are the odd Taylor coefficients of 1 / (2 sinh(x/2)) - 1/x (-1/24, 7/5760,
-...). The c_j below were derived exactly (rational arithmetic, then 50-digit
-decimals) and are checked against that derivation by the tests; the order-3
-value equals the published -1/(48 alpha).
+...). The c_j are derived here exactly (rational arithmetic, then 60-digit
+decimals, rounded once to double) for every odd order up to MAX_ORDER, and
+checked by the tests against a derivation written there and the published
+order-3 value -1/(48 alpha).
 """
 
+from decimal import Decimal, localcontext
+from fractions import Fraction
+from functools import lru_cache
 import math
 
 # sqrt(7/40): spacing of the corrector's drift times.
 ALPHA = math.sqrt(7.0 / 40.0)
 
-# c_j by order, 21 significant digits (generated from tests/corrector_derivation.py).
-COEFFICIENTS = {
-    3: (-4.98011920555997349987e-2,),
-    5: (-8.30019867593328916645e-2, 1.66003973518665783329e-2),
-    7: (-1.07928798186254997444e-1, 3.65418464934042629561e-2, -4.98536228538442115581e-3),
-    9: (-1.28083062593487570255e-1, 5.66961109006368357677e-2, -1.36229041741983809322e-2, 1.43959031480232662940e-3),
-    11: (-1.45186789497685477349e-1, 7.62432273625773010173e-2, -2.46181571840398926351e-2, 4.69744305845907083766e-3, -4.07231592957093026033e-4),
-    17: (-1.86112207542851917183e-1, 1.30385727152755787317e-1, -6.48443977294271605874e-2, 2.41435216446845821249e-2, -6.62651541387613113110e-3, 1.27199966151635317966e-3, -1.52872710455871476726e-4, 8.66948309467471603813e-6),
-}
+# Highest order offered. The construction works for any odd order; ours stops
+# here because the corrector's longest drift is (order - 1) / 2 * alpha steps
+# (6.3 steps at 31) and its gain is long below the eps^2 dt^2 floor of the
+# map (Laskar & Robutel 2001) by then. A limit of ours, not of the method.
+MAX_ORDER = 31
 
-# Orders a job may ask for; 0 means no corrector.
-ORDERS = (0,) + tuple(sorted(COEFFICIENTS))
+# Orders a job may ask for: 0 means no corrector, then every odd order >= 3.
+ORDERS = (0,) + tuple(range(3, MAX_ORDER + 1, 2))
+
+
+def _bernoulli(n):
+    """Bernoulli numbers B_0..B_n (B_1 = -1/2), exactly."""
+    b = [Fraction(0)] * (n + 1)
+    b[0] = Fraction(1)
+    for m in range(1, n + 1):
+        b[m] = -sum(math.comb(m + 1, k) * b[k] for k in range(m)) / Fraction(m + 1)
+    return b
+
+
+@lru_cache(maxsize=None)
+def coefficients(order):
+    """The c_j (j = 1..m) of the corrector of an odd order 2m + 1, as floats.
+
+    Solved exactly in rational arithmetic for d_j = alpha c_j, then divided by
+    alpha in 50-digit decimals and rounded once to double.
+    """
+    if order not in ORDERS or order == 0:
+        raise ValueError(f"corrector order must be one of {ORDERS}, got {order}.")
+    m = (order - 1) // 2
+    b = _bernoulli(2 * m)
+    # Odd Taylor coefficients of 1/(2 sinh(x/2)): (1 - 2^(2k-1)) B_2k / ((2k)! 2^(2k-1)).
+    t = [(1 - Fraction(2) ** (2 * k - 1)) * b[2 * k]
+         / (math.factorial(2 * k) * Fraction(2) ** (2 * k - 1)) for k in range(1, m + 1)]
+    rows = [[Fraction(j) ** (2 * k - 1) for j in range(1, m + 1)]
+            + [t[k - 1] * math.factorial(2 * k - 1) / (2 * Fraction(7, 40) ** (k - 1))]
+            for k in range(1, m + 1)]
+    for i in range(m):  # Gauss-Jordan, exact
+        piv = next(r for r in range(i, m) if rows[r][i] != 0)
+        rows[i], rows[piv] = rows[piv], rows[i]
+        for r in range(m):
+            if r != i:
+                f = rows[r][i] / rows[i][i]
+                rows[r] = [a - f * c for a, c in zip(rows[r], rows[i])]
+    with localcontext() as ctx:
+        ctx.prec = 60
+        alpha = (Decimal(7) / Decimal(40)).sqrt()
+        out = []
+        for i in range(m):
+            d = rows[i][m] / rows[i][i]
+            out.append(float(Decimal(d.numerator) / Decimal(d.denominator) / alpha))
+    return tuple(out)
 
 
 def stages(order, sign=1.0):
@@ -38,10 +81,8 @@ def stages(order, sign=1.0):
     """
     if order == 0:
         return []
-    if order not in COEFFICIENTS:
-        raise ValueError(f"corrector order must be one of {ORDERS}, got {order}.")
     seq = []
-    for j, c in enumerate(COEFFICIENTS[order], start=1):
+    for j, c in enumerate(coefficients(order), start=1):
         a = j * ALPHA
         seq.append((a, c))
         seq.append((-a, -c))
