@@ -143,7 +143,10 @@ def submit(spec_file: Annotated[Path, typer.Argument(help="Job spec (TOML).")],
 
     from orbitledger.runner.inputs.sanity import projected_samples, projected_store_bytes
 
-    spec = spec_mod.load(spec_file)  # validated before the ledger is touched
+    notes = []
+    spec = spec_mod.load(spec_file, notes=notes)  # validated before the ledger is touched
+    for line in notes:
+        err.print(line, markup=False, highlight=False)
     with open_ledger(workspace, db) as ledger:
         if spec.ensemble is not None and spec.member is None:
             ens_id, ids = ledger.submit_ensemble(spec, priority=priority)

@@ -45,7 +45,7 @@ def ensemble_text():
     return small_spec_text(name="chaos-ens", length="20000 yr", chunk="20000 steps",
                            output="2000 steps") + """
 [stops]
-eject_distance = "11.79 au"
+escape_distance = "11.79 au"
 [ensemble]
 members = 6
 [ensemble.perturb]

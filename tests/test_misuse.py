@@ -47,7 +47,7 @@ def _cases(tmp="{tmp}"):
         ("coincident bodies", spec("i.toml", good.replace(bodies_c, same_as_b))),
         ("inside the star", spec("j.toml", good.replace('radius = "0.004 au"',
                                                         'radius = "3 au"'))),
-        ("ejection inside an orbit", spec("k.toml", good + '[stops]\neject_distance = "5 au"\n')),
+        ("ejection inside an orbit", spec("k.toml", good + '[stops]\nescape_distance = "5 au"\n')),
         ("step longer than an orbit", spec("l.toml", good.replace('step = "10 d"',
                                                                   'step = "2000 d"'))),
         ("store too large", spec("m.toml", good.replace('output = "500 steps"',

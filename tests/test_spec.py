@@ -126,3 +126,30 @@ def test_state_vector_bodies():
     xh, vh = plan.system.heliocentric()
     assert xh[1][0] == pytest.approx(2.9) and vh[1][1] == pytest.approx(0.0096)
     assert math.isfinite(plan.system.elements()[0][1])
+
+
+def test_stop_keys_of_earlier_versions_are_read_with_a_note(tmp_path):
+    from orbitledger.runner.inputs import spec as S
+    from helpers import cli, small_spec_text
+    from orbitledger.runner.ledger.workspace import init
+
+    old = small_spec_text() + ('[stops]\neject_distance = "50 au"\nstar_radius = "0.01 au"\n'
+                               'unbound = true\nunbound_distance = "30 au"\n')
+    new = small_spec_text() + ('[stops]\nescape_distance = "50 au"\n'
+                               'star_contact_distance = "0.01 au"\n'
+                               'unbound_escape_distance = "30 au"\n')
+    notes = []
+    a, b = S.load_text(old, notes=notes), S.load_text(new)
+    assert S.canonical_json(a) == S.canonical_json(b)
+    st = S.resolve(a).stops
+    assert (st.eject_distance, st.star_radius, st.unbound, st.unbound_distance) == \
+        (50.0, 0.01, True, 30.0)
+    assert any("`stops.eject_distance` is now called `stops.escape_distance`" in n for n in notes)
+    with pytest.raises(S.SpecError, match="same setting under its old and new name"):
+        S.load_text(old.replace('star_radius = "0.01 au"',
+                                'star_radius = "0.01 au"\nstar_contact_distance = "0.01 au"'))
+    ws, led = init(tmp_path / "ws")
+    led.close()
+    (tmp_path / "old.toml").write_text(old)
+    res = cli("submit", tmp_path / "old.toml", "--workspace", ws)
+    assert res.returncode == 0 and "now called `stops.escape_distance`" in res.stderr

@@ -52,13 +52,13 @@ def check(plan, spec):
         if len(inside):
             k = int(inside[0]) + 1
             raise SpecError(f"`{key(k)}` ({names[k]}) starts {r[k - 1]:.6g} au from the star, "
-                            f"inside its radius (`stops.star_radius` = {st.star_radius:.6g} au); "
+                            f"inside its radius (`stops.star_contact_distance` = {st.star_radius:.6g} au); "
                             "move it out or give a smaller radius.")
     if st.eject_distance > 0:
         far = _farthest(plan)
         k, dist = max(far, key=lambda kd: kd[1])
         if dist >= st.eject_distance:
-            raise SpecError(f"`stops.eject_distance` = {st.eject_distance:.6g} au is inside the "
+            raise SpecError(f"`stops.escape_distance` = {st.eject_distance:.6g} au is inside the "
                             f"orbit of {names[k]} (it reaches {dist:.6g} au from the star): it "
                             "would count as ejected at once; give a distance beyond every "
                             "starting orbit.")

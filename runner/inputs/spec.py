@@ -102,10 +102,9 @@ class BudgetSpec(_Strict):
 
 class StopSpec(_Strict):
     hill: float = 0.0
-    eject_distance: str | None = None
-    unbound: bool = False
-    unbound_distance: str = "0 au"
-    star_radius: str | None = None
+    escape_distance: str | None = None
+    unbound_escape_distance: str | None = None
+    star_contact_distance: str | None = None
     max_ecc: float = 0.0
 
     @field_validator("hill", "max_ecc")
@@ -194,10 +193,46 @@ def _one_line(err, data):
     return f"`{key}` {msg[0].lower() + msg[1:]}, got {e.get('input')!r}; {fix}."
 
 
-def parse(data):
-    """Validate a spec given as a dict; raise SpecError with one line on failure."""
+# Stop keys of earlier versions, still read: old key -> new key.
+RENAMED_STOP_KEYS = {"eject_distance": "escape_distance",
+                     "star_radius": "star_contact_distance",
+                     "unbound_distance": "unbound_escape_distance"}
+
+
+def _renamed(data, notes):
+    """The spec with stop keys of earlier versions renamed; a note per renamed key."""
+    stops = data.get("stops")
+    if not isinstance(stops, dict) or not (set(stops) & (set(RENAMED_STOP_KEYS) | {"unbound"})):
+        return data
+    stops = dict(stops)
+    unbound = stops.pop("unbound", None)
+    for old, new in RENAMED_STOP_KEYS.items():
+        if old in stops:
+            if new in stops:
+                raise SpecError(f"`stops.{old}` and `stops.{new}` are the same setting under "
+                                f"its old and new name; keep `stops.{new}`.")
+            value = stops.pop(old)
+            if old != "unbound_distance" or unbound:
+                stops[new] = value
+            notes.append(f"note: `stops.{old}` is now called `stops.{new}`; the spec was "
+                         "read with the new name.")
+    if unbound is not None:
+        if unbound and "unbound_escape_distance" not in stops:
+            stops["unbound_escape_distance"] = "0 au"
+        notes.append("note: `stops.unbound` (with `stops.unbound_distance`) is now "
+                     "`stops.unbound_escape_distance` = the distance; the spec was read so.")
+    return dict(data, stops=stops)
+
+
+def parse(data, notes=None):
+    """Validate a spec given as a dict; raise SpecError with one line on failure.
+
+    Keys renamed since earlier versions are read under their new names; a
+    line about each is appended to `notes` (a list) when one is given.
+    """
     if not isinstance(data, dict):
         raise SpecError("a spec must be a TOML table of keys, got something else.")
+    data = _renamed(data, notes if notes is not None else [])
     try:
         spec = JobSpec.model_validate(data)
     except ValidationError as err:
@@ -206,8 +241,8 @@ def parse(data):
     return spec
 
 
-def load_text(text, source="spec"):
-    """Validate a spec from TOML text."""
+def load_text(text, source="spec", notes=None):
+    """Validate a spec from TOML text (see :func:`parse` for `notes`)."""
     if len(text.encode("utf-8")) > defaults.MAX_SPEC_BYTES:
         raise SpecError(f"{source} is larger than {defaults.MAX_SPEC_BYTES} bytes; "
                         "split the campaign into smaller specs.")
@@ -215,11 +250,11 @@ def load_text(text, source="spec"):
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as err:
         raise SpecError(f"{source} is not valid TOML ({err}); fix the syntax.") from None
-    return parse(data)
+    return parse(data, notes)
 
 
-def load(path):
-    """Validate a spec from a TOML file."""
+def load(path, notes=None):
+    """Validate a spec from a TOML file (see :func:`parse` for `notes`)."""
     try:
         with open(path, "rb") as fh:
             raw = fh.read(defaults.MAX_SPEC_BYTES + 1)
@@ -229,7 +264,7 @@ def load(path):
         text = raw.decode("utf-8")
     except UnicodeDecodeError:
         raise SpecError(f"spec file {path} is not UTF-8 text.") from None
-    return load_text(text, source=f"spec file {path}")
+    return load_text(text, source=f"spec file {path}", notes=notes)
 
 
 def canonical_json(spec):
@@ -447,15 +482,16 @@ def resolve(spec):
         raise SpecError(f"`span.chunk` must be a whole number of outputs, got {spec.span.chunk!r}"
                         f" = {chunk / output:.6g} outputs of `span.output`; make it a multiple.")
     st = spec.stops
-    star_radius = (parse_quantity("stops.star_radius", st.star_radius, "length")
-                   if st.star_radius is not None else float(system.radii[0]))
+    length = lambda key, v: parse_quantity(f"stops.{key}", v, "length")  # noqa: E731
     stops = StopConditions(
         hill=st.hill,
-        eject_distance=(parse_quantity("stops.eject_distance", st.eject_distance, "length")
-                        if st.eject_distance is not None else 0.0),
-        unbound=st.unbound,
-        unbound_distance=parse_quantity("stops.unbound_distance", st.unbound_distance, "length"),
-        star_radius=star_radius,
+        eject_distance=(length("escape_distance", st.escape_distance)
+                        if st.escape_distance is not None else 0.0),
+        unbound=st.unbound_escape_distance is not None,
+        unbound_distance=(length("unbound_escape_distance", st.unbound_escape_distance)
+                          if st.unbound_escape_distance is not None else 0.0),
+        star_radius=(length("star_contact_distance", st.star_contact_distance)
+                     if st.star_contact_distance is not None else float(system.radii[0])),
         max_ecc=st.max_ecc,
     )
     if stops.eject_distance < 0 or stops.star_radius < 0 or stops.unbound_distance < 0:
