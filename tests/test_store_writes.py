@@ -87,3 +87,26 @@ def test_prepared_checkpoint_holds_exactly_the_state_written(tmp_path):
     digest = store.write_checkpoint(1, 2, 3, bigger)
     assert Store(tmp_path / "s").read_checkpoint(1, 2, 3, expect_sha256=digest)["x"].shape \
         == (5, 3)
+
+
+def test_samples_open_in_xarray_as_a_self_describing_dataset(tmp_path):
+    import matplotlib
+
+    matplotlib.use("Agg")
+    from orbitledger.runner.ledger.operations import Ledger
+    from orbitledger.runner.execution.worker import Worker
+    from helpers import small_spec
+
+    led = Ledger(f"sqlite:///{tmp_path}/l.sqlite", tmp_path / "store")
+    jid = led.submit(small_spec(length="300 yr"))
+    Worker(led).run()
+    ds = xr.open_zarr(str(led.store.job_path(jid) / "samples"), consolidated=False)
+    assert {"time", "step", "body", "element"} <= set(ds.coords)
+    assert ds["time"].attrs["units"] == "day"
+    assert list(ds["body"].values) == ["Orrin b", "Orrin c", "Orrin d"]
+    e_c = ds["elements"].sel(body="Orrin c", element="e").values
+    assert e_c[0] == pytest.approx(0.04, abs=1e-9)  # the spec's eccentricity of Orrin c
+    ax = ds["energy_error"].plot(x="time")[0].axes
+    assert " ".join(ax.get_xlabel().split()) == "time since the start of the integration [day]"
+    assert "relative energy error" in ax.get_ylabel()
+    led.close()

@@ -32,6 +32,22 @@ from orbitledger.runner.errors import StoreError
 from orbitledger.runner.execution.failpoints import failpoint
 
 ELEMENT_NAMES = ["a", "e", "i", "node", "peri", "mean_anomaly"]
+ELEMENT_UNITS = ["au", "1", "deg", "deg", "deg", "deg"]
+# CF-style attributes, so that xarray opens a job's samples as a self-describing
+# Dataset: time and step are coordinates of every series, body and element
+# are labelled dimensions.
+_ATTRS = {
+    "time": {"units": "day", "long_name": "time since the start of the integration"},
+    "step": {"long_name": "step number"},
+    "energy_error": {"units": "1", "long_name": "relative energy error (E - E0) / |E0|",
+                     "coordinates": "time step"},
+    "angmom_error": {"units": "1",
+                     "long_name": "relative angular-momentum error |L - L0| / |L0|",
+                     "coordinates": "time step"},
+    "elements": {"long_name": "heliocentric osculating elements (units by element: "
+                              "element_units)", "element_units": ELEMENT_UNITS,
+                 "coordinates": "time step"},
+}
 _SERIES = {
     "time": ("f8", ["sample"]),
     "step": ("i8", ["sample"]),
@@ -378,11 +394,18 @@ class Store:
                 # time series compress poorly anyway.
                 s.create_array(key, shape=(capacity,), dtype=dtype,
                                chunks=(defaults.SAMPLE_CHUNK,), dimension_names=dims,
-                               compressors=None, fill_value=-1 if dtype == "i8" else np.nan)
+                               compressors=None, fill_value=-1 if dtype == "i8" else np.nan,
+                               attributes=_ATTRS[key])
             nb = len(body_names) - 1
             s.create_array("elements", shape=(capacity, nb, 6), dtype="f8", fill_value=np.nan,
                            chunks=(defaults.SAMPLE_CHUNK, nb, 6),
-                           dimension_names=["sample", "body", "element"], compressors=None)
+                           dimension_names=["sample", "body", "element"], compressors=None,
+                           attributes=_ATTRS["elements"])
+            # Labels of the body and element dimensions (written once, never resized).
+            for key, labels in (("body", list(body_names[1:])), ("element", ELEMENT_NAMES)):
+                arr = s.create_array(key, shape=(len(labels),), dtype=str,
+                                     dimension_names=[key], compressors=None)
+                arr[:] = np.array(labels)
             s.attrs["body_names"] = list(body_names[1:])
             g.create_group("checkpoints")
             self._open[int(job_id)] = g
