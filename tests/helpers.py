@@ -95,3 +95,14 @@ def assert_no_double_commit(ledger, job_id):
     row = ledger.job(job_id)
     assert steps[-1] == row["steps_done"]
     assert n[-1] == row["n_samples"]
+
+
+def stepping_clock(step=0.05):
+    """A wall clock for in-process workers that advances `step` seconds per reading."""
+    t = [0.0]
+
+    def clock():
+        t[0] += step
+        return t[0]
+
+    return clock

@@ -23,7 +23,7 @@ from orbitledger.runner.ledger.operations import Ledger
 from orbitledger.runner.ledger.status import JobStatus
 from orbitledger.runner.execution.worker import Worker
 from orbitledger.runner.ledger.workspace import init
-from helpers import ROOT, cli, final_state, samples_bytes, small_spec, small_spec_text
+from helpers import ROOT, cli, final_state, samples_bytes, small_spec, small_spec_text, stepping_clock
 from test_ensemble import ensemble_text
 
 
@@ -141,13 +141,7 @@ def test_cancelled_job_keeps_exactly_its_committed_rows(tmp_path):
 
     led = Ledger(f"sqlite:///{tmp_path}/l.sqlite", tmp_path / "store")
     jid = led.submit(small_spec(length="2000 yr"))
-    t = [0.0]
-
-    def clock():
-        t[0] += 0.05
-        return t[0]
-
-    Worker(led, deadline=0.6, clock=clock, max_steps_per_call=1000).run()
+    Worker(led, deadline=0.6, clock=stepping_clock(), max_steps_per_call=1000).run()
     assert led.hold(jid) == "held"
     assert led.cancel(jid) == "cancelled"
     n = led.job(jid)["n_samples"]
@@ -163,13 +157,7 @@ def test_cancelled_job_keeps_exactly_its_committed_rows(tmp_path):
 def test_damaged_metadata_is_one_line_and_holds_the_job(tmp_path, which):
     ws, led = init(tmp_path / "ws")
     jid = led.submit(small_spec(length="3000 yr"))
-    t = [0.0]
-
-    def clock():
-        t[0] += 0.05
-        return t[0]
-
-    Worker(led, deadline=0.4, clock=clock, max_steps_per_call=1000).run()
+    Worker(led, deadline=0.4, clock=stepping_clock(), max_steps_per_call=1000).run()
     assert led.job(jid)["status"] == "queued"
     base = led.store.job_path(jid)
     meta = (base if which == "job" else base / which) / "zarr.json"
