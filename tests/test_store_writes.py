@@ -101,12 +101,65 @@ def test_samples_open_in_xarray_as_a_self_describing_dataset(tmp_path):
     jid = led.submit(small_spec(length="300 yr"))
     Worker(led).run()
     ds = xr.open_zarr(str(led.store.job_path(jid) / "samples"), consolidated=False)
-    assert {"time", "step", "body", "element"} <= set(ds.coords)
+    assert {"time", "time_yr", "step", "body", "element"} <= set(ds.coords)
     assert ds["time"].attrs["units"] == "day"
+    assert ds["time_yr"].attrs["units"] == "yr"
+    # Julian year of 365.25 d (IAU; e.g. Urban & Seidelmann 2013, Explanatory
+    # Supplement, 3rd ed., table of constants).
+    np.testing.assert_allclose(ds["time_yr"].values * 365.25, ds["time"].values, rtol=1e-15)
     assert list(ds["body"].values) == ["Orrin b", "Orrin c", "Orrin d"]
     e_c = ds["elements"].sel(body="Orrin c", element="e").values
     assert e_c[0] == pytest.approx(0.04, abs=1e-9)  # the spec's eccentricity of Orrin c
     ax = ds["energy_error"].plot(x="time")[0].axes
     assert " ".join(ax.get_xlabel().split()) == "time since the start of the integration [day]"
     assert "relative energy error" in ax.get_ylabel()
+    ax = ds["elements"].sel(body="Orrin b", element="a").plot(x="time_yr")[0].axes
+    assert " ".join(ax.get_xlabel().split()) == (
+        "time since the start of the integration (Julian years of 365.25 d) [yr]")
+    # The job's whole group opens as a tree: samples and checkpoints.
+    tree = xr.open_datatree(str(led.store.job_path(jid)), engine="zarr", consolidated=False)
+    assert {"samples", "checkpoints"} <= set(tree.children)
+    assert "time_yr" in tree["samples"].coords
+    ck = tree["checkpoints"].to_dataset()
+    assert len(ck.data_vars) == len(led.checkpoints(jid))
+    assert all("layout" in v.attrs for v in ck.data_vars.values())
+    led.close()
+
+
+def test_a_store_made_before_time_in_years_still_runs_and_verifies(tmp_path):
+    import shutil
+
+    from orbitledger.runner.analysis.integrity import verify
+    from orbitledger.runner.execution.worker import Worker
+    from orbitledger.runner.ledger.operations import Ledger
+    from helpers import small_spec
+
+    led = Ledger(f"sqlite:///{tmp_path}/l.sqlite", tmp_path / "store")
+    jid = led.submit(small_spec(length="200 yr"))
+    shutil.rmtree(led.store.job_path(jid) / "samples" / "time_yr")  # as earlier versions made it
+    led.close()
+    led = Ledger(f"sqlite:///{tmp_path}/l.sqlite", tmp_path / "store")
+    Worker(led).run()
+    assert led.job(jid)["status"] == "done"
+    assert verify(led, jid).ok
+    assert "time_yr" not in led.store.read_samples(jid)
+    led.close()
+
+
+@pytest.mark.damages_store
+def test_verify_names_a_time_in_years_that_disagrees_with_the_time_in_days(tmp_path):
+    import zarr
+
+    from orbitledger.runner.analysis.integrity import verify
+    from orbitledger.runner.execution.worker import Worker
+    from orbitledger.runner.ledger.operations import Ledger
+    from helpers import small_spec
+
+    led = Ledger(f"sqlite:///{tmp_path}/l.sqlite", tmp_path / "store")
+    jid = led.submit(small_spec(length="200 yr"))
+    Worker(led).run()
+    arr = zarr.open_array(str(led.store.job_path(jid) / "samples" / "time_yr"), mode="r+")
+    arr[3] = arr[3] + 1.0
+    rep = verify(led, jid)
+    assert not rep.ok and "time in years" in rep.problem
     led.close()

@@ -11,8 +11,10 @@
 from dataclasses import dataclass, field
 import random
 
-from orbitledger.integrators import Integrator
+import numpy as np
 
+from orbitledger.integrators import Integrator
+from orbitledger.integrators.constants import YEAR_D
 from orbitledger.runner.errors import StoreError
 from orbitledger.runner.ledger.operations import GENESIS
 from orbitledger.runner.store.zarr_store import chain_sha256, samples_sha256
@@ -66,6 +68,10 @@ def verify(ledger, job_id):
             if samples_sha256(block) != ck["samples_sha256"]:
                 issues.append(f"its samples (rows {n_prev}..{ck['n_samples'] - 1}) do not match "
                               "their recorded hash")
+            elif "time_yr" in block and not np.array_equal(block["time_yr"],
+                                                          block["time"] / YEAR_D):
+                issues.append(f"its samples' time in years (rows {n_prev}.."
+                              f"{ck['n_samples'] - 1}) is not their time in days / 365.25")
         except StoreError as err:
             issues.append(str(err))
         for msg in issues:

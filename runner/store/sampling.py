@@ -2,7 +2,7 @@
 
 import numpy as np
 
-from orbitledger.integrators.constants import G
+from orbitledger.integrators.constants import G, YEAR_D
 
 
 class SampleBuffer:
@@ -78,8 +78,10 @@ class SampleBuffer:
         return res
 
     def block(self):
-        """The rows so far as a dict of arrays (views)."""
-        return {k: v[: self.n] for k, v in self.arrays.items()}
+        """The rows so far as a dict of arrays (views; time in years computed here)."""
+        out = {k: v[: self.n] for k, v in self.arrays.items()}
+        out["time_yr"] = out["time"] / YEAR_D
+        return out
 
 
 def sample_now(integ, energy0, angmom0):

@@ -27,6 +27,7 @@ from pathlib import Path
 import numpy as np
 import zarr
 
+from orbitledger.integrators.constants import YEAR_D
 from orbitledger.runner import defaults
 from orbitledger.runner.errors import StoreError
 from orbitledger.runner.execution.failpoints import failpoint
@@ -38,22 +39,35 @@ ELEMENT_UNITS = ["au", "1", "deg", "deg", "deg", "deg"]
 # are labelled dimensions.
 _ATTRS = {
     "time": {"units": "day", "long_name": "time since the start of the integration"},
+    "time_yr": {"units": "yr", "long_name": "time since the start of the integration "
+                                            "(Julian years of 365.25 d)"},
     "step": {"long_name": "step number"},
     "energy_error": {"units": "1", "long_name": "relative energy error (E - E0) / |E0|",
-                     "coordinates": "time step"},
+                     "coordinates": "time time_yr step"},
     "angmom_error": {"units": "1",
                      "long_name": "relative angular-momentum error |L - L0| / |L0|",
-                     "coordinates": "time step"},
+                     "coordinates": "time time_yr step"},
     "elements": {"long_name": "heliocentric osculating elements (units by element: "
                               "element_units)", "element_units": ELEMENT_UNITS,
-                 "coordinates": "time step"},
+                 "coordinates": "time time_yr step"},
 }
 _SERIES = {
     "time": ("f8", ["sample"]),
+    "time_yr": ("f8", ["sample"]),
     "step": ("i8", ["sample"]),
     "energy_error": ("f8", ["sample"]),
     "angmom_error": ("f8", ["sample"]),
 }
+
+
+def _ck_dim(name):
+    """A checkpoint's own dimension name, so the job group opens as an xarray DataTree."""
+    return f"bytes_{name}"
+
+
+def _ck_attrs(layout):
+    return {"layout": layout,
+            "long_name": "exact integrator state, packed bytes (arrays listed in layout)"}
 
 
 def _job_dir_name(job_id):
@@ -122,9 +136,14 @@ def chain_sha256(previous, state_hash, samples_hash):
     return hashlib.sha256(f"{previous}:{state_hash}:{samples_hash}".encode()).hexdigest()
 
 
+# Arrays derived from others (time in years = time / 365.25): not hashed, so
+# stores made before they existed keep their hashes; verify checks them instead.
+DERIVED_SAMPLES = ("time_yr",)
+
+
 def samples_sha256(block):
-    """SHA-256 of one block of samples (dict of arrays), keys sorted."""
-    return state_sha256(block)
+    """SHA-256 of one block of samples (dict of arrays, derived ones left out), keys sorted."""
+    return state_sha256({k: v for k, v in block.items() if k not in DERIVED_SAMPLES})
 
 
 _POOL = None
@@ -303,7 +322,8 @@ def _plan(h, base, samples, ck):
         else:
             coros.append(h["checkpoints"].create_array(
                 name, data=blob, chunks=blob.shape, compressors=None, overwrite=True,
-                attributes={"layout": layout}, config=_WRITE_ALL))
+                dimension_names=[_ck_dim(name)], attributes=_ck_attrs(layout),
+                config=_WRITE_ALL))
             files.append(str(d / "c" / "0"))
         files.append(str(d / "zarr.json"))  # written by prepare() or just now
         dirs += [str(d / "c"), str(d), str(base / "checkpoints")]
@@ -441,7 +461,8 @@ class Store:
                 nbytes = sum(entry[4] for entry in layout)
                 arr = _run(h["checkpoints"].create_array(
                     name, shape=(nbytes,), dtype="u1", chunks=(nbytes,), compressors=None,
-                    overwrite=True, attributes={"layout": layout}, config=_WRITE_ALL))
+                    overwrite=True, dimension_names=[_ck_dim(name)],
+                    attributes=_ck_attrs(layout), config=_WRITE_ALL))
                 h["ready"][name] = (arr, layout)
         except OSError as err:
             raise StoreError(f"could not prepare the store of job {job_id}: {err}") from err
@@ -470,12 +491,18 @@ class Store:
                 self._open[key] = h
         return h
 
+    def _sample_keys(self, job_id):
+        """The sample arrays a job's store has (stores made before ``time_yr`` lack it)."""
+        base = self.job_path(job_id) / "samples"
+        return [k for k in list(_SERIES) + ["elements"]
+                if k != "time_yr" or (base / k / "zarr.json").exists()]
+
     async def _open_async(self, job_id):
         from zarr.api import asynchronous as za
         from zarr.storage import LocalStore
 
         root = LocalStore(str(self.job_path(job_id)))
-        names = list(_SERIES) + ["elements"]
+        names = self._sample_keys(job_id)
         # The job's and the samples' group metadata are read too, so a damaged
         # one stops the writer here (with the file named) rather than later
         # in a reader's hands.
@@ -528,6 +555,8 @@ class Store:
         h = None
         try:
             h = self._handles(job_id, fence)
+            if samples is not None and "time_yr" not in samples[1]:
+                samples = (samples[0], dict(samples[1], time_yr=samples[1]["time"] / YEAR_D))
             puts, grow, coros, files, dirs = _plan(h, self.job_path(job_id), samples, ck)
             for batch in (grow, coros):
                 if batch:
@@ -597,7 +626,7 @@ class Store:
         g = self._group(job_id, "r")
         try:
             s = g["samples"]
-            arrays = {key: s[key] for key in list(_SERIES) + ["elements"]}
+            arrays = {key: s[key] for key in self._sample_keys(job_id)}
         except Exception as err:  # noqa: BLE001 - zarr raises many types on bad metadata
             raise _store_error(job_id, self.job_path(job_id), "the sample arrays", err) from None
         stop = arrays["time"].shape[0] if n is None else n
