@@ -189,7 +189,7 @@ def work(workspace: WorkspaceOpt = None, db: DbOpt = None,
          lease: Annotated[float, typer.Option(
              min=1.0, help="Lease length in seconds; a crashed worker's job waits this long.")]
          = defaults.LEASE_SECONDS,
-         quiet: Annotated[bool, typer.Option(help="No progress display.")] = False,
+         quiet: Annotated[bool, typer.Option(help="No progress display (events are still logged; see --log-level).")] = False,
          log_level: Annotated[Optional[str], typer.Option(
              help="Log events at this level: debug, info, warning (default: info, or "
                   "warning beside a progress display).")] = None,
@@ -243,7 +243,7 @@ def work(workspace: WorkspaceOpt = None, db: DbOpt = None,
 def _work_with_progress(ledger, end, job, order, beat):
     from rich.progress import BarColumn, Progress, TextColumn, TimeRemainingColumn
 
-    from orbitledger.runner.presentation.tables import myr_per_hour
+    from orbitledger.runner.presentation.tables import format_rate
     from orbitledger.runner.inputs.units import format_time
     from orbitledger.runner.execution.worker import Worker
 
@@ -260,9 +260,8 @@ def _work_with_progress(ledger, end, job, order, beat):
             if row["id"] not in tasks:
                 tasks[row["id"]] = bar.add_task(f"job {row['id']} {row['name']}",
                                                 total=row["total_steps"], sim="", rate="")
-            r = myr_per_hour(rate)
-            bar.update(tasks[row["id"]], completed=step, sim=format_time(step * row["dt"]),
-                       rate="" if r is None else f"{r:.3g} Myr/h")
+            bar.update(tasks[row["id"]], completed=step, sim=format_time(abs(step * row["dt"])),
+                       rate=format_rate(rate))
 
         w = Worker(ledger, deadline=end, job_id=job, order=order, progress=progress,
                    heartbeat_seconds=beat)
@@ -302,8 +301,9 @@ def outcomes(ensemble_id: Annotated[int, typer.Argument(help="Ensemble id.", min
     """An ensemble's outcomes: counts, instability fraction, survival curve."""
     from rich.table import Table
 
+    from orbitledger.runner.analysis.outcomes import summarise, summary_rows
+    from orbitledger.runner.inputs.units import format_time
     from orbitledger.runner.presentation import plots
-    from orbitledger.runner.analysis.outcomes import ensemble_section, summarise, summary_rows
 
     with open_ledger(workspace, db) as ledger:
         ens = ledger.ensemble(ensemble_id)
@@ -315,14 +315,15 @@ def outcomes(ensemble_id: Annotated[int, typer.Argument(help="Ensemble id.", min
             return
         t = Table(title=f"Ensemble {ensemble_id}: {ens['name']} ({s.n} members)",
                   header_style="bold")
-        for col in ("outcome", "members", "times (yr)"):
+        head, rows = summary_rows(s)
+        for col in ("outcome", "members", head):
             t.add_column(col)
-        for r in summary_rows(s):
+        for r in rows:
             t.add_row(*map(str, r))
         out.print(t)
         out.print(f"instability fraction {s.unstable}/{s.n} = {s.fraction:.3f}, 95% Wilson "
                   f"interval {s.ci[0]:.3f}-{s.ci[1]:.3f}; median time to instability "
-                  + ("not reached" if s.median is None else f"{s.median:.4g} yr")
+                  + ("not reached" if s.median is None else format_time(s.median * 365.25))
                   + " (Kaplan-Meier, unfinished members censored)")
         if plot is not None:
             if plot.suffix.lower() not in (".png", ".svg"):
@@ -330,6 +331,8 @@ def outcomes(ensemble_id: Annotated[int, typer.Argument(help="Ensemble id.", min
             plots.save(plots.survival_figure(s, f"ensemble {ensemble_id}: {ens['name']}"), plot)
             out.print(f"survival curve written to {plot}")
         if html is not None:
+            from orbitledger.runner.presentation.html import ensemble_section
+
             section, _ = ensemble_section(ledger, ensemble_id)
             write_atomic(html, plots.page(f"orbitledger ensemble {ensemble_id}: {ens['name']}",
                                           [("Outcomes", section)]))
@@ -361,7 +364,7 @@ def extend(job_id: JobArg,
            by: Annotated[Optional[str], typer.Option(help="Add this much, e.g. '1 Myr'.")] = None,
            workspace: WorkspaceOpt = None, db: DbOpt = None):
     """Move a job's end to a later time; a done job is queued again."""
-    from orbitledger.runner.inputs.units import parse_quantity
+    from orbitledger.runner.inputs.units import format_time, parse_quantity
 
     if (to is None) == (by is None):
         fail("give exactly one of --to (new span length) or --by (time to add).")
@@ -374,7 +377,8 @@ def extend(job_id: JobArg,
         else:
             new_total = row["total_steps"] + round(parse_quantity("--by", by, "time") / step)
         ledger.extend(job_id, new_total)
-        out.print(f"job {job_id} now runs to step {new_total}")
+        out.print(f"job {job_id} now runs to {format_time(new_total * step)} "
+                  f"({new_total} steps of {format_time(step)})")
 
 
 def _simple(verb):

@@ -111,27 +111,44 @@ def summarise(rows, confidence=0.95):
                    median, [dict(r, label=lab) for r, lab in zip(rows, labels)])
 
 
+def member_bodies(row):
+    """The bodies of a member's stop, by name (empty when it did not stop)."""
+    from orbitledger.runner.inputs.spec import body_names_from_json
+
+    if not row.get("outcome_bodies"):
+        return []
+    names = body_names_from_json(row["spec_json"]) or []
+    idx = [int(k) for k in str(row["outcome_bodies"]).split(",") if k != ""]
+    return [names[k] if 0 <= k < len(names) else f"body {k}" for k in idx]
+
+
+def counts_by_body(summary):
+    """{outcome: {"body, body": members}} for members whose stop names bodies."""
+    out = {}
+    for r in summary.rows:
+        names = member_bodies(r)
+        if names:
+            per = out.setdefault(r["label"], {})
+            key = ", ".join(names)
+            per[key] = per.get(key, 0) + 1
+    return out
+
+
 def summary_rows(summary):
-    """Rows (outcome, members, times in yr) for tables."""
+    """(times header, rows) for tables: one row per outcome and bodies, times in one unit.
+
+    Rows read ("ejection: Ilvar d", members, "1.2, 3.4, 5.6") with the times
+    in the unit of the header ("times (Myr)"), the first twelve in order.
+    """
+    from orbitledger.runner.inputs.units import time_unit
+
     by = {}
-    for r, t, ev in zip(summary.rows, summary.times, summary.events):
-        by.setdefault(r["label"], []).append(t)
-    return [(lab, len(ts), ", ".join(f"{t:.4g}" for t in sorted(ts)[:12])
+    for r, t in zip(summary.rows, summary.times):
+        names = member_bodies(r)
+        label = r["label"] + (f": {', '.join(names)}" if names else "")
+        by.setdefault(label, []).append(t)
+    name, scale = time_unit(365.25 * float(summary.times.max()) if summary.n else 0.0)
+    per = scale / 365.25
+    rows = [(lab, len(ts), ", ".join(f"{t / per:.4g}" for t in sorted(ts)[:12])
              + (" ..." if len(ts) > 12 else "")) for lab, ts in sorted(by.items())]
-
-
-def ensemble_section(ledger, ensemble_id):
-    """HTML section of an ensemble's outcomes (table, statistics, survival plot)."""
-    from orbitledger.runner.presentation import plots
-
-    ens = ledger.ensemble(ensemble_id)
-    s = summarise(ledger.jobs(ensemble_id=ensemble_id))
-    stats_rows = [("members", s.n), ("unstable", s.unstable),
-                  ("instability fraction", f"{s.fraction:.3f}"),
-                  ("95% Wilson interval", f"{s.ci[0]:.3f} - {s.ci[1]:.3f}"),
-                  ("median time to instability",
-                   "not reached" if s.median is None else f"{s.median:.4g} yr")]
-    img = plots.png_data_uri(plots.survival_figure(s, f"ensemble {ensemble_id}: {ens['name']}"))
-    return (plots.table_html(["outcome", "members", "times (yr)"], summary_rows(s))
-            + plots.table_html(["statistic", "value"], stats_rows)
-            + f"<img alt='survival curve' src='{img}'>"), s
+    return f"times ({name})", rows

@@ -503,3 +503,12 @@ def resolve(spec):
 
     check(plan, spec)
     return plan
+
+
+def body_names_from_json(spec_json):
+    """Body names (star first) from a job's stored spec JSON, or None if it has none."""
+    try:
+        system = json.loads(spec_json)["system"]
+        return [system["star"]["name"]] + [b["name"] for b in system["bodies"]]
+    except (KeyError, TypeError, ValueError):
+        return None

@@ -20,6 +20,7 @@ from orbitledger.runner.errors import FencedError, LedgerError, NotFoundError
 from orbitledger.runner.execution.failpoints import failpoint
 from orbitledger.runner.ledger.status import JobStatus, check_transition
 from orbitledger.runner.store.zarr_store import Store, chain_sha256
+from orbitledger.runner.inputs.units import format_time
 
 GENESIS = "0" * 64  # chain link before checkpoint 0
 
@@ -510,8 +511,12 @@ class Ledger:
             row = self._row(conn, job_id, lock=True)
             st = JobStatus(row["status"])
             if new_total_steps <= row["total_steps"]:
-                raise LedgerError(f"job {job_id} already runs to step {row['total_steps']}; "
-                                  f"the new end (step {new_total_steps}) must be later.")
+                dt = abs(row["dt"])
+                raise LedgerError(
+                    f"job {job_id} already runs to {format_time(row['total_steps'] * dt)} "
+                    f"(step {row['total_steps']}); the new end, "
+                    f"{format_time(new_total_steps * dt)} (step {new_total_steps}), must be "
+                    "later.")
             if st in (JobStatus.STOPPED, JobStatus.CANCELLED):
                 raise LedgerError(f"job {job_id} is {st.value} and cannot be extended.")
             fields = dict(total_steps=int(new_total_steps), updated_at=now)

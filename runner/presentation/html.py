@@ -62,3 +62,22 @@ def job_report(ledger, job_id, compare_with=None):
                      "encounters; a bounded energy error is not phase accuracy; in a chaotic "
                      "system one trajectory is a sample, not a prediction.</p>"))
     return plots.page(f"orbitledger report, {title}", sections)
+
+
+def ensemble_section(ledger, ensemble_id):
+    """HTML section of an ensemble's outcomes (table, statistics, survival plot)."""
+    from orbitledger.runner.analysis.outcomes import summarise, summary_rows
+    from orbitledger.runner.inputs.units import format_time
+
+    ens = ledger.ensemble(ensemble_id)
+    s = summarise(ledger.jobs(ensemble_id=ensemble_id))
+    stats_rows = [("members", s.n), ("unstable", s.unstable),
+                  ("instability fraction", f"{s.fraction:.3f}"),
+                  ("95% Wilson interval", f"{s.ci[0]:.3f} - {s.ci[1]:.3f}"),
+                  ("median time to instability",
+                   "not reached" if s.median is None else format_time(s.median * 365.25))]
+    img = plots.png_data_uri(plots.survival_figure(s, f"ensemble {ensemble_id}: {ens['name']}"))
+    head, rows = summary_rows(s)
+    return (plots.table_html(["outcome", "members", head], rows)
+            + plots.table_html(["statistic", "value"], stats_rows)
+            + f"<img alt='survival curve' src='{img}'>"), s

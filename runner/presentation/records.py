@@ -7,6 +7,8 @@ import math
 
 import numpy as np
 
+from orbitledger.runner.inputs.spec import body_names_from_json
+
 YEAR_D = 365.25
 
 
@@ -33,6 +35,11 @@ def plain(value):
     return value
 
 
+def body_list(text, names):
+    """Body indices stored as "1,2" as names (indices where no name is known)."""
+    return _bodies(text, names)
+
+
 def _bodies(text, names):
     if not text:
         return []
@@ -43,6 +50,8 @@ def _bodies(text, names):
 def job_record(row, names=None):
     """One job row with units in its keys."""
     dt = row["dt"]
+    if names is None:
+        names = body_names_from_json(row["spec_json"])
     return plain({
         "id": row["id"], "name": row["name"], "status": row["status"],
         "reason": row["reason"], "requested": row["requested"], "method": row["method"],
@@ -128,8 +137,11 @@ def audit_record(job_id, verdicts):
 
 
 def outcomes_record(ensemble_id, name, s):
+    from orbitledger.runner.analysis.outcomes import counts_by_body
+
     return plain({
         "ensemble": ensemble_id, "name": name, "members": s.n, "counts": s.counts,
+        "counts_by_body": counts_by_body(s),
         "unstable": s.unstable, "instability_fraction": s.fraction,
         "wilson_95_low": s.ci[0], "wilson_95_high": s.ci[1],
         "median_time_to_instability_yr": s.median,

@@ -5,20 +5,15 @@ import time
 
 from rich.table import Table
 
+from orbitledger.runner.inputs.units import format_time, time_unit
 from orbitledger.runner.ledger.status import JobStatus
-from orbitledger.runner.inputs.units import format_time
-
-MYR_D = 365.25e6  # days in a megayear
+from orbitledger.runner.inputs.spec import body_names_from_json
+from orbitledger.runner.presentation.records import body_list
 
 
 def progress_fraction(row):
     """Fraction of the job's steps done."""
     return row["steps_done"] / row["total_steps"] if row["total_steps"] else 1.0
-
-
-def myr_per_hour(rate_days_per_s):
-    """Simulated Myr per wall-clock hour from days per second."""
-    return None if not rate_days_per_s else rate_days_per_s * 3600.0 / MYR_D
 
 
 def time_to_finish(row):
@@ -43,29 +38,62 @@ def format_duration(seconds):
 
 
 def outcome_text(row):
-    """Outcome kind with its time and bodies, or '-'."""
+    """Outcome kind with its time and the bodies by name, or '-'."""
     if not row["outcome"]:
         return row["reason"] or "-" if row["status"] in ("held", "failed", "cancelled") else "-"
     text = row["outcome"]
     if row["outcome"] != "survived" and row["outcome_time"] is not None:
-        text += f" at {format_time(row['outcome_time'])}"
+        text += f" at {format_time(abs(row['outcome_time']))}"
         if row["outcome_bodies"]:
-            text += f" (bodies {row['outcome_bodies']})"
+            names = body_list(row["outcome_bodies"], body_names_from_json(row["spec_json"]))
+            text += f" ({', '.join(map(str, names))})"
     return text
+
+
+def rate_column(rows):
+    """(header, formatter) of the rate column: one time unit per hour for the whole column."""
+    rates = [abs(r["rate"]) * 3600.0 for r in rows if r["rate"]]
+    name, scale = time_unit(max(rates) if rates else 0.0)
+    return f"{name}/h", lambda rate: "-" if not rate else f"{abs(rate) * 3600.0 / scale:.3g}"
+
+
+def format_rate(rate_days_per_s):
+    """A rate of simulated time per wall-clock hour in a readable unit: "2.61 Gyr/h"."""
+    if not rate_days_per_s:
+        return ""
+    per_h = abs(rate_days_per_s) * 3600.0
+    name, scale = time_unit(per_h)
+    return f"{per_h / scale:.3g} {name}/h"
+
+
+def span_text(row, sep=" of "):
+    """Simulated time so far and in all: "9.95 Myr of 20 Myr"."""
+    return (f"{format_time(abs(row['steps_done'] * row['dt']))}{sep}"
+            f"{format_time(abs(row['total_steps'] * row['dt']))}")
+
+
+def every_text(steps, dt):
+    """An interval in steps as time: "500 kyr (1000000 steps)"."""
+    return f"{format_time(abs(steps * dt))} ({steps} steps)"
+
+
+def step_text(dt):
+    """The step in a readable unit, with its exact value in days."""
+    t = format_time(abs(dt))
+    return t if t.endswith(" d") else f"{t} ({abs(dt):.10g} d)"
 
 
 def status_table(rows, title="Jobs"):
     """The status table: job, status, progress, simulated time, rate, ETA, energy error, outcome."""
     t = Table(title=title, header_style="bold")
+    rate_head, rate_fmt = rate_column(rows)
     for col, just in (("job", "right"), ("name", "left"), ("status", "left"),
-                      ("progress", "right"), ("simulated", "right"), ("Myr/h", "right"),
+                      ("progress", "right"), ("simulated", "right"), (rate_head, "right"),
                       ("to finish", "right"), ("max |dE/E|", "right"), ("outcome", "left")):
         t.add_column(col, justify=just)
     for r in rows:
-        rate = myr_per_hour(r["rate"])
         t.add_row(str(r["id"]), r["name"], r["status"], f"{100 * progress_fraction(r):.1f}%",
-                  f"{format_time(r['steps_done'] * r['dt'])} / {format_time(r['total_steps'] * r['dt'])}",
-                  "-" if rate is None else f"{rate:.3g}", format_duration(time_to_finish(r)),
+                  span_text(r), rate_fmt(r["rate"]), format_duration(time_to_finish(r)),
                   f"{r['max_energy_error']:.2e}", outcome_text(r))
     return t
 
@@ -80,16 +108,16 @@ def show_tables(ledger, job_id):
     fields = [
         ("status", row["status"] + (f" ({row['reason']})" if row["reason"] else "")),
         ("requested", row["requested"] or "-"),
-        ("method", f"{row['method']}, step {abs(row['dt']):.6g} d, corrector "
+        ("method", f"{row['method']}, step {step_text(row['dt'])}, corrector "
                    f"{spec['method']['corrector']}, relativity {spec['method']['relativity']}"),
         ("direction", spec["span"]["direction"]),
         ("bodies", str(row["n_bodies"])),
         ("progress", f"{row['steps_done']} / {row['total_steps']} steps "
                      f"({100 * progress_fraction(row):.2f}%)"),
-        ("simulated", f"{format_time(row['steps_done'] * row['dt'])} of "
-                      f"{format_time(row['total_steps'] * row['dt'])}"),
-        ("checkpoints", f"{row['n_checkpoints'] + 1} (every {row['chunk_steps']} steps)"),
-        ("samples", f"{row['n_samples']} (every {row['output_steps']} steps)"),
+        ("simulated", span_text(row)),
+        ("checkpoints", f"{row['n_checkpoints'] + 1}, every "
+                        f"{every_text(row['chunk_steps'], row['dt'])}"),
+        ("samples", f"{row['n_samples']}, every {every_text(row['output_steps'], row['dt'])}"),
         ("energy error", f"last {row['last_energy_error']:.3e}, max {row['max_energy_error']:.3e}, "
                          f"budget {spec['budget']['energy']:.1e}"),
         ("ang. mom. error", f"last {row['last_angmom_error']:.3e}, max {row['max_angmom_error']:.3e}"),
