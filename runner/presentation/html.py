@@ -1,50 +1,156 @@
 """A static, self-contained HTML report of one job: status, provenance, audit, plots."""
 
+import html
 import json
 import time
 
-from orbitledger.runner.presentation import plots
 from orbitledger.runner.analysis.budgets import audit_job
-from orbitledger.runner.presentation.tables import format_duration, outcome_text, progress_fraction
+from orbitledger.runner.presentation import plots
 from orbitledger.runner.inputs.units import format_time
+from orbitledger.runner.presentation.tables import (every_text, format_duration, outcome_text,
+                                                    progress_fraction, span_text, step_text)
+
+
+def _spec_tables(spec, row):
+    """The inputs as a referee reads them: description, bodies as given, settings."""
+    from orbitledger.runner.inputs.units import parse_quantity
+
+    parts = []
+    total = abs(row["total_steps"] * row["dt"])
+    asked = parse_quantity("span.length", spec["span"]["length"], "time")
+    extended = (f" as submitted, extended to {format_time(total)}"
+                if abs(total - asked) > abs(row["dt"]) else "")
+    if spec.get("description"):
+        parts.append(f"<p>{html.escape(spec['description'])}</p>")
+    system = spec["system"]
+    star = system["star"]
+    parts.append("<h3>System as specified</h3>")
+    parts.append(plots.kv_html([
+        ("frame of the elements", system.get("frame", "heliocentric")),
+        ("star", f"{star['name']}, mass {star['mass']}"
+                 + (f", radius {star['radius']}" if star.get("radius") else ""))]))
+    rows = []
+    for b in system["bodies"]:
+        if b.get("position") is not None:
+            rows.append((b["name"], b["mass"], "position " + ", ".join(b["position"]),
+                         "velocity " + ", ".join(b["velocity"] or []), "", "", "", ""))
+        else:
+            rows.append((b["name"], b["mass"], b["a"], b["e"], b["i"], b["node"], b["peri"],
+                         b["mean_anomaly"]))
+    parts.append(plots.table_html(["body", "mass", "a", "e", "i", "node", "peri",
+                                   "mean anomaly"], rows))
+    method, span, stops, budget = spec["method"], spec["span"], spec["stops"], spec["budget"]
+    settings = [
+        ("method", f"{method['name']}, step {method['step']}, corrector order "
+                   f"{method['corrector']}, general relativity "
+                   f"{'on' if method['relativity'] else 'off'}"),
+        ("span", f"{span['length']} {span['direction']}" + extended
+         + f", checkpoint every {span['chunk'] or 'default'}, sample every "
+           f"{span['output'] or 'default'}"),
+        ("energy budget", f"{budget['energy']:g} (relative), on exceeding it: "
+                          f"{budget['on_exceed']}"),
+        ("angular-momentum budget", "none" if budget["angular_momentum"] is None
+         else f"{budget['angular_momentum']:g}"),
+        ("stop: close encounter", "off" if not stops["hill"] else
+         f"within {stops['hill']:g} mutual Hill radii"),
+        ("stop: escape", stops["escape_distance"] or "off"),
+        ("stop: unbound and beyond", stops["unbound_escape_distance"] or "off"),
+        ("stop: star contact", stops["star_contact_distance"] or "the star's radius"),
+        ("stop: eccentricity", "off" if not stops["max_ecc"] else f"above {stops['max_ecc']:g}"),
+    ]
+    if spec.get("ensemble"):
+        ens = spec["ensemble"]
+        pert = ens.get("perturb") or {}
+        settings.append(("ensemble member", f"{spec.get('member')} of {ens['members']}: "
+                         + ", ".join(f"{k} {v}" for k, v in pert.items())))
+    parts.append("<h3>Settings</h3>" + plots.kv_html(settings))
+    parts.append("<details><summary>The spec as stored (JSON)</summary><pre>"
+                 + html.escape(json.dumps(spec, indent=2, sort_keys=True)) + "</pre></details>")
+    return "".join(parts)
+
+
+def _initial_elements(samples, names):
+    """Heliocentric osculating elements of every body at the first sample."""
+    el = samples["elements"][0]
+    rows = [(name, f"{el[b, 0]:.9g}", f"{el[b, 1]:.6g}", f"{el[b, 2]:.6g}", f"{el[b, 3]:.6g}",
+             f"{el[b, 4]:.6g}", f"{el[b, 5]:.6g}") for b, name in enumerate(names)]
+    return plots.table_html(["body", "a (au)", "e", "i (deg)", "node (deg)", "peri (deg)",
+                             "mean anomaly (deg)"], rows)
+
+
+# How a segment of work ended, in words (the ledger stores the job's next state).
+_ENDED = {"queued": "handed back (deadline, slice or stop signal)",
+          "lease_expired": "lease lapsed (worker lost)", "done": "finished the span",
+          "stopped": "a stop condition", "held": "held", "cancelled": "cancelled",
+          "failed": "failed", "fenced": "fenced off (another worker holds the job)",
+          "load_failed": "its checkpoint could not be loaded",
+          "numerical_failure": "numerical failure", "store_error": "store error"}
+
+
+def _provenance(ledger, job_id):
+    """Segments of work, then the software and machines they ran on (one row each)."""
+    segs, soft = [], {}
+    for k, s in enumerate(ledger.segments(job_id), start=1):
+        v = json.loads(s["versions"] or "{}")
+        key = (s["cpu"] or "-", s["platform"] or "-",
+               f"orbitledger {v.get('orbitledger')} (source {v.get('source_commit') or 'unknown'})"
+               f"; python {v.get('python')}, numpy {v.get('numpy')}, numba {v.get('numba')}, "
+               f"zarr {v.get('zarr')}, SQLAlchemy {v.get('sqlalchemy')}")
+        ref = soft.setdefault(key, f"S{len(soft) + 1}")
+        wall = (s["ended_at"] - s["started_at"]) if s["ended_at"] else None
+        steps = "-" if s["end_step"] is None else f"{s['start_step']} to {s['end_step']}"
+        segs.append((k, s["host"], s["pid"], s["user"] or "-", steps,
+                     time.strftime("%Y-%m-%d %H:%M:%S", time.gmtime(s["started_at"])),
+                     format_duration(wall), _ENDED.get(s["end_reason"], s["end_reason"])
+                     or "still running", ref))
+    return (plots.table_html(["#", "host", "pid", "user", "steps", "started (UTC)", "wall",
+                              "ended by", "software"], segs)
+            + plots.table_html(["software", "CPU", "platform", "versions"],
+                               [(ref,) + key for key, ref in soft.items()]))
 
 
 def job_report(ledger, job_id, compare_with=None):
     """The report page (str) of a job, optionally with its divergence from another job."""
+    from orbitledger.runner.analysis.integrity import verify
+
     row = ledger.job(job_id)
     spec = json.loads(row["spec_json"])
     samples = ledger.store.read_samples(job_id, row["n_samples"])
     names = ledger.store.body_names(job_id)
     status = [("status", row["status"] + (f" ({row['reason']})" if row["reason"] else "")),
-              ("method", f"{row['method']}, step {abs(row['dt']):.6g} d, corrector "
-                         f"{spec['method']['corrector']}, relativity {spec['method']['relativity']}"),
-              ("progress", f"{row['steps_done']} / {row['total_steps']} steps "
-                           f"({100 * progress_fraction(row):.2f}%)"),
-              ("simulated", format_time(row["steps_done"] * row["dt"])),
               ("outcome", outcome_text(row)),
-              ("checkpoints", row["n_checkpoints"] + 1), ("samples", row["n_samples"]),
-              ("spec sha256", row["spec_sha256"]),
-              ("wall time", format_duration(row["wall_seconds"]))]
-    prov = []
-    for k, s in enumerate(ledger.segments(job_id), start=1):
-        v = json.loads(s["versions"] or "{}")
-        prov.append((k, s["host"], s["pid"], s["user"], f"{s['start_step']}..{s['end_step']}",
-                     time.strftime("%Y-%m-%d %H:%M:%S", time.gmtime(s["started_at"])),
-                     s["end_reason"] or "running", s["cpu"], s["platform"],
-                     f"orbitledger {v.get('orbitledger')} ({v.get('source_commit')}), "
-                     f"python {v.get('python')}, numpy {v.get('numpy')}, numba {v.get('numba')}, "
-                     f"zarr {v.get('zarr')}, SQLAlchemy {v.get('sqlalchemy')}"))
+              ("simulated", span_text(row)),
+              ("progress", f"{row['steps_done']} of {row['total_steps']} steps "
+                           f"({100 * progress_fraction(row):.2f}%)"),
+              ("step", step_text(row["dt"])),
+              ("checkpoints", f"{row['n_checkpoints'] + 1}, every "
+                              f"{every_text(row['chunk_steps'], row['dt'])}"),
+              ("samples", f"{row['n_samples']}, every "
+                          f"{every_text(row['output_steps'], row['dt'])}"),
+              ("wall time", format_duration(row["wall_seconds"])),
+              ("spec SHA-256", row["spec_sha256"])]
+    if row["parent_job_id"]:
+        status.append(("started from", f"job {row['parent_job_id']}, checkpoint "
+                                       f"{row['parent_checkpoint']}"))
+    rep = verify(ledger, job_id)
+    check = (f"{rep.checked} of {rep.checked} checkpoints: hash chain, stored states and "
+             "sample blocks match the ledger" if rep.ok else
+             f"checkpoint {rep.first_bad}: {rep.problem}")
     verdicts = [(v.quantity, f"{v.max_error:.3e}", "-" if v.budget is None else f"{v.budget:.1e}",
                  "-" if v.fit is None else f"{v.fit.alpha:.2f} ± {v.fit.alpha_err:.2f}",
                  "-" if v.projected is None else f"{v.projected:.3e}", v.verdict)
                 for v in audit_job(ledger, job_id)]
     title = f"job {job_id}: {row['name']}"
     sections = [
-        ("Status", plots.table_html(["", ""], status)),
-        ("Provenance", plots.table_html(["#", "host", "pid", "user", "steps", "started (UTC)",
-                                         "end", "CPU", "platform", "versions"], prov)),
-        ("Error budgets", plots.table_html(["quantity", "max so far", "budget", "growth t^alpha",
-                                            "projected at end", "verdict"], verdicts)),
+        ("Summary", plots.kv_html(status)),
+        ("Inputs", _spec_tables(spec, row)),
+        ("Initial conditions", "<p>Heliocentric osculating elements at the first sample, "
+                               "as integrated (after any ensemble perturbation).</p>"
+                               + _initial_elements(samples, names[1:])),
+        ("Provenance", _provenance(ledger, job_id)),
+        ("Audit", plots.kv_html([("store check (verify)", check)])
+         + plots.table_html(["quantity", "max so far", "budget", "growth t^alpha",
+                             "projected at end", "verdict"], verdicts)),
         ("Energy error", f"<img alt='energy error' src='"
                          f"{plots.png_data_uri(plots.energy_figure(samples, title))}'>"),
         ("Orbital elements", f"<img alt='elements' src='"
@@ -57,11 +163,14 @@ def job_report(ledger, job_id, compare_with=None):
         text = describe_divergence(fit)
         fig = plots.divergence_figure(t, d, fit, f"jobs {job_id} and {compare_with}")
         sections.append((f"Divergence from job {compare_with}",
-                         f"<p>{text}</p><img alt='divergence' src='{plots.png_data_uri(fig)}'>"))
+                         f"<p>{html.escape(text)}</p><img alt='divergence' "
+                         f"src='{plots.png_data_uri(fig)}'>"))
     sections.append(("Cautions", "<p>A symplectic map is not accurate through close "
                      "encounters; a bounded energy error is not phase accuracy; in a chaotic "
                      "system one trajectory is a sample, not a prediction.</p>"))
-    return plots.page(f"orbitledger report, {title}", sections)
+    generated = time.strftime("%Y-%m-%d %H:%M:%S UTC", time.gmtime())
+    return plots.page(f"orbitledger report, {title}", sections,
+                      subtitle=f"Generated {generated} from the ledger and the store.")
 
 
 def ensemble_section(ledger, ensemble_id):

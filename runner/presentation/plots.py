@@ -37,7 +37,7 @@ def survival_figure(summary, title):
         at = np.where(idx >= 0, summary.km_s[np.clip(idx, 0, None)] if len(summary.km_s)
                       else 1.0, 1.0)
         ax.plot(cens, at, "|", ms=12, color="k", label="censored (survived so far)")
-    ax.set_xlabel("time (yr)")
+    _years_axis(ax, t_end)
     ax.set_ylabel("fraction still stable")
     ax.set_ylim(-0.02, 1.05)
     ax.set_title(title)
@@ -60,25 +60,73 @@ def png_data_uri(fig):
     return "data:image/png;base64," + base64.b64encode(buf.getvalue()).decode("ascii")
 
 
-_CSS = ("body{font-family:sans-serif;max-width:60em;margin:2em auto;color:#222}"
-        "table{border-collapse:collapse;margin:1em 0}td,th{border:1px solid #bbb;padding:.25em .6em;"
-        "text-align:left;word-break:break-word;max-width:22em}th{background:#eee}img{max-width:100%}")
+_CSS = ("body{font-family:sans-serif;max-width:64em;margin:2em auto;padding:0 1em;color:#222;"
+        "line-height:1.4}h1{font-size:1.6em}h2{margin-top:1.6em;border-bottom:1px solid #ccc}"
+        "table{border-collapse:collapse;margin:.8em 0}"
+        "td,th{border:1px solid #bbb;padding:.25em .6em;text-align:left;vertical-align:top;"
+        "word-break:normal;overflow-wrap:normal;hyphens:none}"
+        "th{background:#eee;white-space:nowrap}th[scope=row]{font-weight:normal;"
+        "background:#f6f6f6}td.long{overflow-wrap:anywhere;max-width:40em}"
+        "pre{background:#f6f6f6;padding:.6em;overflow-x:auto;font-size:.85em}"
+        "img{max-width:100%}.sub{color:#666}")
+
+
+def _cell(c):
+    text = html.escape(str(c))
+    # Only long unbroken strings (hashes, paths) may wrap anywhere; words never break.
+    long_ = max((len(w) for w in str(c).split()), default=0) > 32
+    return f"<td class='long'>{text}</td>" if long_ else f"<td>{text}</td>"
 
 
 def table_html(headers, rows):
-    """An HTML table, cells escaped."""
-    out = ["<table><tr>" + "".join(f"<th>{html.escape(str(h))}</th>" for h in headers) + "</tr>"]
+    """An HTML table with a header row, cells escaped."""
+    out = ["<table><tr>" + "".join(f"<th scope='col'>{html.escape(str(h))}</th>"
+                                   for h in headers) + "</tr>"]
     for r in rows:
-        out.append("<tr>" + "".join(f"<td>{html.escape(str(c))}</td>" for c in r) + "</tr>")
+        out.append("<tr>" + "".join(_cell(c) for c in r) + "</tr>")
     return "".join(out) + "</table>"
 
 
-def page(title, sections):
+def kv_html(pairs):
+    """A two-column key/value table without a header row (keys as row headers)."""
+    return "<table>" + "".join(f"<tr><th scope='row'>{html.escape(str(k))}</th>{_cell(v)}</tr>"
+                               for k, v in pairs) + "</table>"
+
+
+def page(title, sections, subtitle=None):
     """A self-contained HTML page from (heading, html) sections."""
     body = "".join(f"<h2>{html.escape(h)}</h2>{content}" for h, content in sections)
-    return (f"<!DOCTYPE html><html><head><meta charset='utf-8'><title>{html.escape(title)}"
-            f"</title><style>{_CSS}</style></head><body><h1>{html.escape(title)}</h1>{body}"
-            "</body></html>")
+    sub = f"<p class='sub'>{html.escape(subtitle)}</p>" if subtitle else ""
+    return (f"<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'>"
+            f"<meta name='viewport' content='width=device-width, initial-scale=1'>"
+            f"<title>{html.escape(title)}</title><style>{_CSS}</style></head><body>"
+            f"<h1>{html.escape(title)}</h1>{sub}{body}</body></html>")
+
+
+def _time_axis(days):
+    """Times (days from the start) in one readable unit: (values, axis label)."""
+    from orbitledger.runner.inputs.units import time_unit
+
+    days = np.asarray(days, dtype=float)
+    name, scale = time_unit(float(np.abs(days).max()) if days.size else 0.0)
+    return days / scale, f"time ({name})"
+
+
+def _years_axis(ax, max_years):
+    """Label a linear x axis that holds years in one readable unit ("time (Myr)")."""
+    from matplotlib.ticker import FuncFormatter
+
+    from orbitledger.runner.inputs.units import time_unit
+
+    name, scale = time_unit(max_years * 365.25)
+    per = scale / 365.25
+    ax.xaxis.set_major_formatter(FuncFormatter(lambda v, _pos: f"{v / per:g}"))
+    ax.set_xlabel(f"time ({name})")
+
+
+def _plain_ticks(ax):
+    """Tick labels as plain numbers: no offset or "1e7" multiplier on the axis."""
+    ax.ticklabel_format(axis="x", style="plain", useOffset=False)
 
 
 def energy_figure(samples, title):
@@ -105,16 +153,23 @@ def elements_figure(samples, names, title):
     """Semi-major axis, eccentricity and inclination of every body against time."""
     plt = _figure()
     fig, axes = plt.subplots(3, 1, figsize=(7, 7), dpi=110, sharex=True)
-    t = (samples["time"] - samples["time"][0]) / 365.25
+    t, xlabel = _time_axis(samples["time"] - samples["time"][0])
     for b, name in enumerate(names):
         for ax, k in zip(axes, (0, 1, 2)):
             ax.plot(t, samples["elements"][:, b, k], lw=0.8, label=name)
     for ax, lab in zip(axes, ("a (au)", "e", "i (deg)")):
         ax.set_ylabel(lab)
-    axes[0].set_title(title)
-    axes[0].legend(fontsize=7, ncol=4)
-    axes[-1].set_xlabel("time (yr)")
-    fig.tight_layout()
+    fig.suptitle(title)
+    # The legend sits between the title and the plots, never over a curve.
+    handles, labels = axes[0].get_legend_handles_labels()
+    fig.legend(handles, labels, loc="upper center", bbox_to_anchor=(0.5, 0.955),
+               ncol=min(4, max(1, len(labels))), fontsize=7, frameon=False)
+    rows = (len(labels) + 3) // 4
+    for ax in axes:
+        _plain_ticks(ax)
+        ax.ticklabel_format(axis="y", useOffset=False)
+    axes[-1].set_xlabel(xlabel)
+    fig.tight_layout(rect=(0, 0, 1, 0.95 - 0.025 * rows))
     return fig
 
 
@@ -132,7 +187,7 @@ def divergence_figure(t, d, fit, title):
         c = max(float(d[n - 1]), 1e-300) * np.exp(-lam * tt[-1])
         ax.semilogy(tt, c * np.exp(lam * tt), "--",
                     label=f"exp(t / {fit['lyapunov_time']:.3g} yr), renormalised shadow")
-    ax.set_xlabel("time (yr)")
+    _years_axis(ax, float(np.max(np.abs(t))) if len(t) else 0.0)
     ax.set_ylabel("distance")
     ax.set_title(title + f" ({fit['kind']} growth)")
     ax.legend(fontsize=8)
