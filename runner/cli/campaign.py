@@ -1,0 +1,292 @@
+"""Commands that set up, queue and run work: init, submit, work, status, show, extend,
+hold, release, cancel, batch, demo."""
+
+from pathlib import Path
+import time
+from typing import Annotated, Optional
+
+import typer
+
+from orbitledger.runner import defaults
+from orbitledger.runner.cli.common import (_AS_PROGRAM, DbOpt, JobArg, JsonOpt, WorkspaceOpt,
+                                           _guard, app, err, fail, init_workspace, open_ledger,
+                                           out, print_json)
+from orbitledger.runner.execution import signals as stopflag
+
+
+@app.command()
+@_guard
+def init(workspace: WorkspaceOpt = None, db: DbOpt = None):
+    """Create a workspace: a SQLite ledger (unless --db) and a Zarr store folder."""
+    ws, ledger = init_workspace(workspace, db)
+    ledger.close()
+    out.print(f"workspace ready at {ws.resolve()}")
+
+
+@app.command()
+@_guard
+def submit(spec_file: Annotated[Path, typer.Argument(help="Job spec (TOML).")],
+           workspace: WorkspaceOpt = None, db: DbOpt = None,
+           priority: Annotated[int, typer.Option(help="Higher runs first.")] = 0):
+    """Validate a spec and queue it; prints the job id."""
+    from orbitledger.runner.inputs import spec as spec_mod
+
+    from orbitledger.runner.inputs.stepcheck import advice
+
+    from orbitledger.runner.inputs.sanity import projected_samples, projected_store_bytes
+
+    notes = []
+    spec = spec_mod.load(spec_file, notes=notes)  # validated before the ledger is touched
+    for line in notes:
+        err.print(line, markup=False, highlight=False)
+    with open_ledger(workspace, db) as ledger:
+        if spec.ensemble is not None and spec.member is None:
+            ens_id, ids = ledger.submit_ensemble(spec, priority=priority)
+            out.print(f"ensemble {ens_id}: jobs {ids[0]}..{ids[-1]}")
+        else:
+            ids = [ledger.submit(spec, priority=priority)]
+            out.print(ids[0])
+    plan = spec_mod.resolve(spec)
+    size = projected_store_bytes(plan) * len(ids)
+    err.print(f"projected sample store: {_bytes(size)} (at most {projected_samples(plan)} "
+              f"samples per job x {len(ids)} job(s)); limit per job `span.max_store_gb` = "
+              f"{spec.span.max_store_gb:g}", markup=False, highlight=False)
+    for line in advice(plan):
+        err.print(line, markup=False, highlight=False)
+
+
+def _bytes(n):
+    for unit, size in (("GB", 1e9), ("MB", 1e6), ("kB", 1e3)):
+        if n >= size:
+            return f"{n / size:.3g} {unit}"
+    return f"{n:.0f} B"
+
+
+def _parse_wall(value, option="--deadline"):
+    """A wall-clock duration in seconds (see :mod:`runner.walltime`)."""
+    from orbitledger.runner.inputs.walltime import parse_wall
+
+    return parse_wall(option, value)
+
+
+@app.command()
+@_guard
+def work(workspace: WorkspaceOpt = None, db: DbOpt = None,
+         workers: Annotated[int, typer.Option(min=1, help="Worker processes.")] = 1,
+         deadline: Annotated[Optional[str], typer.Option(
+             help="Checkpoint and stop after this wall time, e.g. '47 h'.")] = None,
+         job: Annotated[Optional[int], typer.Option(help="Work on this job only.")] = None,
+         order: Annotated[str, typer.Option(help="breadth (least advanced first) or depth.")]
+         = "breadth",
+         lease: Annotated[float, typer.Option(
+             min=1.0, help="Lease length in seconds; a crashed worker's job waits this long.")]
+         = defaults.LEASE_SECONDS,
+         quiet: Annotated[bool, typer.Option(help="No progress display (events are still logged; see --log-level).")] = False,
+         log_level: Annotated[Optional[str], typer.Option(
+             help="Log events at this level: debug, info, warning (default: info, or "
+                  "warning beside a progress display).")] = None,
+         log_file: Annotated[Optional[Path], typer.Option(
+             help="Append the log here instead of standard error.")] = None):
+    """Run workers until no work is left, a deadline, or a stop signal.
+
+    Exit code 0: nothing left to claim; 3: stopped with work remaining; 1: a worker failed.
+    """
+    stopflag.install()  # before the heavy imports: a stop during start-up is clean
+    from orbitledger.runner.execution.worker import Worker, run_pool, self_command
+    from orbitledger.runner.execution.worklog import setup_logging
+
+    show = not quiet and out.is_terminal and workers == 1
+    setup_logging(log_level, log_file, quiet_default=show)
+
+    if order not in ("breadth", "depth"):
+        fail(f"--order must be 'breadth' or 'depth', got {order!r}.")
+    end = None if deadline is None else time.time() + _parse_wall(deadline)
+    if workers > 1:
+        argv = self_command() + ["work", "--workers", "1", "--order", order, "--quiet",
+                                 "--lease", str(lease), "--log-level", log_level or "info"]
+        if log_file is not None:
+            argv += ["--log-file", str(log_file)]
+        if workspace:
+            argv += ["--workspace", str(workspace)]
+        if db:
+            argv += ["--db", db]
+        if end is not None:
+            argv += ["--deadline", f"{max(0.0, end - time.time()):.3f} s"]
+        if job is not None:
+            argv += ["--job", str(job)]
+        open_ledger(workspace, db).close()  # fail fast with one line if there is no workspace
+        code = run_pool(argv, workers)
+        if _AS_PROGRAM[0]:
+            stopflag.exit_now(code)
+        raise typer.Exit(code)
+    beat = min(defaults.HEARTBEAT_SECONDS, lease / 4)
+    with open_ledger(workspace, db, lease_seconds=lease) as ledger:
+        if show:
+            code = _work_with_progress(ledger, end, job, order, beat)
+        else:
+            w = Worker(ledger, deadline=end, job_id=job, order=order, heartbeat_seconds=beat)
+            w.install_signal_handlers()
+            code = w.run()
+    if _AS_PROGRAM[0]:
+        stopflag.exit_now(code)
+    raise typer.Exit(code)
+
+
+def _work_with_progress(ledger, end, job, order, beat):
+    from rich.progress import BarColumn, Progress, TextColumn, TimeRemainingColumn
+
+    from orbitledger.runner.presentation.tables import format_rate
+    from orbitledger.runner.inputs.units import format_time
+    from orbitledger.runner.execution.worker import Worker
+
+    tasks = {}
+    last = [0.0]
+    with Progress(TextColumn("{task.description}"), BarColumn(), TextColumn("{task.percentage:>5.1f}%"),
+                  TextColumn("{task.fields[sim]}"), TextColumn("{task.fields[rate]}"),
+                  TimeRemainingColumn(), console=out) as bar:
+        def progress(row, step, rate):
+            now = time.time()
+            if now - last[0] < 0.2:
+                return
+            last[0] = now
+            if row["id"] not in tasks:
+                tasks[row["id"]] = bar.add_task(f"job {row['id']} {row['name']}",
+                                                total=row["total_steps"], sim="", rate="")
+            bar.update(tasks[row["id"]], completed=step, sim=format_time(abs(step * row["dt"])),
+                       rate=format_rate(rate))
+
+        w = Worker(ledger, deadline=end, job_id=job, order=order, progress=progress,
+                   heartbeat_seconds=beat)
+        w.install_signal_handlers()
+        return w.run()
+
+
+@app.command()
+@_guard
+def status(workspace: WorkspaceOpt = None, db: DbOpt = None,
+           ensemble: Annotated[Optional[int], typer.Option(help="Only this ensemble's members.")]
+           = None, as_json: JsonOpt = False):
+    """A table of all jobs."""
+    from orbitledger.runner.presentation.tables import status_table
+
+    with open_ledger(workspace, db) as ledger:
+        if ensemble is not None:
+            ledger.ensemble(ensemble)  # one line if there is no such ensemble
+        rows = ledger.jobs(ensemble_id=ensemble)
+    if as_json:
+        from orbitledger.runner.presentation.records import job_record
+
+        print_json({"jobs": [job_record(r) for r in rows]})
+        return
+    out.print(status_table(rows))
+
+
+@app.command()
+@_guard
+def show(job_id: JobArg, workspace: WorkspaceOpt = None, db: DbOpt = None,
+         as_json: JsonOpt = False):
+    """One job in detail, with its provenance."""
+    from orbitledger.runner.presentation.tables import show_tables
+
+    with open_ledger(workspace, db) as ledger:
+        if as_json:
+            from orbitledger.runner.presentation.records import full_record
+
+            print_json(full_record(ledger, job_id))
+            return
+        t, p, _ = show_tables(ledger, job_id)
+        out.print(t)
+        out.print(p)
+
+
+@app.command()
+@_guard
+def extend(job_id: JobArg,
+           to: Annotated[Optional[str], typer.Option(help="New span length, e.g. '4 Myr'.")] = None,
+           by: Annotated[Optional[str], typer.Option(help="Add this much, e.g. '1 Myr'.")] = None,
+           workspace: WorkspaceOpt = None, db: DbOpt = None):
+    """Move a job's end to a later time; a done job is queued again."""
+    from orbitledger.runner.inputs.units import format_time, parse_quantity
+
+    if (to is None) == (by is None):
+        fail("give exactly one of --to (new span length) or --by (time to add).")
+    with open_ledger(workspace, db) as ledger:
+        row = ledger.job(job_id)
+        step = abs(row["dt"])
+        if to is not None:
+            length = parse_quantity("--to", to, "time")
+            new_total = round(length / step)
+        else:
+            new_total = row["total_steps"] + round(parse_quantity("--by", by, "time") / step)
+        ledger.extend(job_id, new_total)
+        out.print(f"job {job_id} now runs to {format_time(new_total * step)} "
+                  f"({new_total} steps of {format_time(step)})")
+
+
+def _simple(verb):
+    def command(job_id: JobArg, workspace: WorkspaceOpt = None, db: DbOpt = None):
+        with open_ledger(workspace, db) as ledger:
+            result = getattr(ledger, verb)(job_id)
+        out.print(f"job {job_id}: {result or verb + 'd'}")
+    command.__name__ = verb
+    return command
+
+
+app.command("hold", help="Pause a job (a running one at its next safe point).")(_guard(_simple("hold")))
+app.command("release", help="Queue a held or failed job again.")(_guard(_simple("release")))
+app.command("cancel", help="Abandon a job (a running one at its next safe point).")(
+    _guard(_simple("cancel")))
+
+
+@app.command()
+@_guard
+def batch(workspace: WorkspaceOpt = None, db: DbOpt = None,
+          tasks: Annotated[int, typer.Option(help="Array tasks (one worker each).")] = 1,
+          time_limit: Annotated[str, typer.Option("--time", help="Wall time per task, e.g. '48 h'.")]
+          = "24 h",
+          margin: Annotated[float, typer.Option(
+              help="Seconds before the limit at which SLURM sends SIGUSR1.")] = 300.0,
+          partition: Annotated[Optional[str], typer.Option(help="SLURM partition.")] = None,
+          output: Annotated[Optional[Path], typer.Option(
+              help="Script file (default <workspace>/slurm/orbitledger.sbatch).")] = None,
+          do_submit: Annotated[bool, typer.Option("--submit", help="Also sbatch it.")] = False,
+          dry_run: Annotated[bool, typer.Option(
+              "--dry-run", help="Only write the script; do not connect to the database "
+              "(prepare it anywhere).")] = False):
+    """Write (and with --submit, submit) a SLURM array script of workers."""
+    from orbitledger.runner.execution import slurm as cluster
+    from orbitledger.runner.ledger.status import ACTIVE
+    from orbitledger.runner.ledger.workspace import resolve_path
+
+    if dry_run and do_submit:
+        fail("--dry-run and --submit exclude each other; drop one.")
+    ws = resolve_path(workspace)
+    url = cluster.resolve_url(ws, db)
+    cluster.check_shared_db(url)
+    text = cluster.script(ws, tasks, _parse_wall(time_limit, "--time"), margin,
+                         partition=partition)
+    if not dry_run:
+        with open_ledger(workspace, db) as ledger:  # the workspace must exist
+            counts = ledger.counts()
+        left = sum(counts.get(st.value, 0) for st in ACTIVE)
+        if tasks > left:
+            err.print(f"note: --tasks {tasks} for {left} job(s) with work left: "
+                      f"{tasks - left} task(s) would find nothing to claim and end at once.",
+                      markup=False, highlight=False)
+    if output is None:
+        (ws / "slurm").mkdir(parents=True, exist_ok=True)
+    path = output or ws / "slurm" / "orbitledger.sbatch"
+    cluster.write(path, text)
+    out.print(f"script written to {path}")
+    if do_submit:
+        out.print(f"submitted SLURM job {cluster.submit(path, url)}")
+
+
+@app.command()
+@_guard
+def demo(workspace: Annotated[Path, typer.Option(help="Demo workspace folder.")]
+         = Path("demo-ledger")):
+    """Set up a demo workspace, queue two invented-system jobs, interrupt, resume, report."""
+    from orbitledger.runner.demo import run_demo
+
+    raise typer.Exit(run_demo(workspace, out))

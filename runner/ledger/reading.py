@@ -1,0 +1,143 @@
+"""Reading the ledger: jobs, checkpoints, segments, events, and integrators loaded from
+committed checkpoints (part of :class:`~orbitledger.runner.ledger.operations.Ledger`)."""
+
+import json
+
+import numpy as np
+from sqlalchemy import and_, func, select
+
+from orbitledger.runner.errors import NotFoundError
+from orbitledger.runner.ledger.db import (checkpoints, events, jobs, segments)
+from orbitledger.runner.ledger.status import JobStatus
+
+
+class Reading:
+    """Ledger methods that only read."""
+
+    def job(self, job_id):
+        """One job's row as a dict."""
+        with self.engine.connect() as conn:
+            return dict(self._row(conn, job_id))
+
+    def jobs(self, status=None, ensemble_id=None):
+        """All jobs' rows (dicts), oldest first."""
+        q = select(jobs).order_by(jobs.c.id)
+        if status is not None:
+            q = q.where(jobs.c.status == JobStatus(status).value)
+        if ensemble_id is not None:
+            q = q.where(jobs.c.ensemble_id == ensemble_id)
+        with self.engine.connect() as conn:
+            return [dict(r) for r in conn.execute(q).mappings()]
+
+    def _job_rows(self, table, job_id, order):
+        with self.engine.connect() as conn:
+            return [dict(r) for r in conn.execute(select(table).where(
+                table.c.job_id == job_id).order_by(order)).mappings()]
+
+    def checkpoints(self, job_id):
+        """A job's committed checkpoints, in order."""
+        return self._job_rows(checkpoints, job_id, checkpoints.c.idx)
+
+    def last_checkpoint(self, job_id):
+        """The last committed checkpoint row."""
+        with self.engine.connect() as conn:
+            n = conn.execute(select(jobs.c.n_checkpoints).where(jobs.c.id == job_id)).scalar()
+            if n is None:
+                raise NotFoundError(f"no job {job_id} in this ledger.")
+            return dict(conn.execute(select(checkpoints).where(and_(
+                checkpoints.c.job_id == job_id, checkpoints.c.idx == n))).mappings().one())
+
+    def checkpoint_at(self, job_id, time_days):
+        """Index of the committed checkpoint at a time (days from the job's start), within
+        half a step; raises NotFoundError naming the nearest ones otherwise."""
+        row = self.job(job_id)
+        cks = self.checkpoints(job_id)
+        t0 = cks[0]["time"]
+        best = min(cks, key=lambda c: abs(abs(c["time"] - t0) - time_days))
+        if abs(abs(best["time"] - t0) - time_days) <= 0.5 * abs(row["dt"]):
+            return int(best["idx"])
+        yr = lambda d: f"{d / 365.25:.9g} yr"  # noqa: E731 - precise enough to paste back
+        near = ", ".join(yr(abs(c["time"] - t0)) for c in
+                         sorted(cks, key=lambda c: abs(abs(c["time"] - t0) - time_days))[:3])
+        raise NotFoundError(f"job {job_id} has no checkpoint at {yr(time_days)}; the nearest "
+                            f"are at {near}.")
+
+    def segments(self, job_id):
+        """A job's segments, in order."""
+        return self._job_rows(segments, job_id, segments.c.id)
+
+    def events(self, job_id):
+        """A job's events, in order."""
+        return self._job_rows(events, job_id, events.c.id)
+
+    def counts(self):
+        """Number of jobs by status."""
+        with self.engine.connect() as conn:
+            rows = conn.execute(select(jobs.c.status, func.count()).group_by(jobs.c.status))
+            return {s: int(n) for s, n in rows}
+
+    def load_integrator(self, job_id, checkpoint=None, row=None):
+        """The exact integrator state at a committed checkpoint (hash-checked).
+
+        ``checkpoint`` is an index (default: the last); ``row`` a checkpoint
+        row already read (a claim carries the last one).
+        """
+        from orbitledger.integrators import Integrator
+
+        if row is not None:
+            ck = row
+        elif checkpoint is None:
+            ck = self.last_checkpoint(job_id)
+        else:
+            ck = next((c for c in self.checkpoints(job_id) if c["idx"] == checkpoint), None)
+        if ck is None:
+            raise NotFoundError(f"job {job_id} has no checkpoint {checkpoint}.")
+        arrays = self.store.read_checkpoint(job_id, ck["idx"], ck["fence"], ck["state_sha256"])
+        return Integrator.from_state_arrays(arrays), ck
+
+
+def repair_by_replay(ledger, job_id, claim=None):
+    """Recover a job whose last checkpoint in the store is damaged.
+
+    Walks back to the newest checkpoint whose stored state still matches its
+    recorded hash, then integrates forward from it; every later checkpoint
+    must be reproduced bit for bit (its hash equals the recorded one) and is
+    rewritten in the store. Returns (integrator at the last checkpoint, its
+    row, [indices rewritten]). Raises StoreError if nothing can be recovered.
+    """
+    from orbitledger.integrators import Integrator
+
+    from orbitledger.runner.errors import StoreError
+
+    cks = ledger.checkpoints(job_id)
+    good = None
+    for ck in reversed(cks):
+        try:
+            arrays = ledger.store.read_checkpoint(job_id, ck["idx"], ck["fence"],
+                                                  ck["state_sha256"])
+            good = ck
+            break
+        except StoreError:
+            continue
+    if good is None:
+        raise StoreError(f"job {job_id}: no stored checkpoint matches its recorded hash.")
+    integ = Integrator.from_state_arrays(arrays)
+    rewritten = []
+    for ck in cks[good["idx"] + 1:]:
+        integ.advance(ck["step"] - integ.step)
+        if claim is not None:
+            ledger.check_fence(claim)
+        digest = ledger.store.write_checkpoint(job_id, ck["idx"], ck["fence"],
+                                               integ.state_arrays())
+        if digest != ck["state_sha256"]:
+            raise StoreError(f"job {job_id}: replay from checkpoint {good['idx']} did not "
+                             f"reproduce checkpoint {ck['idx']}; the run cannot be repaired.")
+        rewritten.append(ck["idx"])
+    ledger.record_event(job_id, "repaired", integ.step, integ.time, (),
+                        {"from_checkpoint": good["idx"], "rewritten": rewritten})
+    return integ, cks[-1], rewritten
+
+
+def angmom0(row):
+    """The job's initial angular-momentum vector."""
+    return np.array(json.loads(row["angmom0"]))
