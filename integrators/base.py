@@ -18,7 +18,9 @@ from .stops import KIND_BY_CODE, StopConditions, StopKind
 # the arithmetic that wrote it). 2: g' - 1 of the drift from f g' - f' g = 1.
 # 3: that identity only where |f| >= 1/2 (the direct form elsewhere); Kepler
 # solver kept inside the root's bracket and stopped at its rounding noise.
-STATE_FORMAT = 3
+# 4: Stumpff series by Estrin's scheme, one division per Halley step, 1/r0
+# and one shared quotient for 1/r and 1/f in the drift.
+STATE_FORMAT = 4
 
 
 @dataclass(frozen=True)

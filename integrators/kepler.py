@@ -44,14 +44,27 @@ _S_TOL = 4e-16
 _S_SHIFT = 1e-7
 
 
-# Reciprocals of the series denominators (k+1)(k+2): multiplying by these
-# is as exactly rounded as dividing and much cheaper.
-_R20, _R42, _R72, _R110, _R156, _R210, _R272 = (1.0 / 20.0, 1.0 / 42.0, 1.0 / 72.0,
-                                                1.0 / 110.0, 1.0 / 156.0, 1.0 / 210.0,
-                                                1.0 / 272.0)
-_R12, _R30, _R56, _R90, _R132, _R182, _R240 = (1.0 / 12.0, 1.0 / 30.0, 1.0 / 56.0,
-                                               1.0 / 90.0, 1.0 / 132.0, 1.0 / 182.0,
-                                               1.0 / 240.0)
+# Below this, s^2 beta is certainly under (2 pi)^2: the guess is inside one period.
+_NEAR_PERIOD = 0.99 * TWO_PI * TWO_PI
+
+# Series coefficients c2 = sum (-x)^k / (2k+2)!, c3 = sum (-x)^k / (2k+3)!, k = 0..7
+# (each the double nearest the exact quotient; truncation below 1e-20 for |x| <= 0.1).
+_A0 = 1.0 / 2.0
+_A1 = -1.0 / 24.0
+_A2 = 1.0 / 720.0
+_A3 = -1.0 / 40320.0
+_A4 = 1.0 / 3628800.0
+_A5 = -1.0 / 479001600.0
+_A6 = 1.0 / 87178291200.0
+_A7 = -1.0 / 20922789888000.0
+_B0 = 1.0 / 6.0
+_B1 = -1.0 / 120.0
+_B2 = 1.0 / 5040.0
+_B3 = -1.0 / 362880.0
+_B4 = 1.0 / 39916800.0
+_B5 = -1.0 / 6227020800.0
+_B6 = 1.0 / 1307674368000.0
+_B7 = -1.0 / 355687428096000.0
 _R6 = 1.0 / 6.0
 
 
@@ -72,10 +85,14 @@ def stumpff(x):
         n += 1
     if x > _STUMPFF_REDUCED or x < -_STUMPFF_REDUCED:
         return np.nan, np.nan, np.nan, np.nan
-    c3 = (1.0 - x * _R20 * (1.0 - x * _R42 * (1.0 - x * _R72 * (1.0 - x * _R110
-          * (1.0 - x * _R156 * (1.0 - x * _R210 * (1.0 - x * _R272))))))) * _R6
-    c2 = (1.0 - x * _R12 * (1.0 - x * _R30 * (1.0 - x * _R56 * (1.0 - x * _R90
-          * (1.0 - x * _R132 * (1.0 - x * _R182 * (1.0 - x * _R240))))))) * 0.5
+    # Estrin's scheme: the same series in three levels of dependent operations
+    # instead of Horner's fourteen (the series is most of a Kepler iteration).
+    x2 = x * x
+    x4 = x2 * x2
+    c2 = (((_A0 + _A1 * x) + x2 * (_A2 + _A3 * x))
+          + x4 * ((_A4 + _A5 * x) + x2 * (_A6 + _A7 * x)))
+    c3 = (((_B0 + _B1 * x) + x2 * (_B2 + _B3 * x))
+          + x4 * ((_B4 + _B5 * x) + x2 * (_B6 + _B7 * x)))
     c1 = 1.0 - x * c3
     c0 = 1.0 - x * c2
     for _ in range(n):
@@ -115,8 +132,10 @@ def solve_universal(r0, eta0, beta, mu, dt):
     ir0 = 1.0 / r0
     s = dt * ir0 * (1.0 + dt * ir0 * ir0 * (-0.5 * eta0 + dt * ir0 * ir0
                                              * (0.5 * eta0 * eta0 * ir0 - zeta0 * _R6)))
-    if beta > 0.0:
+    if beta > 0.0 and s * s * beta > _NEAR_PERIOD:
         # dt is reduced below one period, so s lies within one period of s.
+        # (Tested first on s^2 beta, a conservative bound: the square root and
+        # division of s_max stay off the path of s in the usual case.)
         s_max = TWO_PI / np.sqrt(beta)
         if s > s_max:
             s = s_max
@@ -153,8 +172,8 @@ def solve_universal(r0, eta0, beta, mu, dt):
             hi = s
         else:
             lo = s
-        ds = -f / r
-        ds = -f / (r + 0.5 * ds * rp)
+        # Halley's step -f / (r - f rp / (2 r)) with one division on the path.
+        ds = -f * r / (r * r - 0.5 * f * rp)
         s_new = s + ds
         if not (lo <= s_new <= hi) or not (r > 0.0):
             break  # also a NaN: every comparison with it is false
@@ -202,7 +221,51 @@ def solve_universal(r0, eta0, beta, mu, dt):
     return s, r, g0, g1, g2, _HALLEY_MAX, True
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
+def drift_state(x0, x1, x2, v0, v1, v2, mu, dt):
+    """One relative two-body state (x, v) advanced by dt; returns the six new components.
+
+    Inlined into its callers at numba's level, so a drift costs no call and no
+    reference counting of arrays (a call per drift cost about a fifth of a step).
+    """
+    r0 = np.sqrt(x0 * x0 + x1 * x1 + x2 * x2)
+    ir0 = 1.0 / r0
+    vsq = v0 * v0 + v1 * v1 + v2 * v2
+    eta0 = x0 * v0 + x1 * v1 + x2 * v2
+    beta = 2.0 * mu * ir0 - vsq
+    if beta > 0.0 and dt * dt * beta * beta * beta > TWO_PI * TWO_PI * mu * mu:
+        # Longer than a period: whole periods change nothing, so remove them.
+        period = TWO_PI * mu / (beta * np.sqrt(beta))
+        dt = dt - np.trunc(dt / period) * period
+    s, r, g0, g1, g2, _, _ = solve_universal(r0, eta0, beta, mu, dt)
+    # f - 1 and g written to avoid the cancellation in 1 - f and dt - mu G3.
+    fm1 = -mu * g2 * ir0
+    g = r0 * g1 + eta0 * g2
+    # g' - 1 from the Lagrange coefficients' identity f g' - f' g = 1 (the
+    # drift conserves angular momentum) instead of -mu G2 / r. Rounding in the
+    # G-functions has a small bias; taken independently it makes f g' - f' g
+    # differ from 1 by the same sign every step (3e-19 per drift measured), and
+    # angular momentum then drifts linearly. Closing the identity leaves only
+    # unbiased rounding (tests/benchmarks/bench_drift_bias.py). The identity
+    # divides by f, which vanishes where a drift sweeps about 90 or 270
+    # degrees of true anomaly: there (|f| < _F_IDENTITY, only in drifts of a
+    # sizeable part of an orbit) the direct form -mu G2 / r is used, well
+    # conditioned for every f.
+    # One division gives both 1/r and 1/f: w = 1 / (r f).
+    f = 1.0 + fm1
+    if f >= _F_IDENTITY or f <= -_F_IDENTITY:
+        w = 1.0 / (r * f)
+        fd = -mu * g1 * ir0 * (f * w)
+        gdm1 = (fd * g - fm1) * (r * w)
+    else:
+        ir = 1.0 / r
+        fd = -mu * g1 * ir0 * ir
+        gdm1 = -mu * g2 * ir
+    return (x0 + (fm1 * x0 + g * v0), x1 + (fm1 * x1 + g * v1), x2 + (fm1 * x2 + g * v2),
+            v0 + (fd * x0 + gdm1 * v0), v1 + (fd * x1 + gdm1 * v1), v2 + (fd * x2 + gdm1 * v2))
+
+
+@njit(cache=True, error_model="numpy", inline="always")
 def drift_row(x, v, i, mu, dt):
     """Advance row i of the (n, 3) arrays x, v along its two-body orbit by dt, in place.
 
@@ -217,46 +280,14 @@ def drift_row(x, v, i, mu, dt):
     dt : float
         Time step, positive or negative.
     """
-    x0 = x[i, 0]
-    x1 = x[i, 1]
-    x2 = x[i, 2]
-    v0 = v[i, 0]
-    v1 = v[i, 1]
-    v2 = v[i, 2]
-    r0 = np.sqrt(x0 * x0 + x1 * x1 + x2 * x2)
-    vsq = v0 * v0 + v1 * v1 + v2 * v2
-    eta0 = x0 * v0 + x1 * v1 + x2 * v2
-    beta = 2.0 * mu / r0 - vsq
-    if beta > 0.0 and dt * dt * beta * beta * beta > TWO_PI * TWO_PI * mu * mu:
-        # Longer than a period: whole periods change nothing, so remove them.
-        period = TWO_PI * mu / (beta * np.sqrt(beta))
-        dt = dt - np.trunc(dt / period) * period
-    s, r, g0, g1, g2, _, _ = solve_universal(r0, eta0, beta, mu, dt)
-    # f - 1 and g written to avoid the cancellation in 1 - f and dt - mu G3.
-    fm1 = -mu * g2 / r0
-    g = r0 * g1 + eta0 * g2
-    fd = -mu * g1 / (r0 * r)
-    # g' - 1 from the Lagrange coefficients' identity f g' - f' g = 1 (the
-    # drift conserves angular momentum) instead of -mu G2 / r. Rounding in the
-    # G-functions has a small bias; taken independently it makes f g' - f' g
-    # differ from 1 by the same sign every step (3e-19 per drift measured), and
-    # angular momentum then drifts linearly. Closing the identity leaves only
-    # unbiased rounding (tests/benchmarks/bench_drift_bias.py). The identity
-    # divides by f, which vanishes where a drift sweeps about 90 or 270
-    # degrees of true anomaly: there (|f| < _F_IDENTITY, only in drifts of a
-    # sizeable part of an orbit) the direct form -mu G2 / r is used, well
-    # conditioned for every f.
-    f = 1.0 + fm1
-    if f >= _F_IDENTITY or f <= -_F_IDENTITY:
-        gdm1 = (fd * g - fm1) / f
-    else:
-        gdm1 = -mu * g2 / r
-    x[i, 0] = x0 + (fm1 * x0 + g * v0)
-    x[i, 1] = x1 + (fm1 * x1 + g * v1)
-    x[i, 2] = x2 + (fm1 * x2 + g * v2)
-    v[i, 0] = v0 + (fd * x0 + gdm1 * v0)
-    v[i, 1] = v1 + (fd * x1 + gdm1 * v1)
-    v[i, 2] = v2 + (fd * x2 + gdm1 * v2)
+    a0, a1, a2, b0, b1, b2 = drift_state(x[i, 0], x[i, 1], x[i, 2],
+                                         v[i, 0], v[i, 1], v[i, 2], mu, dt)
+    x[i, 0] = a0
+    x[i, 1] = a1
+    x[i, 2] = a2
+    v[i, 0] = b0
+    v[i, 1] = b1
+    v[i, 2] = b2
 
 
 def propagate(x, v, mu, dt):

@@ -11,7 +11,7 @@ def gr_coefficient(gm0):
     return 6.0 * gm0 * gm0 / (C_AU_PER_DAY * C_AU_PER_DAY)
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def accelerations(x, gm, gr_coef, acc):
     """Newtonian accelerations of all bodies into acc (n, 3), plus the star's GR term.
 

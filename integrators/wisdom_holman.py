@@ -23,7 +23,7 @@ from .stops import NUMERICAL_FAILURE_CODE, check_stops, first_broken, is_broken
 from .system import jacobi_from_inertial, jacobi_mu
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def drift_all(xj, vj, mu, h):
     """Kepler drift of every Jacobi orbit by h; the centre of mass moves uniformly."""
     n = xj.shape[0]
@@ -34,15 +34,19 @@ def drift_all(xj, vj, mu, h):
         drift_row(xj, vj, i, mu[i], h)
 
 
-@njit(cache=True, error_model="numpy")
-def to_inertial(xj, gm, eta, xi):
-    """Inertial positions from Jacobi positions into xi (see system.inertial_from_jacobi)."""
+@njit(cache=True, error_model="numpy", inline="always")
+def to_inertial(xj, mr, xi):
+    """Inertial positions from Jacobi positions into xi (see system.inertial_from_jacobi).
+
+    mr[i] = gm[i] / eta[i], the mass ratios of the Jacobi chain, computed once
+    (the same quotient every call, so the same bits as dividing here).
+    """
     n = xj.shape[0]
     c0 = xj[0, 0]
     c1 = xj[0, 1]
     c2 = xj[0, 2]
     for i in range(n - 1, 0, -1):
-        q = gm[i] / eta[i]
+        q = mr[i]
         c0 = c0 - q * xj[i, 0]
         c1 = c1 - q * xj[i, 1]
         c2 = c2 - q * xj[i, 2]
@@ -54,8 +58,8 @@ def to_inertial(xj, gm, eta, xi):
     xi[0, 2] = c2
 
 
-@njit(cache=True, error_model="numpy")
-def kick(xj, vj, gm, mu, eta, h, gr_coef, xi, acc):
+@njit(cache=True, error_model="numpy", inline="always")
+def kick(xj, vj, gm, mu, mr, h, gr_coef, xi, acc):
     """Interaction kick of the Jacobi velocities by h.
 
     The Jacobi acceleration is the Jacobi transform of the inertial
@@ -64,7 +68,7 @@ def kick(xj, vj, gm, mu, eta, h, gr_coef, xi, acc):
     xi and acc are scratch arrays (n, 3).
     """
     n = xj.shape[0]
-    to_inertial(xj, gm, eta, xi)
+    to_inertial(xj, mr, xi)
     accelerations(xi, gm, gr_coef, acc)
     a0 = acc[0, 0]
     a1 = acc[0, 1]
@@ -81,14 +85,14 @@ def kick(xj, vj, gm, mu, eta, h, gr_coef, xi, acc):
         vj[i, 0] += h * (aj0 + k * x0)
         vj[i, 1] += h * (aj1 + k * x1)
         vj[i, 2] += h * (aj2 + k * x2)
-        q = gm[i] / eta[i]
+        q = mr[i]
         a0 = a0 + q * aj0
         a1 = a1 + q * aj1
         a2 = a2 + q * aj2
 
 
 @njit(cache=True, error_model="numpy")
-def wh_diagnose(xj, vj, gm, mu, eta, dt, pending, gr_coef, a_arr, c_arr, cx, cv, xi, acc,
+def wh_diagnose(xj, vj, gm, mu, mr, dt, pending, gr_coef, a_arr, c_arr, cx, cv, xi, acc,
                 xo, vo, els):
     """Synchronize into scratch copies and diagnose in one compiled call.
 
@@ -98,14 +102,14 @@ def wh_diagnose(xj, vj, gm, mu, eta, dt, pending, gr_coef, a_arr, c_arr, cx, cv,
     cv[:, :] = vj
     if pending:
         drift_all(cx, cv, mu, 0.5 * dt)
-    apply_stages(cx, cv, gm, mu, eta, dt, gr_coef, a_arr, c_arr, xi, acc)
-    to_inertial(cx, gm, eta, xo)
-    to_inertial(cv, gm, eta, vo)
+    apply_stages(cx, cv, gm, mu, mr, dt, gr_coef, a_arr, c_arr, xi, acc)
+    to_inertial(cx, mr, xo)
+    to_inertial(cv, mr, vo)
     return diagnose(xo, vo, gm, gr_coef, els)
 
 
 @njit(cache=True, error_model="numpy", nogil=True)
-def wh_steps(xj, vj, gm, mu, eta, dt, n_steps, pending, gr_coef, pairs, params, xi, acc, rh,
+def wh_steps(xj, vj, gm, mu, mr, dt, n_steps, pending, gr_coef, pairs, params, xi, acc, rh,
              step0, every, a_inv, c_inv, scratch, out_g, out_el, row0):
     """Take n_steps merged drift-kick-drift steps in place.
 
@@ -126,7 +130,7 @@ def wh_steps(xj, vj, gm, mu, eta, dt, n_steps, pending, gr_coef, pairs, params, 
         else:
             drift_all(xj, vj, mu, half)
             pending = True
-        kick(xj, vj, gm, mu, eta, dt, gr_coef, xi, acc)
+        kick(xj, vj, gm, mu, mr, dt, gr_coef, xi, acc)
         if is_broken(vj[vj.shape[0] - 1, 0]):
             return k + 1, pending, NUMERICAL_FAILURE_CODE, first_broken(xj, vj), -1, rows
         if check:
@@ -136,7 +140,7 @@ def wh_steps(xj, vj, gm, mu, eta, dt, n_steps, pending, gr_coef, pairs, params, 
         until -= 1
         if until == 0:
             until = every
-            e, lx, ly, lz = wh_diagnose(xj, vj, gm, mu, eta, dt, pending, gr_coef, a_inv, c_inv,
+            e, lx, ly, lz = wh_diagnose(xj, vj, gm, mu, mr, dt, pending, gr_coef, a_inv, c_inv,
                                         scratch[0], scratch[1], scratch[2], scratch[3],
                                         scratch[4], scratch[5], out_el[rows])
             out_g[rows, 0] = step0 + k + 1
@@ -149,16 +153,16 @@ def wh_steps(xj, vj, gm, mu, eta, dt, n_steps, pending, gr_coef, pairs, params, 
 
 
 @njit(cache=True, error_model="numpy")
-def apply_stages(xj, vj, gm, mu, eta, dt, gr_coef, a_arr, c_arr, xi, acc):
+def apply_stages(xj, vj, gm, mu, mr, dt, gr_coef, a_arr, c_arr, xi, acc):
     """Apply X(a, c) = drift(a dt) kick(c dt) drift(-a dt) for each stage in order."""
     for s in range(a_arr.shape[0]):
         drift_all(xj, vj, mu, a_arr[s] * dt)
-        kick(xj, vj, gm, mu, eta, c_arr[s] * dt, gr_coef, xi, acc)
+        kick(xj, vj, gm, mu, mr, c_arr[s] * dt, gr_coef, xi, acc)
         drift_all(xj, vj, mu, -a_arr[s] * dt)
 
 
 @njit(cache=True, error_model="numpy")
-def synchronize(xj, vj, gm, mu, eta, dt, pending, gr_coef, a_arr, c_arr, xi, acc, xo, vo):
+def synchronize(xj, vj, gm, mu, mr, dt, pending, gr_coef, a_arr, c_arr, xi, acc, xo, vo):
     """Physical inertial state of the (unchanged) internal state into xo, vo.
 
     Works on copies: the pending half-drift and the inverse corrector are
@@ -168,9 +172,9 @@ def synchronize(xj, vj, gm, mu, eta, dt, pending, gr_coef, a_arr, c_arr, xi, acc
     cv = vj.copy()
     if pending:
         drift_all(cx, cv, mu, 0.5 * dt)
-    apply_stages(cx, cv, gm, mu, eta, dt, gr_coef, a_arr, c_arr, xi, acc)
-    to_inertial(cx, gm, eta, xo)
-    to_inertial(cv, gm, eta, vo)
+    apply_stages(cx, cv, gm, mu, mr, dt, gr_coef, a_arr, c_arr, xi, acc)
+    to_inertial(cx, mr, xo)
+    to_inertial(cv, mr, vo)
 
 
 def _stage_arrays(order, sign):
@@ -189,7 +193,7 @@ class WisdomHolman(Integrator):
     dt : float
         Step, days; negative integrates backward.
     corrector : int
-        Order of the symplectic corrector: 0 (none), 3, 5, 7, 9, 11 or 17.
+        Order of the symplectic corrector: 0 (none) or any odd order from 3 to 31.
     gr : bool
         Add the star's general-relativistic potential (Nobili & Roxburgh 1986).
     stops : StopConditions, optional
@@ -209,13 +213,14 @@ class WisdomHolman(Integrator):
         self.pending = False
         if self.corrector:
             a, c = _stage_arrays(self.corrector, +1.0)
-            apply_stages(self.xj, self.vj, self.gm, self.mu, self.eta, self.dt,
+            apply_stages(self.xj, self.vj, self.gm, self.mu, self.mr, self.dt,
                          self.gr_coef, a, c, self._xi, self._acc)
 
     def _derive(self):
         # Quantities fixed by gm and settings; recomputed (deterministically) on restore.
         self.mu = jacobi_mu(self.gm)
         self.eta = np.cumsum(self.gm)
+        self.mr = self.gm / self.eta  # elementwise IEEE quotients, as the kernels divided
         self.gr_coef = gr_coefficient(self.gm[0]) if self.gr else 0.0
         n = len(self.gm)
         self._xi = np.zeros((n, 3))
@@ -233,7 +238,7 @@ class WisdomHolman(Integrator):
             out_g, out_el = self._no_out
         a_inv, c_inv = self._inv
         steps, self.pending, code, a, b, rows = wh_steps(
-            self.xj, self.vj, self.gm, self.mu, self.eta, self.dt, n, self.pending,
+            self.xj, self.vj, self.gm, self.mu, self.mr, self.dt, n, self.pending,
             self.gr_coef, self._stop_pairs, self._stop_params, self._xi, self._acc, self._rh,
             self.step + self.sample_offset, every, a_inv, c_inv, self._diag_scratch, out_g,
             out_el, row0)
@@ -244,13 +249,13 @@ class WisdomHolman(Integrator):
         xo = np.empty((n, 3))
         vo = np.empty((n, 3))
         a, c = self._inv
-        synchronize(self.xj, self.vj, self.gm, self.mu, self.eta, self.dt, self.pending,
+        synchronize(self.xj, self.vj, self.gm, self.mu, self.mr, self.dt, self.pending,
                     self.gr_coef, a, c, np.empty((n, 3)), np.empty((n, 3)), xo, vo)
         return xo, vo
 
     def _diagnose_into(self, els):
         a, c = self._inv
-        return wh_diagnose(self.xj, self.vj, self.gm, self.mu, self.eta, self.dt, self.pending,
+        return wh_diagnose(self.xj, self.vj, self.gm, self.mu, self.mr, self.dt, self.pending,
                            self.gr_coef, a, c, *self._diag_scratch, els)
 
     def _settle_pending(self, dt_forward):

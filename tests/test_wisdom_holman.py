@@ -106,7 +106,7 @@ def test_wrong_sign_corrector_makes_it_worse():
     right = max_energy_error(WisdomHolman(s, 100.0, corrector=3), n)
     wrong = WisdomHolman(s, 100.0, corrector=0)
     a, c = _stage_arrays(3, -1.0)
-    apply_stages(wrong.xj, wrong.vj, wrong.gm, wrong.mu, wrong.eta, wrong.dt, 0.0, a, c,
+    apply_stages(wrong.xj, wrong.vj, wrong.gm, wrong.mu, wrong.mr, wrong.dt, 0.0, a, c,
                  wrong._xi, wrong._acc)
     wrong.corrector = 3
     wrong._inv = _stage_arrays(3, +1.0)

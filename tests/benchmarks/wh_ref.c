@@ -21,14 +21,31 @@
 static double gm[NMAX], mu[NMAX], eta[NMAX], xj[NMAX][3], vj[NMAX][3], xi[NMAX][3], acc[NMAX][3];
 static int n;
 
+#define A0 (1.0 / 2.0)
+#define A1 (-1.0 / 24.0)
+#define A2 (1.0 / 720.0)
+#define A3 (-1.0 / 40320.0)
+#define A4 (1.0 / 3628800.0)
+#define A5 (-1.0 / 479001600.0)
+#define A6 (1.0 / 87178291200.0)
+#define A7 (-1.0 / 20922789888000.0)
+#define B0 (1.0 / 6.0)
+#define B1 (-1.0 / 120.0)
+#define B2 (1.0 / 5040.0)
+#define B3 (-1.0 / 362880.0)
+#define B4 (1.0 / 39916800.0)
+#define B5 (-1.0 / 6227020800.0)
+#define B6 (1.0 / 1307674368000.0)
+#define B7 (-1.0 / 355687428096000.0)
+
 static void stumpff(double x, double *c0, double *c1, double *c2, double *c3) {
     int k = 0;
     while ((x > 0.1 || x < -0.1) && k < 64) { x *= 0.25; k++; }
     if (x > 0.1 || x < -0.1) { *c0 = *c1 = *c2 = *c3 = NAN; return; }
-    double s3 = (1.0 - x * (1.0/20) * (1.0 - x * (1.0/42) * (1.0 - x * (1.0/72) * (1.0 - x * (1.0/110)
-                 * (1.0 - x * (1.0/156) * (1.0 - x * (1.0/210) * (1.0 - x * (1.0/272)))))))) * (1.0/6);
-    double s2 = (1.0 - x * (1.0/12) * (1.0 - x * (1.0/30) * (1.0 - x * (1.0/56) * (1.0 - x * (1.0/90)
-                 * (1.0 - x * (1.0/132) * (1.0 - x * (1.0/182) * (1.0 - x * (1.0/240)))))))) * 0.5;
+    /* Estrin's scheme over the series coefficients, as kepler.py */
+    double x2 = x * x, x4 = x2 * x2;
+    double s2 = ((A0 + A1 * x) + x2 * (A2 + A3 * x)) + x4 * ((A4 + A5 * x) + x2 * (A6 + A7 * x));
+    double s3 = ((B0 + B1 * x) + x2 * (B2 + B3 * x)) + x4 * ((B4 + B5 * x) + x2 * (B6 + B7 * x));
     double s1 = 1.0 - x * s3, s0 = 1.0 - x * s2;
     for (; k > 0; k--) {
         s3 = (s2 + s0 * s3) * 0.25; s2 = s1 * s1 * 0.5; s1 = s0 * s1; s0 = 2.0 * s0 * s0 - 1.0;
@@ -40,17 +57,17 @@ static void drift1(int i, double dt) {
     const double TWO_PI = 6.283185307179586;
     double *x = xj[i], *v = vj[i], m = mu[i];
     double r0 = sqrt(x[0]*x[0] + x[1]*x[1] + x[2]*x[2]);
+    double ir0 = 1.0 / r0;
     double vsq = v[0]*v[0] + v[1]*v[1] + v[2]*v[2];
     double eta0 = x[0]*v[0] + x[1]*v[1] + x[2]*v[2];
-    double beta = 2.0 * m / r0 - vsq, zeta0 = m - beta * r0;
+    double beta = 2.0 * m * ir0 - vsq, zeta0 = m - beta * r0;
     if (beta > 0.0 && dt*dt*beta*beta*beta > TWO_PI*TWO_PI*m*m) {
         double P = TWO_PI * m / (beta * sqrt(beta));
         dt = dt - trunc(dt / P) * P;
     }
-    double ir0 = 1.0 / r0;
     double s = dt * ir0 * (1.0 + dt * ir0 * ir0 * (-0.5 * eta0 + dt * ir0 * ir0
                                                    * (0.5 * eta0 * eta0 * ir0 - zeta0 * (1.0 / 6.0))));
-    if (beta > 0.0) { double smax = TWO_PI / sqrt(beta); if (s > smax) s = smax; if (s < -smax) s = -smax; }
+    if (beta > 0.0 && s * s * beta > 0.99 * TWO_PI * TWO_PI) { double smax = TWO_PI / sqrt(beta); if (s > smax) s = smax; if (s < -smax) s = -smax; }
     double lo, hi;  /* the root's bracket, as in kepler.py */
     if (dt >= 0.0) { lo = 0.0; hi = beta > 0.0 ? TWO_PI / sqrt(beta) : INFINITY; }
     else { lo = beta > 0.0 ? -TWO_PI / sqrt(beta) : -INFINITY; hi = 0.0; }
@@ -67,7 +84,7 @@ static void drift1(int i, double dt) {
         if (!(fabs(f) < INFINITY)) break;
         if (f == 0.0 || fabs(f) <= 4.0 * 0x1p-52 * (fabs(ta) + fabs(tb) + fabs(tc))) { ok = 1; break; }
         if (f > 0.0) hi = s; else lo = s;
-        double ds = -f / r; ds = -f / (r + 0.5 * ds * rp);
+        double ds = -f * r / (r * r - 0.5 * f * rp);
         double sn = s + ds;
         if (!(lo <= sn && sn <= hi) || !(r > 0.0)) break;
         if (fabs(ds) <= 1e-7 * fabs(sn) && fabs(ds) <= 1e-3 * fabs(dsp)) {
@@ -79,9 +96,17 @@ static void drift1(int i, double dt) {
         dsp = ds; s = sn;
     }
     if (!ok) { fprintf(stderr, "no convergence\n"); exit(1); }
-    double fm1 = -m * g2 / r0, g = r0 * g1 + eta0 * g2, fd = -m * g1 / (r0 * r);
+    double fm1 = -m * g2 * ir0, g = r0 * g1 + eta0 * g2, fd, gdm1;
     double f1 = 1.0 + fm1;  /* g' - 1 as in kepler.py: f g' - f' g = 1 unless |f| < 0.5 */
-    double gdm1 = (f1 >= 0.5 || f1 <= -0.5) ? (fd * g - fm1) / f1 : -m * g2 / r;
+    if (f1 >= 0.5 || f1 <= -0.5) {
+        double w = 1.0 / (r * f1);
+        fd = -m * g1 * ir0 * (f1 * w);
+        gdm1 = (fd * g - fm1) * (r * w);
+    } else {
+        double ir = 1.0 / r;
+        fd = -m * g1 * ir0 * ir;
+        gdm1 = -m * g2 * ir;
+    }
     double x0 = x[0], x1 = x[1], x2 = x[2];
     x[0] = x0 + (fm1 * x0 + g * v[0]); x[1] = x1 + (fm1 * x1 + g * v[1]); x[2] = x2 + (fm1 * x2 + g * v[2]);
     v[0] = v[0] + (fd * x0 + gdm1 * v[0]); v[1] = v[1] + (fd * x1 + gdm1 * v[1]); v[2] = v[2] + (fd * x2 + gdm1 * v[2]);
