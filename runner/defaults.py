@@ -25,6 +25,10 @@ SLICE_SECONDS = 0.5
 DEFAULT_OUTPUT_STEPS = 1_000
 # Chunk (checkpoint interval) when a spec gives none, in outputs.
 DEFAULT_CHUNK_OUTPUTS = 1_000
+# Most bytes of samples one chunk may hold in a worker's memory before its
+# checkpoint writes them (refused at submit above this): keeps a worker's
+# memory bounded whatever the plan.
+MAX_CHUNK_SAMPLE_BYTES = 64_000_000
 # Samples per Zarr chunk along the sample dimension.
 SAMPLE_CHUNK = 1_024
 # Exit code of `work` when work remains (stopped by signal or deadline).

@@ -53,6 +53,10 @@ def _cases(tmp="{tmp}"):
         ("store too large", spec("m.toml", good.replace('output = "500 steps"',
                                                         'output = "1 steps"').replace(
             'length = "100 yr"', 'length = "1e8 yr"'))),
+        ("chunk too large for memory", spec("m2.toml", good.replace(
+            'output = "500 steps"', 'output = "1 steps"').replace(
+            'chunk = "5000 steps"', 'chunk = "400000 steps"').replace(
+            'length = "100 yr"', 'length = "1e5 yr"'))),
         ("chunk not whole outputs", spec("n.toml", good.replace('chunk = "5000 steps"',
                                                                 'chunk = "5001 steps"'))),
         ("unknown unit", spec("o.toml", good.replace('step = "10 d"', 'step = "10 parsecs"'))),

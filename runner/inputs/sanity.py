@@ -5,8 +5,9 @@ fix. They catch specs that would run but mean nothing: coincident bodies (the
 forces are infinite; the kernel would only produce non-finite numbers), a
 body inside the star, an ejection distance that a body's own orbit already
 crosses (an ensemble would count an instant "ejection" as instability), a
-step longer than the shortest orbit, and an output plan whose store would
-outgrow a limit the user can raise.
+step longer than the shortest orbit, a chunk whose samples would not fit a
+worker's memory bound, and an output plan whose store would outgrow a limit
+the user can raise.
 """
 
 import math
@@ -63,12 +64,46 @@ def check(plan, spec):
                             "would count as ejected at once; give a distance beyond every "
                             "starting orbit.")
     _check_step(plan, spec)
+    _check_chunk_memory(plan, spec)
     size = projected_store_bytes(plan)
     limit = spec.span.max_store_gb * 1e9
     if size > limit:
         raise SpecError(f"the samples of this plan would take {size / 1e9:.3g} GB, above "
                         f"`span.max_store_gb` = {spec.span.max_store_gb:g}; sample less often "
                         "(`span.output`) or raise `span.max_store_gb`.")
+
+
+def chunk_memory_bytes(plan):
+    """Bytes of memory a worker holds for one chunk's samples before writing them.
+
+    A row in memory: the stored series, the compiled loop's five diagnostics
+    and the elements (8 bytes each).
+    """
+    n_bodies = len(plan.system.gm) - 1
+    return (_chunk_rows(plan) + 1) * (_ROW_BYTES + 8 + 5 * 8 + n_bodies * 6 * 8)
+
+
+def _chunk_rows(plan):
+    return min(plan.chunk_steps, plan.total_steps) // plan.output_steps
+
+
+def _check_chunk_memory(plan, spec):
+    """A chunk's samples wait in a worker's memory until its checkpoint: bound them."""
+    from orbitledger.runner import defaults
+    from orbitledger.runner.inputs.units import format_time
+
+    size = chunk_memory_bytes(plan)
+    limit = defaults.MAX_CHUNK_SAMPLE_BYTES
+    if size > limit:
+        per_row = size / (_chunk_rows(plan) + 1)
+        rows = max(1, int(limit // per_row) - 1)
+        most = rows * plan.output_steps
+        raise SpecError(
+            f"`span.chunk` = {spec.span.chunk!r} holds {_chunk_rows(plan)} "
+            f"samples ({size / 1e6:.3g} MB in a worker's memory until its checkpoint), above "
+            f"the {limit / 1e6:.0f} MB a chunk may hold; make `span.chunk` at most "
+            f"{format_time(most * abs(plan.dt))} ({most} steps) or sample less often "
+            "(`span.output`).")
 
 
 def _farthest(plan):

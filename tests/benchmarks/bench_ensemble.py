@@ -1,0 +1,113 @@
+"""Ensembles use every core: `work --workers N` against N times the bare kernel.
+
+An ensemble of 4 x N stable members (the invented Veyra giants, clones that
+differ by 1e-12 au in one semi-major axis) is run by `orbitledger work
+--workers N` in a fresh workspace; its rate is the member steps committed
+per wall-clock second, from the start of the command to its exit (process
+start, imports, claims, commits and samples included). It is compared, in
+the same run, with
+
+- the bare kernel in one process (steps per second of `advance`), times N;
+- N bare kernels in N processes at once: what this machine gives N busy
+  processes (a shared 2-core virtual machine gives less than N times one).
+
+Run:  .venv/bin/python tests/benchmarks/bench_ensemble.py [--workers 2] [--length "2 Myr"]
+Reports; asserts nothing.
+"""
+
+import argparse
+import json
+import multiprocessing as mp
+import os
+import subprocess
+import sys
+import tempfile
+import time
+
+HERE = os.path.dirname(os.path.abspath(__file__))
+ROOT = os.path.dirname(os.path.dirname(HERE))
+SPEC = os.path.join(ROOT, "jobs", "veyra-giants.toml")
+
+
+def ensemble_text(members, length):
+    base = open(SPEC, encoding="utf-8").read()
+    base = base.replace('length = "10 Myr"', f'length = "{length}"')
+    return base + f"""
+[ensemble]
+members = {members}
+[ensemble.perturb]
+body = "Veyra d"
+quantity = "a"
+rule = "step"
+size = "1e-12 au"
+"""
+
+
+def bare_rate(spec_text, seconds):
+    """Steps per second of the bare kernel on member 0 (after a warm-up)."""
+    from orbitledger.runner.inputs import ensemble, spec as S
+
+    spec = S.load_text(spec_text)
+    member = ensemble.member_spec(spec, 0) if spec.ensemble is not None else spec
+    integ = S.resolve(member).make_integrator()
+    integ.advance(1000)
+    n, t0 = 20000, time.perf_counter()
+    integ.advance(n)
+    per_step = (time.perf_counter() - t0) / n
+    steps = max(1, int(seconds / per_step))
+    t0 = time.perf_counter()
+    integ.advance(steps)
+    return steps / (time.perf_counter() - t0)
+
+
+def _bare_worker(args):
+    text, seconds = args
+    return bare_rate(text, seconds)
+
+
+def main():
+    ap = argparse.ArgumentParser()
+    ap.add_argument("--workers", type=int, default=2)
+    ap.add_argument("--length", default="2 Myr", help="span of each member")
+    ap.add_argument("--bare-seconds", type=float, default=8.0)
+    args = ap.parse_args()
+    n = args.workers
+    members = 4 * n
+    text = ensemble_text(members, args.length)
+
+    one = bare_rate(text, args.bare_seconds)
+    with mp.get_context("spawn").Pool(n) as pool:
+        together = sum(pool.map(_bare_worker, [(text, args.bare_seconds)] * n))
+
+    with tempfile.TemporaryDirectory() as tmp:
+        spec_path = os.path.join(tmp, "ens.toml")
+        with open(spec_path, "w", encoding="utf-8") as fh:
+            fh.write(text)
+        ws = os.path.join(tmp, "ws")
+        exe = [sys.executable, "-m", "orbitledger.runner.cli"]
+        subprocess.run(exe + ["init", "--workspace", ws], check=True, capture_output=True)
+        subprocess.run(exe + ["submit", spec_path, "--workspace", ws], check=True,
+                       capture_output=True)
+        t0 = time.perf_counter()
+        subprocess.run(exe + ["work", "--workers", str(n), "--workspace", ws, "--quiet",
+                              "--log-level", "warning"], check=True)
+        wall = time.perf_counter() - t0
+        status = subprocess.run(exe + ["status", "--json", "--workspace", ws], check=True,
+                                capture_output=True, text=True).stdout
+    jobs = json.loads(status)["jobs"]
+    steps = sum(j["steps_done"] for j in jobs)
+    done = sum(j["status"] == "done" for j in jobs)
+    rate = steps / wall
+    print(f"{members} members of {args.length} ({steps} member steps, {done} done), "
+          f"--workers {n}: {wall:.1f} s wall")
+    print("| measure | member steps / s | ensemble ÷ this |")
+    print("|---|---|---|")
+    print(f"| bare kernel, one process | {one:,.0f} | |")
+    print(f"| {n} × bare kernel, one process | {n * one:,.0f} | {rate / (n * one):.3f} |")
+    print(f"| {n} bare kernels in {n} processes at once | {together:,.0f} | "
+          f"{rate / together:.3f} |")
+    print(f"| `work --workers {n}` on the ensemble | {rate:,.0f} | |")
+
+
+if __name__ == "__main__":
+    main()
