@@ -1,6 +1,7 @@
 """Commands that set up, queue and run work: init, submit, work, status, show, extend,
 hold, release, cancel, batch, demo."""
 
+import os
 from pathlib import Path
 import time
 from typing import Annotated, Optional
@@ -92,7 +93,7 @@ def work(workspace: WorkspaceOpt = None, db: DbOpt = None,
     Exit code 0: nothing left to claim; 3: stopped with work remaining; 1: a worker failed.
     """
     stopflag.install()  # before the heavy imports: a stop during start-up is clean
-    from orbitledger.runner.execution.worker import Worker, run_pool, self_command
+    from orbitledger.runner.execution.pool import run_pool, self_command
     from orbitledger.runner.execution.worklog import setup_logging
 
     show = not quiet and out.is_terminal and workers == 1
@@ -114,11 +115,21 @@ def work(workspace: WorkspaceOpt = None, db: DbOpt = None,
             argv += ["--deadline", f"{max(0.0, end - time.time()):.3f} s"]
         if job is not None:
             argv += ["--job", str(job)]
-        open_ledger(workspace, db).close()  # fail fast with one line if there is no workspace
+        # Fail fast with one line if there is no workspace (or, given a database URL,
+        # no database); a plain workspace is checked without the heavy imports, so
+        # the workers start at once.
+        from orbitledger.runner.ledger.workspace import check_workspace
+
+        if db or os.environ.get(defaults.ENV_DB):
+            open_ledger(workspace, db).close()
+        else:
+            check_workspace(workspace)
         code = run_pool(argv, workers)
         if _AS_PROGRAM[0]:
             stopflag.exit_now(code)
         raise typer.Exit(code)
+    from orbitledger.runner.execution.worker import Worker
+
     beat = min(defaults.HEARTBEAT_SECONDS, lease / 4)
     with open_ledger(workspace, db, lease_seconds=lease) as ledger:
         if show:

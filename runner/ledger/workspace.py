@@ -5,7 +5,6 @@ from pathlib import Path
 
 from orbitledger.runner import defaults
 from orbitledger.runner.errors import NotFoundError
-from orbitledger.runner.ledger.operations import Ledger
 
 MARKER = "orbitledger-workspace"
 
@@ -29,13 +28,23 @@ def init(path=None, url=None):
     ws.mkdir(parents=True, exist_ok=True)
     (ws / defaults.STORE_NAME).mkdir(exist_ok=True)
     (ws / MARKER).write_text("This folder is an orbitledger workspace.\n")
+    from orbitledger.runner.ledger.operations import Ledger
+
     return ws, Ledger(db_url(ws, url), ws / defaults.STORE_NAME)
 
 
-def open_ledger(path=None, url=None, lease_seconds=defaults.LEASE_SECONDS):
-    """Open an existing workspace's ledger."""
+def check_workspace(path=None):
+    """The workspace folder, or NotFoundError in one line if there is none (light)."""
     ws = resolve_path(path)
     if not (ws / MARKER).exists():
         raise NotFoundError(f"no workspace at {ws}; run `orbitledger init` there first "
                             f"or point --workspace / ${defaults.ENV_WORKSPACE} at one.")
+    return ws
+
+
+def open_ledger(path=None, url=None, lease_seconds=defaults.LEASE_SECONDS):
+    """Open an existing workspace's ledger."""
+    from orbitledger.runner.ledger.operations import Ledger
+
+    ws = check_workspace(path)
     return Ledger(db_url(ws, url), ws / defaults.STORE_NAME, lease_seconds=lease_seconds)

@@ -29,9 +29,11 @@ ROOT = os.path.dirname(os.path.dirname(HERE))
 SPEC = os.path.join(ROOT, "jobs", "veyra-giants.toml")
 
 
-def ensemble_text(members, length):
+def ensemble_text(members, length, chunk=None):
     base = open(SPEC, encoding="utf-8").read()
     base = base.replace('length = "10 Myr"', f'length = "{length}"')
+    if chunk is not None:
+        base = base.replace('chunk = "500 kyr"', f'chunk = "{chunk}"')
     return base + f"""
 [ensemble]
 members = {members}
@@ -69,11 +71,13 @@ def main():
     ap = argparse.ArgumentParser()
     ap.add_argument("--workers", type=int, default=2)
     ap.add_argument("--length", default="2 Myr", help="span of each member")
+    ap.add_argument("--chunk", default=None,
+                    help="checkpoint interval (default: the job file's 500 kyr)")
     ap.add_argument("--bare-seconds", type=float, default=8.0)
     args = ap.parse_args()
     n = args.workers
     members = 4 * n
-    text = ensemble_text(members, args.length)
+    text = ensemble_text(members, args.length, args.chunk)
 
     one = bare_rate(text, args.bare_seconds)
     with mp.get_context("spawn").Pool(n) as pool:
@@ -98,8 +102,8 @@ def main():
     steps = sum(j["steps_done"] for j in jobs)
     done = sum(j["status"] == "done" for j in jobs)
     rate = steps / wall
-    print(f"{members} members of {args.length} ({steps} member steps, {done} done), "
-          f"--workers {n}: {wall:.1f} s wall")
+    print(f"{members} members of {args.length}, checkpoints every {args.chunk or '500 kyr'} "
+          f"({steps} member steps, {done} done), --workers {n}: {wall:.1f} s wall")
     print("| measure | member steps / s | ensemble ÷ this |")
     print("|---|---|---|")
     print(f"| bare kernel, one process | {one:,.0f} | |")

@@ -25,8 +25,10 @@ SPEC = os.path.join(ROOT, "jobs", "veyra-giants.toml")
 
 CASES = [
     # (label, length, output, chunk, stop by)
-    ("1 Gyr, a sample every step, chunks at the limit", "1 Gyr", "1 step", None, "SIGTERM"),
-    ("1 Gyr, a sample every step, chunks at the limit", "1 Gyr", "1 step", None, "cancel"),
+    # 100 kyr = 200 000 steps: 54 MB of samples per chunk, near the 64 MB limit
+    ("1 Gyr, a sample every step, 100 kyr chunks", "1 Gyr", "1 step", "100 kyr", "SIGTERM"),
+    ("1 Gyr, a sample every step, 100 kyr chunks", "1 Gyr", "1 step", "100 kyr", "cancel"),
+    ("1 Gyr, a sample every step, 1000-step chunks", "1 Gyr", "1 step", None, "SIGTERM"),
     ("1 Gyr, default outputs and chunks", "1 Gyr", None, None, "SIGTERM"),
 ]
 
