@@ -39,3 +39,5 @@ EXIT_FAILED = 1
 MAX_SPEC_BYTES = 1_000_000
 # Most bodies in one system.
 MAX_BODIES = 1_000
+# `status` lists every job up to this many; above it, one row per ensemble.
+STATUS_LIST_MAX = 40

@@ -43,6 +43,7 @@ class Summary:
     km_hi: np.ndarray
     median: float | None       # median time to instability, years
     rows: list
+    names: list | None = None  # body names (star first) of the ensemble, for its stops
 
 
 def member_outcome(row):
@@ -88,8 +89,8 @@ def wilson(k, n, confidence=0.95):
     return float(ci.low), float(ci.high)
 
 
-def summarise(rows, confidence=0.95):
-    """A :class:`Summary` of member job rows."""
+def summarise(rows, confidence=0.95, names=None):
+    """A :class:`Summary` of member job rows (``names``: the ensemble's body names)."""
     n = len(rows)
     labels, times, events = [], [], []
     for r in rows:
@@ -108,16 +109,20 @@ def summarise(rows, confidence=0.95):
     below = np.nonzero(km_s <= 0.5)[0]
     median = float(km_t[below[0]]) if len(below) else None
     return Summary(n, counts, k, k / n if n else 0.0, ci, times, events, km_t, km_s, lo, hi,
-                   median, [dict(r, label=lab) for r, lab in zip(rows, labels)])
+                   median, [dict(r, label=lab) for r, lab in zip(rows, labels)], names)
 
 
-def member_bodies(row):
-    """The bodies of a member's stop, by name (empty when it did not stop)."""
+def member_bodies(row, names=None):
+    """The bodies of a member's stop, by name (empty when it did not stop).
+
+    ``names`` (star first) saves reading them from the member's own spec.
+    """
     from orbitledger.runner.inputs.spec import body_names_from_json
 
     if not row.get("outcome_bodies"):
         return []
-    names = body_names_from_json(row["spec_json"]) or []
+    if names is None:
+        names = body_names_from_json(row["spec_json"]) or []
     idx = [int(k) for k in str(row["outcome_bodies"]).split(",") if k != ""]
     return [names[k] if 0 <= k < len(names) else f"body {k}" for k in idx]
 
@@ -126,7 +131,7 @@ def counts_by_body(summary):
     """{outcome: {"body, body": members}} for members whose stop names bodies."""
     out = {}
     for r in summary.rows:
-        names = member_bodies(r)
+        names = member_bodies(r, summary.names)
         if names:
             per = out.setdefault(r["label"], {})
             key = ", ".join(names)
@@ -144,7 +149,7 @@ def summary_rows(summary):
 
     by = {}
     for r, t in zip(summary.rows, summary.times):
-        names = member_bodies(r)
+        names = member_bodies(r, summary.names)
         label = r["label"] + (f": {', '.join(names)}" if names else "")
         by.setdefault(label, []).append(t)
     name, scale = time_unit(365.25 * float(summary.times.max()) if summary.n else 0.0)

@@ -176,20 +176,40 @@ def _work_with_progress(ledger, end, job, order, beat):
 @_guard
 def status(workspace: WorkspaceOpt = None, db: DbOpt = None,
            ensemble: Annotated[Optional[int], typer.Option(help="Only this ensemble's members.")]
-           = None, as_json: JsonOpt = False):
-    """A table of all jobs."""
-    from orbitledger.runner.presentation.tables import status_table
+           = None,
+           all_jobs: Annotated[bool, typer.Option(
+               "--all", help="List every job, even in a large ledger.")] = False,
+           as_json: JsonOpt = False):
+    """A table of the jobs; in a large ledger, one row per ensemble and the other jobs."""
+    from orbitledger.runner.presentation.tables import ensemble_table, status_table
 
     with open_ledger(workspace, db) as ledger:
         if ensemble is not None:
             ledger.ensemble(ensemble)  # one line if there is no such ensemble
-        rows = ledger.jobs(ensemble_id=ensemble)
+        summarise = (not all_jobs and ensemble is None and not as_json
+                     and ledger.n_jobs() > defaults.STATUS_LIST_MAX)
+        if summarise:
+            ens = ledger.ensemble_summaries()
+            alone = ledger.jobs_outside_ensembles(limit=defaults.STATUS_LIST_MAX)
+        else:
+            rows = ledger.jobs(ensemble_id=ensemble)
     if as_json:
         from orbitledger.runner.presentation.records import job_record
 
         print_json({"jobs": [job_record(r) for r in rows]})
         return
-    out.print(status_table(rows))
+    if not summarise:
+        out.print(status_table(rows))
+        return
+    if ens:
+        out.print(ensemble_table(ens))
+    if alone:
+        out.print(status_table(alone, title="Jobs outside ensembles"
+                               + (f" (the last {len(alone)})"
+                                  if len(alone) == defaults.STATUS_LIST_MAX else "")))
+    out.print(f"{sum(sum(e['counts'].values()) for e in ens)} members of {len(ens)} "
+              "ensemble(s) summarised; `status --ensemble ID` lists one ensemble's "
+              "members, `status --all` every job.")
 
 
 @app.command()

@@ -23,12 +23,14 @@ def outcomes(ensemble_id: Annotated[int, typer.Argument(help="Ensemble id.", min
     from rich.table import Table
 
     from orbitledger.runner.analysis.outcomes import summarise, summary_rows
+    from orbitledger.runner.inputs.spec import body_names_from_json
     from orbitledger.runner.inputs.units import format_time
     from orbitledger.runner.presentation import plots
 
     with open_ledger(workspace, db) as ledger:
         ens = ledger.ensemble(ensemble_id)
-        s = summarise(ledger.jobs(ensemble_id=ensemble_id))
+        s = summarise(ledger.member_outcomes(ensemble_id),
+                      names=body_names_from_json(ens["spec_json"]))
         if as_json:
             from orbitledger.runner.presentation.records import outcomes_record
 

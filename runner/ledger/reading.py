@@ -7,7 +7,7 @@ import numpy as np
 from sqlalchemy import and_, func, select
 
 from orbitledger.runner.errors import NotFoundError
-from orbitledger.runner.ledger.db import (checkpoints, events, jobs, segments)
+from orbitledger.runner.ledger.db import checkpoints, ensembles, events, jobs, segments
 from orbitledger.runner.ledger.status import JobStatus
 
 
@@ -69,6 +69,60 @@ class Reading:
     def events(self, job_id):
         """A job's events, in order."""
         return self._job_rows(events, job_id, events.c.id)
+
+    def member_outcomes(self, ensemble_id):
+        """What outcome statistics need of an ensemble's members (no specs): dicts of
+        id, status, outcome, outcome_time, outcome_bodies, steps_done, dt, oldest first."""
+        cols = (jobs.c.id, jobs.c.status, jobs.c.outcome, jobs.c.outcome_time,
+                jobs.c.outcome_bodies, jobs.c.steps_done, jobs.c.dt)
+        with self.engine.connect() as conn:
+            return [dict(r) for r in conn.execute(select(*cols).where(
+                jobs.c.ensemble_id == ensemble_id).order_by(jobs.c.id)).mappings()]
+
+    def n_jobs(self):
+        """Number of jobs in the ledger."""
+        with self.engine.connect() as conn:
+            return int(conn.execute(select(func.count()).select_from(jobs)).scalar())
+
+    def jobs_outside_ensembles(self, limit=None):
+        """Rows of jobs that belong to no ensemble, newest last (the last `limit` of them)."""
+        q = select(jobs).where(jobs.c.ensemble_id.is_(None)).order_by(jobs.c.id.desc())
+        if limit is not None:
+            q = q.limit(limit)
+        with self.engine.connect() as conn:
+            return [dict(r) for r in conn.execute(q).mappings()][::-1]
+
+    def ensemble_summaries(self):
+        """Per ensemble, aggregated in the database (fast for any number of members):
+        dicts with id, name, members, counts by status, steps done and in all, the
+        largest energy error, the members stopped by each outcome, the step and
+        the spans (days) of its members."""
+        out = {}
+        with self.engine.connect() as conn:
+            for e in conn.execute(select(ensembles.c.id, ensembles.c.name,
+                                         ensembles.c.members)).mappings():
+                out[e["id"]] = dict(e, counts={}, outcomes={}, steps_done=0, total_steps=0,
+                                    max_energy_error=0.0, done_days=[], total_days=[])
+            q = select(jobs.c.ensemble_id, jobs.c.status, func.count(),
+                       func.sum(jobs.c.steps_done), func.sum(jobs.c.total_steps),
+                       func.max(jobs.c.max_energy_error),
+                       func.min(func.abs(jobs.c.steps_done * jobs.c.dt)),
+                       func.max(func.abs(jobs.c.total_steps * jobs.c.dt))).where(
+                jobs.c.ensemble_id.is_not(None)).group_by(jobs.c.ensemble_id, jobs.c.status)
+            for ens, st, n, done, total, emax, tmin, tmax in conn.execute(q):
+                e = out[ens]
+                e["counts"][st] = int(n)
+                e["steps_done"] += int(done or 0)
+                e["total_steps"] += int(total or 0)
+                e["max_energy_error"] = max(e["max_energy_error"], float(emax or 0.0))
+                e["done_days"].append(float(tmin or 0.0))
+                e["total_days"].append(float(tmax or 0.0))
+            q = select(jobs.c.ensemble_id, jobs.c.outcome, func.count()).where(and_(
+                jobs.c.ensemble_id.is_not(None), jobs.c.status == JobStatus.STOPPED.value)
+            ).group_by(jobs.c.ensemble_id, jobs.c.outcome)
+            for ens, outcome, n in conn.execute(q):
+                out[ens]["outcomes"][outcome or "-"] = int(n)
+        return [e for e in out.values() if e["counts"]]
 
     def counts(self):
         """Number of jobs by status."""

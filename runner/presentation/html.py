@@ -176,10 +176,12 @@ def job_report(ledger, job_id, compare_with=None):
 def ensemble_section(ledger, ensemble_id):
     """HTML section of an ensemble's outcomes (table, statistics, survival plot)."""
     from orbitledger.runner.analysis.outcomes import summarise, summary_rows
+    from orbitledger.runner.inputs.spec import body_names_from_json
     from orbitledger.runner.inputs.units import format_time
 
     ens = ledger.ensemble(ensemble_id)
-    s = summarise(ledger.jobs(ensemble_id=ensemble_id))
+    s = summarise(ledger.member_outcomes(ensemble_id),
+                      names=body_names_from_json(ens["spec_json"]))
     stats_rows = [("members", s.n), ("unstable", s.unstable),
                   ("instability fraction", f"{s.fraction:.3f}"),
                   ("95% Wilson interval", f"{s.ci[0]:.3f} - {s.ci[1]:.3f}"),

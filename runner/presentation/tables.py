@@ -98,6 +98,25 @@ def status_table(rows, title="Jobs"):
     return t
 
 
+def ensemble_table(summaries):
+    """One row per ensemble (from Ledger.ensemble_summaries): members by status, progress,
+    simulated time, the largest energy error, the members stopped unstable so far."""
+    t = Table(title="Ensembles", header_style="bold")
+    for col, just in (("ensemble", "right"), ("name", "left"), ("members", "right"),
+                      ("by status", "left"), ("progress", "right"), ("simulated", "right"),
+                      ("max |dE/E|", "right"), ("stopped", "left")):
+        t.add_column(col, justify=just)
+    for e in summaries:
+        frac = e["steps_done"] / e["total_steps"] if e["total_steps"] else 1.0
+        lo, hi = min(e["done_days"]), max(e["total_days"])
+        t.add_row(str(e["id"]), e["name"], str(sum(e["counts"].values())),
+                  ", ".join(f"{n} {st}" for st, n in sorted(e["counts"].items())),
+                  f"{100 * frac:.1f}%", f"from {format_time(lo)}, of {format_time(hi)}",
+                  f"{e['max_energy_error']:.2e}",
+                  ", ".join(f"{n} {k}" for k, n in sorted(e["outcomes"].items())) or "-")
+    return t
+
+
 def show_tables(ledger, job_id):
     """Tables for `show`: the job, its checkpoints summary and its provenance."""
     row = ledger.job(job_id)

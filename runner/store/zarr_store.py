@@ -21,6 +21,7 @@ import asyncio
 import hashlib
 import json
 import os
+import shutil
 import uuid
 from pathlib import Path
 
@@ -357,6 +358,37 @@ def _store_error(job_id, path, what, err):
     return StoreError(f"job {job_id}: {what} could not be read ({type(err).__name__}: {err}).")
 
 
+async def _create_async(path, body_names, capacity):
+    """A job's groups, sample arrays and label arrays, created concurrently."""
+    from zarr.api import asynchronous as za
+    from zarr.storage import LocalStore
+
+    g = await za.group(store=LocalStore(str(path)), overwrite=True, attributes={
+        "body_names": body_names, "element_names": ELEMENT_NAMES,
+        "units": {"time": "d", "a": "au", "angles": "deg"}})
+    s, _ = await asyncio.gather(
+        g.create_group("samples", attributes={"body_names": body_names[1:]}),
+        g.create_group("checkpoints"))
+    nb = len(body_names) - 1
+    # Uncompressed: appends rewrite partly filled chunks, and float time series
+    # compress poorly anyway.
+    coros = [s.create_array(key, shape=(capacity,), dtype=dtype,
+                            chunks=(defaults.SAMPLE_CHUNK,), dimension_names=dims,
+                            compressors=None, fill_value=-1 if dtype == "i8" else np.nan,
+                            attributes=_ATTRS[key]) for key, (dtype, dims) in _SERIES.items()]
+    coros.append(s.create_array("elements", shape=(capacity, nb, 6), dtype="f8",
+                                fill_value=np.nan, chunks=(defaults.SAMPLE_CHUNK, nb, 6),
+                                dimension_names=["sample", "body", "element"],
+                                compressors=None, attributes=_ATTRS["elements"]))
+    # Labels of the body and element dimensions (written once, never resized).
+    labels = {"body": body_names[1:], "element": ELEMENT_NAMES}
+    coros += [s.create_array(key, shape=(len(v),), dtype=str, dimension_names=[key],
+                             compressors=None) for key, v in labels.items()]
+    arrays = await asyncio.gather(*coros)
+    await asyncio.gather(*[a.setitem(slice(None), np.array(labels[k]))
+                           for a, k in zip(arrays[-2:], labels)])
+
+
 class Store:
     """Zarr checkpoint store rooted at a folder.
 
@@ -369,6 +401,7 @@ class Store:
     def __init__(self, root):
         self.root = Path(root)
         self._open = {}
+        self._templates = {}  # (body names, first size) -> bytes of a fresh group
 
     def job_path(self, job_id):
         """Folder of a job's Zarr group."""
@@ -390,7 +423,7 @@ class Store:
         return self._open[key]
 
     # -- creation -------------------------------------------------------------
-    def create_job(self, job_id, body_names, capacity=0):
+    def create_job(self, job_id, body_names, capacity=0, durable=True):
         """Create (or reset) a job's group with sample arrays of up to one chunk of rows.
 
         ``capacity`` (the rows the whole run needs) only caps the first size:
@@ -404,37 +437,37 @@ class Store:
         try:
             path = self.job_path(job_id)
             self._forget(job_id)
-            g = zarr.open_group(str(path), mode="w")
-            g.attrs["body_names"] = list(body_names)
-            g.attrs["element_names"] = ELEMENT_NAMES
-            g.attrs["units"] = {"time": "d", "a": "au", "angles": "deg"}
-            s = g.create_group("samples")
-            for key, (dtype, dims) in _SERIES.items():
-                # Uncompressed: appends rewrite partly filled chunks, and float
-                # time series compress poorly anyway.
-                s.create_array(key, shape=(capacity,), dtype=dtype,
-                               chunks=(defaults.SAMPLE_CHUNK,), dimension_names=dims,
-                               compressors=None, fill_value=-1 if dtype == "i8" else np.nan,
-                               attributes=_ATTRS[key])
-            nb = len(body_names) - 1
-            s.create_array("elements", shape=(capacity, nb, 6), dtype="f8", fill_value=np.nan,
-                           chunks=(defaults.SAMPLE_CHUNK, nb, 6),
-                           dimension_names=["sample", "body", "element"], compressors=None,
-                           attributes=_ATTRS["elements"])
-            # Labels of the body and element dimensions (written once, never resized).
-            for key, labels in (("body", list(body_names[1:])), ("element", ELEMENT_NAMES)):
-                arr = s.create_array(key, shape=(len(labels),), dtype=str,
-                                     dimension_names=[key], compressors=None)
-                arr[:] = np.array(labels)
-            s.attrs["body_names"] = list(body_names[1:])
-            g.create_group("checkpoints")
-            self._open[int(job_id)] = g
-            # The new group's metadata is durable before anything refers to it.
-            files, dirs = [], [str(self.root), str(path)]
-            for root, subdirs, names in os.walk(path):
-                dirs.append(root)
-                files.extend(os.path.join(root, n) for n in names)
-            _fsync_paths(files, dirs)
+            key = (tuple(body_names), capacity)
+            files = self._templates.get(key)
+            if files is None:
+                # All groups and arrays in one batch on zarr's event loop; the
+                # bytes it wrote are kept as the template of every later job
+                # with the same bodies and first size (the members of an
+                # ensemble), which is then written as plain files.
+                _run(_create_async(path, list(body_names), capacity))
+                files = {}
+                for root, _, names in os.walk(path):
+                    for n in names:
+                        full = os.path.join(root, n)
+                        with open(full, "rb") as fh:
+                            files[os.path.relpath(full, path)] = fh.read()
+                self._templates = {key: files}  # one kept: the last shape used
+            else:
+                if path.exists():
+                    shutil.rmtree(path)
+                for rel, data in files.items():
+                    full = path / rel
+                    full.parent.mkdir(parents=True, exist_ok=True)
+                    with open(full, "wb") as fh:
+                        fh.write(data)
+            # The new group's metadata is durable before anything refers to it
+            # (with durable=False the caller makes it so, see sync_all).
+            if durable:
+                files, dirs = [], [str(self.root), str(path)]
+                for root, subdirs, names in os.walk(path):
+                    dirs.append(root)
+                    files.extend(os.path.join(root, n) for n in names)
+                _fsync_paths(files, dirs)
         except OSError as err:
             raise StoreError(f"could not create the store for job {job_id}: {err}") from err
 
@@ -530,6 +563,18 @@ class Store:
         Returns (SHA-256 of the samples block, SHA-256 of the state).
         """
         return self._write(job_id, (start, block), (idx, fence, arrays), durable, fence)
+
+    def write_first(self, job_id, block, arrays, durable=True):
+        """Write a new job's first sample row and checkpoint 0 in one batch (nothing kept
+        cached: a submit of many jobs holds no handles). Returns (samples, state) SHA-256."""
+        return self._write(job_id, (0, block), (0, 0, arrays), durable, None)
+
+    @staticmethod
+    def sync_all():
+        """Make every file written so far durable at once (sync(2), which on Linux
+        returns when the data are on disk): one barrier for a submit of many jobs
+        written with durable=False, before the database commit refers to them."""
+        os.sync()
 
     def write_checkpoint(self, job_id, idx, fence, arrays, durable=True):
         """Write a checkpoint's state arrays; returns their SHA-256."""
