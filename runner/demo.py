@@ -13,7 +13,7 @@ from rich.table import Table
 from orbitledger.runner.inputs import spec as spec_mod
 from orbitledger.runner.presentation.tables import status_table
 from orbitledger.runner.ledger.status import JobStatus
-from orbitledger.runner.inputs.units import format_time
+from orbitledger.runner.inputs.text import format_time
 from orbitledger.runner.ledger.workspace import MARKER, init
 
 JOBS_DIR = Path(__file__).resolve().parents[1] / "jobs"

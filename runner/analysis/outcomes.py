@@ -117,7 +117,7 @@ def member_bodies(row, names=None):
 
     ``names`` (star first) saves reading them from the member's own spec.
     """
-    from orbitledger.runner.inputs.spec import body_names_from_json
+    from orbitledger.runner.inputs.text import body_names_from_json
 
     if not row.get("outcome_bodies"):
         return []
@@ -145,7 +145,7 @@ def summary_rows(summary):
     Rows read ("ejection: Ilvar d", members, "1.2, 3.4, 5.6") with the times
     in the unit of the header ("times (Myr)"), the first twelve in order.
     """
-    from orbitledger.runner.inputs.units import time_unit
+    from orbitledger.runner.inputs.text import time_unit
 
     by = {}
     for r, t in zip(summary.rows, summary.times):

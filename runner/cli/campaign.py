@@ -147,7 +147,7 @@ def _work_with_progress(ledger, end, job, order, beat):
     from rich.progress import BarColumn, Progress, TextColumn, TimeRemainingColumn
 
     from orbitledger.runner.presentation.tables import format_rate
-    from orbitledger.runner.inputs.units import format_time
+    from orbitledger.runner.inputs.text import format_time
     from orbitledger.runner.execution.worker import Worker
 
     tasks = {}

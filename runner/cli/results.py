@@ -23,8 +23,8 @@ def outcomes(ensemble_id: Annotated[int, typer.Argument(help="Ensemble id.", min
     from rich.table import Table
 
     from orbitledger.runner.analysis.outcomes import summarise, summary_rows
-    from orbitledger.runner.inputs.spec import body_names_from_json
-    from orbitledger.runner.inputs.units import format_time
+    from orbitledger.runner.inputs.text import body_names_from_json
+    from orbitledger.runner.inputs.text import format_time
     from orbitledger.runner.presentation import plots
 
     with open_ledger(workspace, db) as ledger:

@@ -90,7 +90,7 @@ def _chunk_rows(plan):
 def _check_chunk_memory(plan, spec):
     """A chunk's samples wait in a worker's memory until its checkpoint: bound them."""
     from orbitledger.runner import defaults
-    from orbitledger.runner.inputs.units import format_time
+    from orbitledger.runner.inputs.text import format_time
 
     size = chunk_memory_bytes(plan)
     limit = defaults.MAX_CHUNK_SAMPLE_BYTES

@@ -505,10 +505,4 @@ def resolve(spec):
     return plan
 
 
-def body_names_from_json(spec_json):
-    """Body names (star first) from a job's stored spec JSON, or None if it has none."""
-    try:
-        system = json.loads(spec_json)["system"]
-        return [system["star"]["name"]] + [b["name"] for b in system["bodies"]]
-    except (KeyError, TypeError, ValueError):
-        return None
+from orbitledger.runner.inputs.text import body_names_from_json  # noqa: E402,F401

@@ -57,39 +57,5 @@ def parse_quantity(key, value, kind):
     return out
 
 
-def format_time(days):
-    """A readable time: 0 yr, 8 d, 0.5 yr, 37.2 yr, 500 kyr, 9.95 Myr, 2 Gyr.
-
-    Below a year, a round number of years (0.5 yr, 0.25 yr) reads as years
-    and anything else in days.
-    """
-    yr = days / 365.25
-    a = abs(yr)
-    if days == 0:
-        return "0 yr"
-    if a < 1:
-        r = float(f"{yr:.3g}")
-        if abs(r - yr) <= 1e-12 * a:
-            return f"{r:g} yr"
-        return f"{days:.4g} d"
-    for scale, name in ((1e9, "Gyr"), (1e6, "Myr"), (1e3, "kyr")):
-        if a >= scale:
-            return f"{yr / scale:.4g} {name}"
-    return f"{yr:.4g} yr"
-
-
-TIME_UNITS = (("d", 1.0), ("yr", 365.25), ("kyr", 365.25e3), ("Myr", 365.25e6),
-              ("Gyr", 365.25e9))
-
-
-def time_unit(days):
-    """(name, days per unit) of the unit in which ``days`` reads as 1 to 1000 (at least yr).
-
-    One unit for a whole column or axis: pass its largest value.
-    """
-    a = abs(days)
-    name, scale = "yr", 365.25
-    for n, sc in TIME_UNITS[2:]:
-        if a >= sc:
-            name, scale = n, sc
-    return name, scale
+# Readable times live in a light module (no astropy) for the status commands.
+from orbitledger.runner.inputs.text import TIME_UNITS, format_time, time_unit  # noqa: E402,F401

@@ -57,6 +57,12 @@ jobs = Table(
     sqlite_autoincrement=True,
 )
 Index("ix_jobs_status", jobs.c.status)
+# The claim's two orders (breadth-first and depth-first) over queued jobs, read
+# from an index instead of sorting every queued row (a 100 000-member ensemble).
+Index("ix_jobs_claim_breadth", jobs.c.status, jobs.c.priority.desc(), jobs.c.steps_done,
+      jobs.c.id)
+Index("ix_jobs_claim_depth", jobs.c.status, jobs.c.priority.desc(), jobs.c.steps_done.desc(),
+      jobs.c.id)
 
 checkpoints = Table(
     "checkpoints", metadata,
@@ -209,5 +215,9 @@ def make_engine(url):
 
 
 def create_schema(engine):
-    """Create the tables if they do not exist."""
+    """Create the tables and indexes that do not exist (indexes added by later versions
+    are created on ledgers made before them)."""
     metadata.create_all(engine)
+    for table in metadata.sorted_tables:
+        for index in table.indexes:
+            index.create(engine, checkfirst=True)

@@ -14,7 +14,7 @@ from sqlalchemy import and_, select, update
 
 from orbitledger.runner import defaults
 from orbitledger.runner.errors import FencedError, LedgerError, NotFoundError
-from orbitledger.runner.inputs.units import format_time
+from orbitledger.runner.inputs.text import format_time
 # GENESIS, Claim, CommitResult, angmom0 and repair_by_replay are imported from here.
 from orbitledger.runner.ledger.basics import GENESIS, Claim, CommitResult, _now  # noqa: F401
 from orbitledger.runner.ledger.db import create_schema, is_sqlite, jobs, make_engine

@@ -6,7 +6,7 @@ import time
 
 from orbitledger.runner.analysis.budgets import audit_job
 from orbitledger.runner.presentation import plots
-from orbitledger.runner.inputs.units import format_time
+from orbitledger.runner.inputs.text import format_time
 from orbitledger.runner.presentation.tables import (every_text, format_duration, outcome_text,
                                                     progress_fraction, span_text, step_text)
 
@@ -176,8 +176,8 @@ def job_report(ledger, job_id, compare_with=None):
 def ensemble_section(ledger, ensemble_id):
     """HTML section of an ensemble's outcomes (table, statistics, survival plot)."""
     from orbitledger.runner.analysis.outcomes import summarise, summary_rows
-    from orbitledger.runner.inputs.spec import body_names_from_json
-    from orbitledger.runner.inputs.units import format_time
+    from orbitledger.runner.inputs.text import body_names_from_json
+    from orbitledger.runner.inputs.text import format_time
 
     ens = ledger.ensemble(ensemble_id)
     s = summarise(ledger.member_outcomes(ensemble_id),

@@ -105,7 +105,7 @@ def page(title, sections, subtitle=None):
 
 def _time_axis(days):
     """Times (days from the start) in one readable unit: (values, axis label)."""
-    from orbitledger.runner.inputs.units import time_unit
+    from orbitledger.runner.inputs.text import time_unit
 
     days = np.asarray(days, dtype=float)
     name, scale = time_unit(float(np.abs(days).max()) if days.size else 0.0)
@@ -116,7 +116,7 @@ def _years_axis(ax, max_years):
     """Label a linear x axis that holds years in one readable unit ("time (Myr)")."""
     from matplotlib.ticker import FuncFormatter
 
-    from orbitledger.runner.inputs.units import time_unit
+    from orbitledger.runner.inputs.text import time_unit
 
     name, scale = time_unit(max_years * 365.25)
     per = scale / 365.25

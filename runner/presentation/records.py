@@ -7,7 +7,7 @@ import math
 
 import numpy as np
 
-from orbitledger.runner.inputs.spec import body_names_from_json
+from orbitledger.runner.inputs.text import body_names_from_json
 
 YEAR_D = 365.25
 

@@ -5,9 +5,9 @@ import time
 
 from rich.table import Table
 
-from orbitledger.runner.inputs.units import format_time, time_unit
+from orbitledger.runner.inputs.text import format_time, time_unit
 from orbitledger.runner.ledger.status import JobStatus
-from orbitledger.runner.inputs.spec import body_names_from_json
+from orbitledger.runner.inputs.text import body_names_from_json
 from orbitledger.runner.presentation.records import body_list
 
 

@@ -28,11 +28,13 @@ from pathlib import Path
 import numpy as np
 import zarr
 
-from orbitledger.integrators.constants import YEAR_D
 from orbitledger.runner import defaults
 from orbitledger.runner.errors import StoreError
 from orbitledger.runner.execution.failpoints import failpoint
 
+# The Julian year in days (as integrators.constants.YEAR_D; not imported from
+# there, so reading a store does not load the numerical core).
+YEAR_D = 365.25
 ELEMENT_NAMES = ["a", "e", "i", "node", "peri", "mean_anomaly"]
 ELEMENT_UNITS = ["au", "1", "deg", "deg", "deg", "deg"]
 # CF-style attributes, so that xarray opens a job's samples as a self-describing
