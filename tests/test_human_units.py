@@ -96,3 +96,27 @@ def test_status_show_extend_and_outcomes_speak_in_time_and_names(tmp_path):
     rec = json.loads(_invoke("outcomes", "1", "--json", "--workspace", ws))
     assert rec["counts_by_body"] == {"ejection": {"Orrin d": len(ejected)}}
     assert rec["counts"]["ejection"] == len(ejected)
+
+
+def test_a_large_ledger_is_summarised_by_ensemble(tmp_path):
+    from orbitledger.runner import defaults
+
+    ws = tmp_path / "ws"
+    _invoke("init", "--workspace", ws)
+    ens = tmp_path / "ens.toml"
+    members = defaults.STATUS_LIST_MAX + 5
+    ens.write_text(_ensemble_text().replace("members = 6", f"members = {members}")
+                   .replace('"11.79 au"', '"20 au"'))
+    one = tmp_path / "one.toml"
+    one.write_text(small_spec_text(name="single", length="300 yr"))
+    _invoke("submit", ens, "--workspace", ws)
+    _invoke("submit", one, "--workspace", ws)
+    text = _invoke("status", "--workspace", ws)
+    assert "Ensembles" in text and f"{members} queued" in text, text
+    assert "single" in text  # jobs outside ensembles are still listed
+    assert "units-ens-m0003" not in text  # members are summarised, not listed
+    assert f"{members} members of 1 ensemble(s) summarised" in text
+    text = _invoke("status", "--all", "--workspace", ws)
+    assert "units-ens-m0003" in text and "Ensembles" not in text
+    rows = json.loads(_invoke("status", "--json", "--workspace", ws))["jobs"]
+    assert len(rows) == members + 1

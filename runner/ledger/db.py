@@ -57,6 +57,8 @@ jobs = Table(
     sqlite_autoincrement=True,
 )
 Index("ix_jobs_status", jobs.c.status)
+# An ensemble's members (outcomes, `status --ensemble`, the jobs outside ensembles).
+Index("ix_jobs_ensemble", jobs.c.ensemble_id)
 # The claim's two orders (breadth-first and depth-first) over queued jobs, read
 # from an index instead of sorting every queued row (a 100 000-member ensemble).
 Index("ix_jobs_claim_breadth", jobs.c.status, jobs.c.priority.desc(), jobs.c.steps_done,

@@ -111,7 +111,7 @@ def ensemble_table(summaries):
         lo, hi = min(e["done_days"]), max(e["total_days"])
         t.add_row(str(e["id"]), e["name"], str(sum(e["counts"].values())),
                   ", ".join(f"{n} {st}" for st, n in sorted(e["counts"].items())),
-                  f"{100 * frac:.1f}%", f"from {format_time(lo)}, of {format_time(hi)}",
+                  f"{100 * frac:.1f}%", f"{format_time(lo)} (least) of {format_time(hi)}",
                   f"{e['max_energy_error']:.2e}",
                   ", ".join(f"{n} {k}" for k, n in sorted(e["outcomes"].items())) or "-")
     return t
