@@ -106,3 +106,21 @@ def stepping_clock(step=0.05):
         return t[0]
 
     return clock
+
+
+def ejecting_ensemble_text(name, members=6, escape="11.79 au"):
+    """Six clones of the Orrin system whose Orrin d eccentricity steps from 0.020 by 0.002:
+    the secular rise of its eccentricity carries the more eccentric members past the
+    escape distance at different times (about 13000 to 20000 yr); the others survive."""
+    return small_spec_text(name=name, length="20000 yr", chunk="20000 steps",
+                           output="2000 steps") + f"""
+[stops]
+escape_distance = "{escape}"
+[ensemble]
+members = {members}
+[ensemble.perturb]
+body = "Orrin d"
+quantity = "e"
+rule = "step"
+size = 0.002
+"""

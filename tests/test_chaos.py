@@ -31,7 +31,7 @@ from orbitledger.runner.ledger.operations import Ledger
 from orbitledger.runner.store.zarr_store import state_sha256, to_storable
 from orbitledger.runner.execution.worker import Worker
 from orbitledger.runner.ledger.workspace import init
-from helpers import ROOT, assert_no_double_commit, small_spec_text
+from helpers import ROOT, assert_no_double_commit, ejecting_ensemble_text, small_spec_text
 
 LEASE = 2.0
 ROUNDS = 12
@@ -39,21 +39,7 @@ SHORT, LONG = "12000 yr", "24000 yr"
 
 
 def ensemble_text():
-    # Orrin d's eccentricity stepped from 0.020 by 0.002: the secular rise of
-    # its eccentricity carries the more eccentric members past the ejection
-    # distance at different times (about 13000 to 20000 yr); the others survive.
-    return small_spec_text(name="chaos-ens", length="20000 yr", chunk="20000 steps",
-                           output="2000 steps") + """
-[stops]
-escape_distance = "11.79 au"
-[ensemble]
-members = 6
-[ensemble.perturb]
-body = "Orrin d"
-quantity = "e"
-rule = "step"
-size = 0.002
-"""
+    return ejecting_ensemble_text("chaos-ens")
 
 
 def job_texts():

@@ -9,7 +9,7 @@ from typer.testing import CliRunner
 
 from orbitledger.runner.cli import app
 from orbitledger.runner.inputs.units import format_time, time_unit
-from helpers import small_spec_text
+from helpers import ejecting_ensemble_text, small_spec_text
 
 runner = CliRunner()
 YEAR = 365.25  # Julian year in days (IAU)
@@ -37,20 +37,7 @@ def _invoke(*args):
 
 
 def _ensemble_text():
-    # Orrin d's eccentricity stepped by 0.002: the more eccentric members
-    # pass the escape distance (about 13000 to 20000 yr), the others survive.
-    return small_spec_text(name="units-ens", length="20000 yr", chunk="20000 steps",
-                           output="2000 steps") + """
-[stops]
-escape_distance = "11.79 au"
-[ensemble]
-members = 6
-[ensemble.perturb]
-body = "Orrin d"
-quantity = "e"
-rule = "step"
-size = 0.002
-"""
+    return ejecting_ensemble_text("units-ens")
 
 
 def test_status_show_extend_and_outcomes_speak_in_time_and_names(tmp_path):
@@ -105,8 +92,7 @@ def test_a_large_ledger_is_summarised_by_ensemble(tmp_path):
     _invoke("init", "--workspace", ws)
     ens = tmp_path / "ens.toml"
     members = defaults.STATUS_LIST_MAX + 5
-    ens.write_text(_ensemble_text().replace("members = 6", f"members = {members}")
-                   .replace('"11.79 au"', '"20 au"'))
+    ens.write_text(ejecting_ensemble_text("units-ens", members=members, escape="20 au"))
     one = tmp_path / "one.toml"
     one.write_text(small_spec_text(name="single", length="300 yr"))
     _invoke("submit", ens, "--workspace", ws)
