@@ -117,14 +117,13 @@ def member_bodies(row, names=None):
 
     ``names`` (star first) saves reading them from the member's own spec.
     """
-    from orbitledger.runner.inputs.text import body_names_from_json
+    from orbitledger.runner.inputs.text import body_list, body_names_from_json
 
     if not row.get("outcome_bodies"):
         return []
     if names is None:
-        names = body_names_from_json(row["spec_json"]) or []
-    idx = [int(k) for k in str(row["outcome_bodies"]).split(",") if k != ""]
-    return [names[k] if 0 <= k < len(names) else f"body {k}" for k in idx]
+        names = body_names_from_json(row["spec_json"])
+    return [str(b) for b in body_list(row["outcome_bodies"], names)]
 
 
 def counts_by_body(summary):

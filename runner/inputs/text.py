@@ -50,3 +50,12 @@ def body_names_from_json(spec_json):
         return [system["star"]["name"]] + [b["name"] for b in system["bodies"]]
     except (KeyError, TypeError, ValueError):
         return None
+
+
+def body_list(text, names):
+    """Body indices stored as "1,2" (star = 0) as names; an index without a name stays
+    an index."""
+    if not text:
+        return []
+    idx = [int(k) for k in str(text).split(",") if k != ""]
+    return [names[k] if names and 0 <= k < len(names) else k for k in idx]

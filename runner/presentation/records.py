@@ -7,7 +7,7 @@ import math
 
 import numpy as np
 
-from orbitledger.runner.inputs.text import body_names_from_json
+from orbitledger.runner.inputs.text import body_list, body_names_from_json
 
 YEAR_D = 365.25
 
@@ -35,18 +35,6 @@ def plain(value):
     return value
 
 
-def body_list(text, names):
-    """Body indices stored as "1,2" as names (indices where no name is known)."""
-    return _bodies(text, names)
-
-
-def _bodies(text, names):
-    if not text:
-        return []
-    idx = [int(k) for k in str(text).split(",") if k != ""]
-    return [names[k] if names and 0 <= k < len(names) else k for k in idx]
-
-
 def job_record(row, names=None):
     """One job row with units in its keys."""
     dt = row["dt"]
@@ -69,7 +57,7 @@ def job_record(row, names=None):
         "last_angmom_error": row["last_angmom_error"], "max_angmom_error": row["max_angmom_error"],
         "outcome": row["outcome"],
         "outcome_time_yr": None if row["outcome_time"] is None else abs(row["outcome_time"]) / YEAR_D,
-        "outcome_bodies": _bodies(row["outcome_bodies"], names),
+        "outcome_bodies": body_list(row["outcome_bodies"], names),
         "owner": row["owner"], "lease_expires_utc": iso(row["lease_expires"]),
         "fencing_token": row["fence"], "priority": row["priority"],
         "ensemble_id": row["ensemble_id"], "parent_job_id": row["parent_job_id"],
@@ -105,7 +93,7 @@ def segment_record(seg):
 def event_record(ev, names=None):
     return plain({
         "id": ev["id"], "kind": ev["kind"], "step": ev["step"], "time_days": ev["time"],
-        "bodies": _bodies(ev["bodies"], names),
+        "bodies": body_list(ev["bodies"], names),
         "detail": json.loads(ev["detail"]) if ev["detail"] else None,
         "created_utc": iso(ev["created_at"]),
     })

@@ -7,8 +7,7 @@ from rich.table import Table
 
 from orbitledger.runner.inputs.text import format_time, time_unit
 from orbitledger.runner.ledger.status import JobStatus
-from orbitledger.runner.inputs.text import body_names_from_json
-from orbitledger.runner.presentation.records import body_list
+from orbitledger.runner.inputs.text import body_list, body_names_from_json
 
 
 def progress_fraction(row):
