@@ -96,6 +96,46 @@ def test_submit_creates_all_members_in_one_go(tmp_path):
     led.close()
 
 
+def _files(folder):
+    return {str(f.relative_to(folder)): f.read_bytes()
+            for f in sorted(folder.rglob("*")) if f.is_file()}
+
+
+def test_member_stores_are_what_a_single_submit_writes(tmp_path):
+    # Reproducibility, not correctness: an ensemble's member stores are
+    # written by threads from the first member's layout; each must be the
+    # bytes a submit of that member alone writes through zarr, hold the
+    # hashes the ledger recorded, and pass verify.
+    from orbitledger.runner.analysis.integrity import verify
+
+    spec = S.load_text(ensemble_text(members=7))
+    led = Ledger(f"sqlite:///{tmp_path}/l.sqlite", tmp_path / "store")
+    _, ids = led.submit_ensemble(spec)
+    for k, jid in enumerate(ids):
+        one = Ledger(f"sqlite:///{tmp_path}/one{k}.sqlite", tmp_path / f"one{k}")
+        alone = one.submit(member_spec(spec, k))
+        assert _files(led.store.job_path(jid)) == _files(one.store.job_path(alone)), k
+        assert one.checkpoints(alone)[0]["chain_sha256"] == led.checkpoints(jid)[0]["chain_sha256"]
+        one.close()
+        rep = verify(led, jid)
+        assert rep.ok, rep.problem
+    led.close()
+
+
+def test_a_member_store_that_cannot_be_written_leaves_nothing(tmp_path):
+    # A file where member 5's folder must go: the thread writing it fails,
+    # the submit says so and the ledger holds no ensemble and no job.
+    from orbitledger.runner.errors import StoreError
+
+    led = Ledger(f"sqlite:///{tmp_path}/l.sqlite", tmp_path / "store")
+    (tmp_path / "store").mkdir(exist_ok=True)
+    (tmp_path / "store" / "job-00000005").write_text("in the way")
+    with pytest.raises(StoreError, match="job 5"):
+        led.submit_ensemble(S.load_text(ensemble_text(members=9)))
+    assert led.n_jobs() == 0 and led.ensembles() == []
+    led.close()
+
+
 def test_depth_first_on_request(tmp_path):
     led = Ledger(f"sqlite:///{tmp_path}/l.sqlite", tmp_path / "store")
     _, ids = led.submit_ensemble(S.load_text(ensemble_text(members=3, length="500 yr",

@@ -26,6 +26,11 @@ _EXAMPLES = {
 }
 
 
+# (text, kind) -> float, for texts already converted: an ensemble's members
+# repeat the same few hundred quantities, and astropy's parser is the slow part.
+_DONE = {}
+
+
 def parse_quantity(key, value, kind):
     """Convert a string with a unit to internal units (float).
 
@@ -37,6 +42,10 @@ def parse_quantity(key, value, kind):
         e.g. "4 d".
     kind : {"time", "length", "mass", "angle", "speed"}
     """
+    if isinstance(value, str):
+        done = _DONE.get((value, kind))
+        if done is not None:
+            return done
     if isinstance(value, bool) or not isinstance(value, str):
         raise SpecError(f"`{key}` must be a string with a unit such as {_EXAMPLES[kind]}, "
                         f"got {value!r}.")
@@ -54,6 +63,9 @@ def parse_quantity(key, value, kind):
                         f"write it as {_EXAMPLES[kind]}.") from None
     if not math.isfinite(out):
         raise SpecError(f"`{key}` must be finite, got {value!r}; give a finite number with a unit.")
+    if len(_DONE) > 100_000:
+        _DONE.clear()
+    _DONE[(value, kind)] = out
     return out
 
 

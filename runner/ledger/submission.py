@@ -42,15 +42,18 @@ class Submitting:
             ens_id = int(conn.execute(insert(ensembles).values(
                 name=spec.name, spec_json=_spec_json(spec), spec_sha256=_spec_sha(spec),
                 members=spec.ensemble.members, created_at=now)).inserted_primary_key[0])
-            # Members' stores are written without an fsync each; one sync makes
-            # them all durable before the transaction that refers to them commits.
-            ids = [self._submit_in(conn, m, now, priority, ens_id, None, None, None,
-                                   durable=False) for m in members]
+            # Members' stores are written by a few threads while the next
+            # members are prepared, without an fsync each; leaving the batch
+            # waits for every write, and one sync makes them all durable
+            # before the transaction that refers to them commits.
+            with self.store.new_jobs(durable=False) as batch:
+                ids = [self._submit_in(conn, m, now, priority, ens_id, None, None, None,
+                                       batch=batch) for m in members]
             self.store.sync_all()
         return ens_id, ids
 
     def _submit_in(self, conn, spec, now, priority, ensemble_id, plan, integrator, parent,
-                   durable=True):
+                   batch=None):
         if plan is None:
             from orbitledger.runner.inputs.spec import resolve
 
@@ -78,10 +81,12 @@ class Submitting:
         # The first row, then one per output (one more when the outputs are
         # shifted off this job's own grid, as for a backward run).
         off_grid = integ.sample_offset % plan.output_steps != 0
-        self.store.create_job(job_id, sysm.names,
-                              capacity=(total - integ.step) // plan.output_steps + 1 + off_grid,
-                              durable=durable)
-        s_hash, digest = self.store.write_first(job_id, first, integ.state_arrays(), durable)
+        capacity = (total - integ.step) // plan.output_steps + 1 + off_grid
+        if batch is None:
+            self.store.create_job(job_id, sysm.names, capacity=capacity)
+            s_hash, digest = self.store.write_first(job_id, first, integ.state_arrays())
+        else:
+            s_hash, digest = batch.add(job_id, sysm.names, capacity, first, integ.state_arrays())
         conn.execute(insert(checkpoints).values(
             job_id=job_id, idx=0, step=integ.step, time=integ.time, fence=0,
             state_sha256=digest, chain_sha256=chain_sha256(GENESIS, digest, s_hash),

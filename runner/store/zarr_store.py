@@ -333,6 +333,36 @@ def _plan(h, base, samples, ck):
     return puts, grow, coros, files, dirs
 
 
+def _new_folders(rels, existing):
+    """Folders of the relative file paths `rels` not already made for the paths
+    `existing`, parents first."""
+    have = {d for rel in existing for d in _folders(rel)}
+    new = {d for rel in rels for d in _folders(rel)} - have
+    return sorted(new, key=lambda d: (d.count("/"), d))
+
+
+def _write_new(base, dirs, files):
+    """Make new folders (parents first) and write new files under base, in place:
+    a folder just created has nothing to replace atomically."""
+    for rel in dirs:
+        os.mkdir(base / rel)
+    for rel, data in files:
+        with open(base / rel, "wb") as fh:
+            fh.write(data)
+
+
+def _fits(first, block):
+    """Whether a first block of samples fits the first chunk of each array."""
+    return all(len(block[name]) <= shape[0]
+               for name, (_, shape, _, _) in first["samples"].items())
+
+
+def _folders(rel):
+    """The folders above a relative file path ("a/b/c" -> "a", "a/b")."""
+    parts = rel.split("/")[:-1]
+    return ["/".join(parts[:k]) for k in range(1, len(parts) + 1)]
+
+
 def _damaged_metadata(path):
     """The first zarr.json under a job's folder that is not a readable JSON object, or None."""
     for root, dirs, names in os.walk(path):
@@ -404,6 +434,8 @@ class Store:
         self.root = Path(root)
         self._open = {}
         self._templates = {}  # (body names, first size) -> bytes of a fresh group
+        self._made = {}  # job id -> its template key, from create_job until write_first
+        self._firsts = {}  # (template key, checkpoint layout) -> how a first write lays out
 
     def job_path(self, job_id):
         """Folder of a job's Zarr group."""
@@ -440,8 +472,9 @@ class Store:
             path = self.job_path(job_id)
             self._forget(job_id)
             key = (tuple(body_names), capacity)
-            files = self._templates.get(key)
-            if files is None:
+            self._made = {int(job_id): key}
+            tpl = self._templates.get(key)
+            if tpl is None:
                 # All groups and arrays in one batch on zarr's event loop; the
                 # bytes it wrote are kept as the template of every later job
                 # with the same bodies and first size (the members of an
@@ -453,15 +486,12 @@ class Store:
                         full = os.path.join(root, n)
                         with open(full, "rb") as fh:
                             files[os.path.relpath(full, path)] = fh.read()
-                self._templates = {key: files}  # one kept: the last shape used
+                self._templates = {key: {"files": files, "dirs": _new_folders(files, ())}}
             else:
                 if path.exists():
                     shutil.rmtree(path)
-                for rel, data in files.items():
-                    full = path / rel
-                    full.parent.mkdir(parents=True, exist_ok=True)
-                    with open(full, "wb") as fh:
-                        fh.write(data)
+                os.mkdir(path)
+                _write_new(path, tpl["dirs"], tpl["files"].items())
             # The new group's metadata is durable before anything refers to it
             # (with durable=False the caller makes it so, see sync_all).
             if durable:
@@ -568,8 +598,92 @@ class Store:
 
     def write_first(self, job_id, block, arrays, durable=True):
         """Write a new job's first sample row and checkpoint 0 in one batch (nothing kept
-        cached: a submit of many jobs holds no handles). Returns (samples, state) SHA-256."""
-        return self._write(job_id, (0, block), (0, 0, arrays), durable, None)
+        cached: a submit of many jobs holds no handles). Returns (samples, state) SHA-256.
+
+        Right after :meth:`create_job`, the members of an ensemble differ only
+        in the bytes of the first chunk of each sample array and of checkpoint
+        0: the first job is written through zarr, and the files it wrote give
+        the names, shapes and fill values with which the later ones are written
+        as plain files (the same bytes zarr would write; tested).
+        """
+        made = self._made.pop(int(job_id), None)
+        if "time_yr" not in block:
+            block = dict(block, time_yr=block["time"] / YEAR_D)
+        ck = (self._ck_name(0, 0),) + _packed(arrays)
+        key = None if made is None else (made, json.dumps(ck[2]))
+        first = self._firsts.get(key) if key is not None else None
+        if first is None or not _fits(first, block):
+            hashes = self._write(job_id, (0, block), (0, 0, arrays), durable, None)
+            if key is not None:
+                self._firsts = {key: self._first_layout(job_id, block, ck[0], made)}
+            return hashes
+        self._first_files(job_id, first, block, ck, durable)
+        return samples_sha256(block), ck[3]
+
+    def _first_files(self, job_id, first, block, ck, durable):
+        """Write a first sample row and checkpoint 0 into a just-created group, as plain
+        files laid out like an earlier job's (see :meth:`write_first`)."""
+        base = self.job_path(job_id)
+        puts = []
+        for name, (rel, shape, dtype, fill) in first["samples"].items():
+            chunk = np.full(shape, fill, dtype=dtype)
+            chunk[:len(block[name])] = block[name]
+            puts.append((rel, chunk.tobytes()))
+        puts.append(first["ck_meta"])
+        puts.append((first["ck_chunk"], ck[1].tobytes()))
+        try:
+            _write_new(base, first["dirs"], puts)
+            if durable:
+                _fsync_paths([str(base / rel) for rel, _ in puts],
+                             [str(base / d) for d in first["sync_dirs"]])
+        except OSError as err:
+            raise StoreError(f"could not write checkpoint 0 of job {job_id}: {err}") from err
+
+    def new_jobs(self, durable=False):
+        """A batch that creates many new jobs' stores: ``with store.new_jobs() as b:
+        b.add(...)``. See :class:`_NewJobs`."""
+        return _NewJobs(self, durable)
+
+    def _fresh_job(self, job_id, template, first, block, ck, durable):
+        """create_job + write_first for a job whose layout is known (thread-safe)."""
+        path = self.job_path(job_id)
+        tpl = self._templates[template]
+        try:
+            if path.exists():
+                shutil.rmtree(path)
+            os.mkdir(path)
+            _write_new(path, tpl["dirs"], tpl["files"].items())
+            if durable:
+                _fsync_paths([str(path / rel) for rel in tpl["files"]],
+                             [str(self.root)] + [str(path / d) for d in ("",) + tuple(tpl["dirs"])])
+        except OSError as err:
+            raise StoreError(f"could not create the store for job {job_id}: {err}") from err
+        self._first_files(job_id, first, block, ck, durable)
+
+    def _first_layout(self, job_id, block, ck_name, template):
+        """Names, shapes and fill values of what a first write wrote, or None (not raw)."""
+        h = self._handles(job_id, None)
+        samples = {}
+        for name, a in h["samples"].items():
+            raw = h["raw"][name]
+            if raw is None or name not in block:
+                return None
+            rel = f"samples/{name}/" + a.metadata.encode_chunk_key((0,) * a.ndim)
+            samples[name] = (rel, raw[0], raw[1], a.metadata.fill_value)
+        d = self.job_path(job_id) / "checkpoints" / ck_name
+        meta = d / "zarr.json"
+        chunk = d / "c" / "0"
+        if not chunk.exists():
+            return None
+        rels = [r for r, *_ in samples.values()] + [f"checkpoints/{ck_name}/c/0"]
+        tpl = self._templates.get(template)
+        return {"samples": samples,
+                "ck_meta": (f"checkpoints/{ck_name}/zarr.json", meta.read_bytes()),
+                "ck_chunk": f"checkpoints/{ck_name}/c/0",
+                # Folders a first write adds to a fresh group, parents first.
+                "dirs": _new_folders(rels, () if tpl is None else tpl["files"]),
+                # Every folder that gains an entry, for a durable write.
+                "sync_dirs": sorted({d for rel in rels for d in _folders(rel)})}
 
     @staticmethod
     def sync_all():
@@ -695,3 +809,68 @@ class Store:
         except KeyError:
             raise StoreError(f"job {job_id}: the store's group has no body names; its "
                              "metadata is damaged.") from None
+
+
+class _NewJobs:
+    """Create many new jobs' stores (an ensemble's members) inside one submit.
+
+    :meth:`add` returns a job's (samples, state) SHA-256 at once, computed from
+    the data, so the caller can write the ledger rows; the files are written
+    by a few threads (folder and file creation release the GIL and the
+    filesystem serves them concurrently). The first job of a layout is
+    written synchronously through zarr and gives the layout of the rest.
+    Leaving the ``with`` block waits for every write and raises the first
+    error, so the caller commits only when every store is complete (and, with
+    ``durable=False``, after :meth:`Store.sync_all`).
+    """
+
+    MAX_PENDING = 256
+
+    def __init__(self, store, durable):
+        self.store = store
+        self.durable = durable
+        self.pending = []
+        self.pool = None
+
+    def __enter__(self):
+        return self
+
+    def add(self, job_id, body_names, capacity, block, arrays):
+        st = self.store
+        if "time_yr" not in block:
+            block = dict(block, time_yr=block["time"] / YEAR_D)
+        template = (tuple(body_names), min(int(capacity), defaults.SAMPLE_CHUNK))
+        ck = (st._ck_name(0, 0),) + _packed(arrays)
+        first = st._firsts.get((template, json.dumps(ck[2])))
+        if first is None or template not in st._templates or not _fits(first, block):
+            self.wait()  # the templates change only with nothing in flight
+            st.create_job(job_id, body_names, capacity, durable=self.durable)
+            return st.write_first(job_id, block, arrays, durable=self.durable)
+        if self.pool is None:
+            from concurrent.futures import ThreadPoolExecutor
+
+            self.pool = ThreadPoolExecutor(max_workers=4, thread_name_prefix="store-new")
+        self.pending.append(self.pool.submit(st._fresh_job, job_id, template, first, block, ck,
+                                             self.durable))
+        if len(self.pending) > self.MAX_PENDING:
+            self.wait(self.MAX_PENDING // 2)
+        return samples_sha256(block), ck[3]
+
+    def wait(self, keep=0):
+        """Wait until at most `keep` writes are in flight; re-raise the first error."""
+        while len(self.pending) > keep:
+            self.pending.pop(0).result()
+
+    def __exit__(self, kind, err, tb):
+        try:
+            if kind is None:
+                self.wait()
+            else:
+                # Failing anyway: let the writes in flight end, keep the first error.
+                for fut in self.pending:
+                    fut.exception()
+                self.pending = []
+        finally:
+            if self.pool is not None:
+                self.pool.shutdown(wait=True)
+        return False
