@@ -14,6 +14,8 @@ relative to the unperturbed value when ``relative = true``):
 - ``uniform``: s * u_k, u_k uniform on [-1, 1) from PCG64(seed)
 """
 
+import functools
+
 import numpy as np
 
 from orbitledger.runner.errors import SpecError
@@ -46,14 +48,18 @@ def _size(rule, base):
     return parse_quantity(key, rule.size, kind)  # au or degrees
 
 
+@functools.lru_cache(maxsize=4)
 def draws(rule_kind, seed, members):
-    """The unit offsets of all members (deterministic)."""
+    """The unit offsets of all members (deterministic; read-only, drawn once per
+    submit rather than once per member)."""
     if rule_kind == "step":
-        return np.arange(members, dtype=np.float64)
-    rng = np.random.Generator(np.random.PCG64(seed))
-    if rule_kind == "normal":
-        return rng.standard_normal(members)
-    return rng.uniform(-1.0, 1.0, members)
+        out = np.arange(members, dtype=np.float64)
+    else:
+        rng = np.random.Generator(np.random.PCG64(seed))
+        out = rng.standard_normal(members) if rule_kind == "normal" else \
+            rng.uniform(-1.0, 1.0, members)
+    out.setflags(write=False)
+    return out
 
 
 def member_offset(sysspec, ens, member):

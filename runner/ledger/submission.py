@@ -37,7 +37,6 @@ class Submitting:
         from orbitledger.runner.inputs.ensemble import member_spec
 
         now = _now(now)
-        members = [member_spec(spec, k) for k in range(spec.ensemble.members)]
         with self.engine.begin() as conn:
             ens_id = int(conn.execute(insert(ensembles).values(
                 name=spec.name, spec_json=_spec_json(spec), spec_sha256=_spec_sha(spec),
@@ -47,8 +46,11 @@ class Submitting:
             # waits for every write, and one sync makes them all durable
             # before the transaction that refers to them commits.
             with self.store.new_jobs(durable=False) as batch:
-                ids = [self._submit_in(conn, m, now, priority, ens_id, None, None, None,
-                                       batch=batch) for m in members]
+                # Member specs one at a time: a 100 000-member submit holds
+                # only one in memory.
+                ids = [self._submit_in(conn, member_spec(spec, k), now, priority, ens_id,
+                                       None, None, None, batch=batch)
+                       for k in range(spec.ensemble.members)]
             self.store.sync_all()
         return ens_id, ids
 
