@@ -59,6 +59,9 @@ class Integrator:
     """
 
     method = "base"
+    # A chaos indicator carried with the map ("megno"), or None; methods that
+    # carry one override this.
+    indicator = None
     # Every method class joins this registry by subclassing (see
     # __init_subclass__), so the base never imports the classes built on it.
     registry = {}
@@ -97,7 +100,7 @@ class Integrator:
         steps, code, a, b, _ = self._advance_impl(n_steps)
         return self._result(steps, code, a, b)
 
-    def advance_sampled(self, n_steps, every, out_g, out_el, row0):
+    def advance_sampled(self, n_steps, every, out_g, out_el, row0, out_ind=None):
         """Advance like :meth:`advance`, diagnosing a synchronized copy at every
         step whose number plus ``sample_offset`` is a multiple of `every`
         (0 for a run from its start), inside the compiled loop.
@@ -105,6 +108,8 @@ class Integrator:
         Row r of out_g receives (step, G*energy, G*Lx, G*Ly, G*Lz) and row r
         of out_el the heliocentric elements (degrees), for r from row0.
         The arrays must have room for n_steps // every + 1 more rows.
+        With a chaos indicator carried (``indicator`` not None), row r of
+        out_ind (rows, 2) receives <Y> and the mean log-growth per step.
         Returns (AdvanceResult, next free row). Samples never touch the live
         state, so the trajectory is the same with or without them.
         """
@@ -113,7 +118,11 @@ class Integrator:
             return AdvanceResult(0, StopKind.DONE, (), self.step), row0
         if every < 1 or len(out_g) < row0 + n_steps // every + 1:
             raise ValueError("sample arrays too small for the requested steps and cadence.")
-        steps, code, a, b, rows = self._advance_impl(n_steps, every, out_g, out_el, row0)
+        if out_ind is None:
+            steps, code, a, b, rows = self._advance_impl(n_steps, every, out_g, out_el, row0)
+        else:
+            steps, code, a, b, rows = self._advance_impl(n_steps, every, out_g, out_el, row0,
+                                                         out_ind)
         if self.sample_offset:
             out_g[row0:rows, 0] -= self.sample_offset  # the kernels count from the offset
         return self._result(steps, code, a, b), int(rows)

@@ -21,6 +21,8 @@ from .kepler import drift_row
 from .nbody import accelerations, gr_coefficient
 from .stops import NUMERICAL_FAILURE_CODE, check_stops, first_broken, is_broken
 from .system import jacobi_from_inertial, jacobi_mu
+from .variational import (N_SUMS, drift_all_tangent, initial_tangent, kick_tangent,
+                          lyapunov_of, megno_of, megno_update)
 
 
 @njit(cache=True, error_model="numpy", inline="always")
@@ -152,6 +154,53 @@ def wh_steps(xj, vj, gm, mu, mr, dt, n_steps, pending, gr_coef, pairs, params, x
     return n_steps, pending, 0, -1, -1, rows
 
 
+@njit(cache=True, error_model="numpy", nogil=True)
+def wh_steps_tangent(xj, vj, gm, mu, mr, dt, n_steps, pending, gr_coef, pairs, params, xi,
+                     acc, rh, step0, every, a_inv, c_inv, scratch, out_g, out_el, row0,
+                     dxj, dvj, sums, dxi, dacc, out_ind):
+    """:func:`wh_steps` carrying the tangent vector (dxj, dvj) with the map and
+    accumulating the MEGNO sums after each step (see :mod:`integrators.variational`).
+
+    The state's arithmetic is wh_steps' own, so the trajectory is the same bit
+    for bit. Each sample row also gets (sums[2] / sums[0], sums[3] / sums[0])
+    in out_ind: <Y> and the mean log-growth per step.
+    """
+    half = 0.5 * dt
+    check = params[0] > 0.0
+    rows = row0
+    until = every - step0 % every if every > 0 else -1
+    for k in range(n_steps):
+        if pending:
+            drift_all_tangent(xj, vj, dxj, dvj, mu, dt)
+        else:
+            drift_all_tangent(xj, vj, dxj, dvj, mu, half)
+            pending = True
+        kick(xj, vj, gm, mu, mr, dt, gr_coef, xi, acc)
+        kick_tangent(xj, xi, dxj, dvj, gm, mu, mr, dt, gr_coef, dxi, dacc)
+        if is_broken(vj[vj.shape[0] - 1, 0]):
+            return k + 1, pending, NUMERICAL_FAILURE_CODE, first_broken(xj, vj), -1, rows
+        megno_update(dxj, dvj, sums)
+        if check:
+            code, a, b = check_stops(xi, xj, vj, mu, pairs, params, rh)
+            if code != 0:
+                return k + 1, pending, code, a, b, rows
+        until -= 1
+        if until == 0:
+            until = every
+            e, lx, ly, lz = wh_diagnose(xj, vj, gm, mu, mr, dt, pending, gr_coef, a_inv, c_inv,
+                                        scratch[0], scratch[1], scratch[2], scratch[3],
+                                        scratch[4], scratch[5], out_el[rows])
+            out_g[rows, 0] = step0 + k + 1
+            out_g[rows, 1] = e
+            out_g[rows, 2] = lx
+            out_g[rows, 3] = ly
+            out_g[rows, 4] = lz
+            out_ind[rows, 0] = sums[2] / sums[0]
+            out_ind[rows, 1] = sums[3] / sums[0]
+            rows += 1
+    return n_steps, pending, 0, -1, -1, rows
+
+
 @njit(cache=True, error_model="numpy")
 def apply_stages(xj, vj, gm, mu, mr, dt, gr_coef, a_arr, c_arr, xi, acc):
     """Apply X(a, c) = drift(a dt) kick(c dt) drift(-a dt) for each stage in order."""
@@ -197,16 +246,30 @@ class WisdomHolman(Integrator):
     gr : bool
         Add the star's general-relativistic potential (Nobili & Roxburgh 1986).
     stops : StopConditions, optional
+    indicator : {None, "megno"}
+        Carry a tangent vector with the map and accumulate MEGNO and the
+        largest Lyapunov exponent (:mod:`integrators.variational`). The
+        trajectory is the same bit for bit with or without it.
+    tangent_seed : int
+        Seed of the initial tangent vector's direction.
     """
 
     method = "wisdom_holman"
+    INDICATORS = (None, "megno")
 
-    def __init__(self, system, dt, corrector=0, gr=False, stops=None):
+    def __init__(self, system, dt, corrector=0, gr=False, stops=None, indicator=None,
+                 tangent_seed=0):
         super().__init__(system, dt, stops)
         if corrector not in correctors.ORDERS:
             raise ValueError(f"corrector must be one of {correctors.ORDERS}, got {corrector}.")
+        if indicator not in self.INDICATORS:
+            raise ValueError(f"indicator must be one of {self.INDICATORS}, got {indicator!r}.")
         self.corrector = int(corrector)
         self.gr = bool(gr)
+        self.tangent = None
+        if indicator == "megno":
+            dx, dv = initial_tangent(len(self.gm), int(tangent_seed))
+            self.tangent = (dx, dv, np.zeros(N_SUMS))
         self._derive()
         self.xj = jacobi_from_inertial(self.gm, system.x)
         self.vj = jacobi_from_inertial(self.gm, system.v)
@@ -229,14 +292,38 @@ class WisdomHolman(Integrator):
         self._inv = _stage_arrays(self.corrector, -1.0)
         self._diag_scratch = np.empty((6, n, 3))
         self._no_out = (np.empty((0, 5)), np.empty((0, n - 1, 6)))
+        self._no_ind = np.empty((0, 2))
+        self._tan_scratch = np.zeros((2, n, 3))
 
     def _gr_coef(self):
         return self.gr_coef
 
-    def _advance_impl(self, n, every=0, out_g=None, out_el=None, row0=0):
+    @property
+    def indicator(self):
+        """"megno" when a tangent vector is carried, else None."""
+        return None if self.tangent is None else "megno"
+
+    def megno(self):
+        """MEGNO <Y> over the steps taken with the tangent vector (nan before any)."""
+        return megno_of(self.tangent[2]) if self.tangent is not None else float("nan")
+
+    def lyapunov(self):
+        """Finite-time largest Lyapunov exponent, per day (nan before any step)."""
+        return lyapunov_of(self.tangent[2], self.dt) if self.tangent is not None else float("nan")
+
+    def _advance_impl(self, n, every=0, out_g=None, out_el=None, row0=0, out_ind=None):
         if out_g is None:
             out_g, out_el = self._no_out
         a_inv, c_inv = self._inv
+        if self.tangent is not None:
+            dx, dv, sums = self.tangent
+            steps, self.pending, code, a, b, rows = wh_steps_tangent(
+                self.xj, self.vj, self.gm, self.mu, self.mr, self.dt, n, self.pending,
+                self.gr_coef, self._stop_pairs, self._stop_params, self._xi, self._acc, self._rh,
+                self.step + self.sample_offset, every, a_inv, c_inv, self._diag_scratch, out_g,
+                out_el, row0, dx, dv, sums, self._tan_scratch[0], self._tan_scratch[1],
+                self._no_ind if out_ind is None else out_ind)
+            return steps, code, a, b, rows
         steps, self.pending, code, a, b, rows = wh_steps(
             self.xj, self.vj, self.gm, self.mu, self.mr, self.dt, n, self.pending,
             self.gr_coef, self._stop_pairs, self._stop_params, self._xi, self._acc, self._rh,
@@ -260,13 +347,23 @@ class WisdomHolman(Integrator):
 
     def _settle_pending(self, dt_forward):
         if self.pending:
-            drift_all(self.xj, self.vj, self.mu, 0.5 * dt_forward)
+            if self.tangent is not None:
+                drift_all_tangent(self.xj, self.vj, self.tangent[0], self.tangent[1], self.mu,
+                                  0.5 * dt_forward)
+            else:
+                drift_all(self.xj, self.vj, self.mu, 0.5 * dt_forward)
             self.pending = False
 
     def _internal_arrays(self):
-        return {"xj": self.xj.copy(), "vj": self.vj.copy(),
-                "pending": np.array([int(self.pending)], dtype=np.int64),
-                "settings": np.array([self.corrector, int(self.gr)], dtype=np.int64)}
+        out = {"xj": self.xj.copy(), "vj": self.vj.copy(),
+               "pending": np.array([int(self.pending)], dtype=np.int64),
+               "settings": np.array([self.corrector, int(self.gr)], dtype=np.int64)}
+        if self.tangent is not None:
+            # Only when carried, so states without it keep their bytes.
+            out["tangent_x"] = self.tangent[0].copy()
+            out["tangent_v"] = self.tangent[1].copy()
+            out["megno_sums"] = self.tangent[2].copy()
+        return out
 
     def _restore_internal(self, arrays):
         self.xj = np.array(arrays["xj"], dtype=np.float64)
@@ -275,4 +372,9 @@ class WisdomHolman(Integrator):
         settings = np.asarray(arrays["settings"])
         self.corrector = int(settings[0])
         self.gr = bool(settings[1])
+        self.tangent = None
+        if "tangent_x" in arrays:
+            self.tangent = (np.array(arrays["tangent_x"], dtype=np.float64),
+                            np.array(arrays["tangent_v"], dtype=np.float64),
+                            np.array(arrays["megno_sums"], dtype=np.float64))
         self._derive()
