@@ -2,6 +2,7 @@
 shadow-orbit estimate written here without the project's variational code."""
 
 import math
+import time
 
 import numpy as np
 import pytest
@@ -240,3 +241,69 @@ def test_tangent_state_round_trips_and_resumes_bit_for_bit():
     assert b.indicator == "megno" and a.megno() == b.megno()
     # Without the indicator the state has no tangent arrays at all.
     assert "tangent_x" not in WisdomHolman(s, YEAR / 50).state_arrays()
+
+
+# -- jobs that carry the indicator ------------------------------------------------
+
+def megno_spec_text(**kw):
+    from helpers import small_spec_text
+
+    return small_spec_text(**kw).replace("corrector = 3", 'corrector = 3\nindicator = "megno"')
+
+
+def test_a_job_with_megno_killed_at_random_moments_resumes_bit_for_bit(tmp_path):
+    # Real worker processes killed by SIGKILL (at named failpoints and at
+    # random times); the tangent vector and the sums are part of the state, so
+    # the result equals an uninterrupted run byte for byte, and verify passes.
+    import os
+    import random
+    import signal
+    import subprocess
+    import sys
+
+    from helpers import ROOT, final_state, samples_bytes
+    from orbitledger.runner.analysis.integrity import verify
+    from orbitledger.runner.execution.worker import Worker
+    from orbitledger.runner.inputs import spec as S
+    from orbitledger.runner.ledger.operations import Ledger
+    from orbitledger.runner.ledger.workspace import init
+
+    text = megno_spec_text(length="150000 yr", chunk="60000 steps", output="3000 steps")
+    ref = Ledger(f"sqlite:///{tmp_path}/ref.sqlite", tmp_path / "ref-store")
+    ref_id = ref.submit(S.load_text(text))
+    Worker(ref).run()
+    ws, led = init(tmp_path / "ws")
+    jid = led.submit(S.load_text(text))
+    rng = random.Random(7)
+    kills = 0
+    points = ["mid_store_write:1", "in_commit:1", "first_step:1", None, None, None]
+    for mode in points + [None] * 20:
+        if led.job(jid)["status"] == "done":
+            break
+        env = dict(os.environ)
+        env.pop("ORBITLEDGER_FAILPOINTS", None)
+        if mode:
+            env["ORBITLEDGER_FAILPOINTS"] = mode
+        proc = subprocess.Popen([sys.executable, "-m", "orbitledger.runner.cli", "work",
+                                 "--workspace", str(ws), "--quiet", "--lease", "5"], cwd=ROOT,
+                                env=env, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
+        if mode is None and kills < 8:
+            time.sleep(rng.uniform(1.0, 2.0))
+            if proc.poll() is None:
+                proc.send_signal(signal.SIGKILL)
+        rc = proc.wait(timeout=300)
+        kills += rc == -signal.SIGKILL
+        assert rc in (0, 3, -signal.SIGKILL), proc.stderr.read()
+    assert led.job(jid)["status"] == "done"
+    assert kills >= 4, kills
+    assert final_state(led, jid) == final_state(ref, ref_id)
+    got = samples_bytes(led, jid)
+    assert "megno" in got and "lyapunov" in got
+    assert got == samples_bytes(ref, ref_id)
+    rep = verify(led, jid)
+    assert rep.ok, rep.problem
+    # The Orrin planets are well separated: quasi-periodic, <Y> near 2.
+    last = led.store.read_samples(jid, led.job(jid)["n_samples"])["megno"][-1]
+    assert last == pytest.approx(2.0, abs=0.05)
+    led.close()
+    ref.close()

@@ -184,7 +184,8 @@ class Worker:
         n_samples = int(ck["n_samples"])
         max_e, max_l = row["max_energy_error"], row["max_angmom_error"]
         last_beat = self.clock()
-        buf = SampleBuffer(len(integ.gm), e0, l0, capacity=min(chunk // out + 1, 4096))
+        buf = SampleBuffer(len(integ.gm), e0, l0, capacity=min(chunk // out + 1, 4096),
+                           indicator=integ.indicator is not None)
         # With a wall-time slice, a short first call measures the cost of a step.
         steps_per_call = (self.max_steps_per_call if self.slice_seconds is None
                           else min(self.max_steps_per_call, 100))

@@ -63,6 +63,7 @@ class MethodSpec(_Strict):
     corrector: int = 0
     relativity: bool = False
     allow_long_step: bool = False
+    indicator: Literal["none", "megno"] = "none"
 
     @field_validator("corrector")
     @classmethod
@@ -301,13 +302,16 @@ class Plan:
     energy_budget: float
     angmom_budget: float | None
     on_exceed: str
+    indicator: str = "none"
 
     def make_integrator(self, system=None):
         """A fresh integrator at the start of the run (or from another system)."""
         sysm = system if system is not None else self.system
         if self.method == "wisdom_holman":
             return METHODS[self.method](sysm, self.dt, corrector=self.corrector,
-                                        gr=self.relativity, stops=self.stops)
+                                        gr=self.relativity, stops=self.stops,
+                                        indicator=None if self.indicator == "none"
+                                        else self.indicator)
         return METHODS[self.method](sysm, self.dt, stops=self.stops)
 
 
@@ -466,6 +470,9 @@ def resolve(spec):
     if spec.method.name != "wisdom_holman" and (spec.method.corrector or spec.method.relativity):
         raise SpecError(f"`method.corrector` and `method.relativity` need method "
                         f"'wisdom_holman', got method {spec.method.name!r}; remove them.")
+    if spec.method.name != "wisdom_holman" and spec.method.indicator != "none":
+        raise SpecError(f"`method.indicator` = {spec.method.indicator!r} needs method "
+                        f"'wisdom_holman', got method {spec.method.name!r}; remove it.")
     length = parse_quantity("span.length", spec.span.length, "time")
     if not length > 0:
         raise SpecError(f"`span.length` must be positive, got {spec.span.length!r}; "
@@ -498,7 +505,7 @@ def resolve(spec):
         raise SpecError("`stops` distances must be >= 0; give 0 to turn a condition off.")
     plan = Plan(system, spec.method.name, dt, spec.method.corrector, spec.method.relativity,
                 int(total), int(chunk), int(output), stops, spec.budget.energy,
-                spec.budget.angular_momentum, spec.budget.on_exceed)
+                spec.budget.angular_momentum, spec.budget.on_exceed, spec.method.indicator)
     from orbitledger.runner.inputs.sanity import check
 
     check(plan, spec)

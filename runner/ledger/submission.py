@@ -84,11 +84,13 @@ class Submitting:
         # shifted off this job's own grid, as for a backward run).
         off_grid = integ.sample_offset % plan.output_steps != 0
         capacity = (total - integ.step) // plan.output_steps + 1 + off_grid
+        carried = integ.indicator is not None
         if batch is None:
-            self.store.create_job(job_id, sysm.names, capacity=capacity)
+            self.store.create_job(job_id, sysm.names, capacity=capacity, indicator=carried)
             s_hash, digest = self.store.write_first(job_id, first, integ.state_arrays())
         else:
-            s_hash, digest = batch.add(job_id, sysm.names, capacity, first, integ.state_arrays())
+            s_hash, digest = batch.add(job_id, sysm.names, capacity, first, integ.state_arrays(),
+                                       indicator=carried)
         conn.execute(insert(checkpoints).values(
             job_id=job_id, idx=0, step=integ.step, time=integ.time, fence=0,
             state_sha256=digest, chain_sha256=chain_sha256(GENESIS, digest, s_hash),

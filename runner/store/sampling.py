@@ -16,10 +16,14 @@ class SampleBuffer:
         The job's initial energy (Msun au^2/d^2) and angular momentum.
     capacity : int
         Rows to preallocate (grows if needed).
+    indicator : bool
+        The integrator carries a chaos indicator: rows also get MEGNO <Y>
+        ("megno") and the finite-time Lyapunov exponent ("lyapunov", 1/d).
     """
 
-    def __init__(self, n_bodies, energy0, angmom0, capacity=16):
+    def __init__(self, n_bodies, energy0, angmom0, capacity=16, indicator=False):
         self.nb = n_bodies - 1
+        self.indicator = bool(indicator)
         self.e0g = energy0 * G
         self.l0g = np.asarray(angmom0, dtype=np.float64) * G
         self.l0n = float(np.linalg.norm(self.l0g))
@@ -31,6 +35,9 @@ class SampleBuffer:
         self.arrays = {"time": np.empty(cap), "step": np.empty(cap, dtype=np.int64),
                        "energy_error": np.empty(cap), "angmom_error": np.empty(cap),
                        "elements": np.empty((cap, self.nb, 6))}
+        if self.indicator:
+            self.arrays["megno"] = np.empty(cap)
+            self.arrays["lyapunov"] = np.empty(cap)
         if old is not None:
             for k in old:
                 self.arrays[k][: self.n] = old[k][: self.n]
@@ -55,6 +62,9 @@ class SampleBuffer:
         l0 = self.l0g
         a["angmom_error"][k] = ((lx - l0[0]) ** 2 + (ly - l0[1]) ** 2
                                 + (lz - l0[2]) ** 2) ** 0.5 / self.l0n
+        if self.indicator:
+            a["megno"][k] = integ.megno()
+            a["lyapunov"][k] = integ.lyapunov()
         self.n = k + 1
 
     def advance(self, integ, n_steps, every):
@@ -64,8 +74,10 @@ class SampleBuffer:
             self._alloc(max(need, 2 * len(self.arrays["time"])))
         if not hasattr(self, "_g") or len(self._g) < len(self.arrays["time"]):
             self._g = np.empty((len(self.arrays["time"]), 5))
+            self._ind = np.empty((len(self.arrays["time"]), 2)) if self.indicator else None
         start = self.n
-        res, rows = integ.advance_sampled(n_steps, every, self._g, self.arrays["elements"], start)
+        res, rows = integ.advance_sampled(n_steps, every, self._g, self.arrays["elements"], start,
+                                          self._ind)
         if rows > start:
             g = self._g[start:rows]
             a = self.arrays
@@ -74,6 +86,9 @@ class SampleBuffer:
             a["energy_error"][start:rows] = (g[:, 1] - self.e0g) / abs(self.e0g)
             d = g[:, 2:5] - self.l0g
             a["angmom_error"][start:rows] = np.sqrt((d * d).sum(axis=1)) / self.l0n
+            if self.indicator:
+                a["megno"][start:rows] = self._ind[start:rows, 0]
+                a["lyapunov"][start:rows] = self._ind[start:rows, 1] / abs(integ.dt)
             self.n = rows
         return res
 
@@ -86,6 +101,7 @@ class SampleBuffer:
 
 def sample_now(integ, energy0, angmom0):
     """One sample of the integrator's synchronized state, as a block of one row."""
-    buf = SampleBuffer(len(integ.gm), energy0, angmom0, capacity=1)
+    buf = SampleBuffer(len(integ.gm), energy0, angmom0, capacity=1,
+                       indicator=integ.indicator is not None)
     buf.add(integ)
     return {k: v.copy() for k, v in buf.block().items()}

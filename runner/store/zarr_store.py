@@ -54,6 +54,14 @@ _ATTRS = {
                               "element_units)", "element_units": ELEMENT_UNITS,
                  "coordinates": "time time_yr step"},
 }
+# Series of jobs that carry a chaos indicator (`method.indicator`), only in their stores.
+_INDICATOR_ATTRS = {
+    "megno": {"units": "1", "long_name": "MEGNO <Y>, mean exponential growth factor of "
+                                         "nearby orbits (2: quasi-periodic)",
+              "coordinates": "time time_yr step"},
+    "lyapunov": {"units": "1/day", "long_name": "finite-time largest Lyapunov exponent",
+                 "coordinates": "time time_yr step"},
+}
 _SERIES = {
     "time": ("f8", ["sample"]),
     "time_yr": ("f8", ["sample"]),
@@ -390,7 +398,7 @@ def _store_error(job_id, path, what, err):
     return StoreError(f"job {job_id}: {what} could not be read ({type(err).__name__}: {err}).")
 
 
-async def _create_async(path, body_names, capacity):
+async def _create_async(path, body_names, capacity, indicator=False):
     """A job's groups, sample arrays and label arrays, created concurrently."""
     from zarr.api import asynchronous as za
     from zarr.storage import LocalStore
@@ -408,6 +416,11 @@ async def _create_async(path, body_names, capacity):
                             chunks=(defaults.SAMPLE_CHUNK,), dimension_names=dims,
                             compressors=None, fill_value=-1 if dtype == "i8" else np.nan,
                             attributes=_ATTRS[key]) for key, (dtype, dims) in _SERIES.items()]
+    if indicator:
+        coros += [s.create_array(key, shape=(capacity,), dtype="f8",
+                                 chunks=(defaults.SAMPLE_CHUNK,), dimension_names=["sample"],
+                                 compressors=None, fill_value=np.nan, attributes=attrs)
+                  for key, attrs in _INDICATOR_ATTRS.items()]
     coros.append(s.create_array("elements", shape=(capacity, nb, 6), dtype="f8",
                                 fill_value=np.nan, chunks=(defaults.SAMPLE_CHUNK, nb, 6),
                                 dimension_names=["sample", "body", "element"],
@@ -457,7 +470,7 @@ class Store:
         return self._open[key]
 
     # -- creation -------------------------------------------------------------
-    def create_job(self, job_id, body_names, capacity=0, durable=True):
+    def create_job(self, job_id, body_names, capacity=0, durable=True, indicator=False):
         """Create (or reset) a job's group with sample arrays of up to one chunk of rows.
 
         ``capacity`` (the rows the whole run needs) only caps the first size:
@@ -466,12 +479,13 @@ class Store:
         for the whole run up front would make trimming a cancelled job walk
         every chunk key of the plan (a 1 Gyr job sampled every step: 10^6 keys
         per array, gigabytes of memory). Unwritten rows read as NaN (step -1).
+        With ``indicator`` the group also has the chaos indicator's series.
         """
         capacity = min(int(capacity), defaults.SAMPLE_CHUNK)
         try:
             path = self.job_path(job_id)
             self._forget(job_id)
-            key = (tuple(body_names), capacity)
+            key = (tuple(body_names), capacity, bool(indicator))
             self._made = {int(job_id): key}
             tpl = self._templates.get(key)
             if tpl is None:
@@ -479,7 +493,7 @@ class Store:
                 # bytes it wrote are kept as the template of every later job
                 # with the same bodies and first size (the members of an
                 # ensemble), which is then written as plain files.
-                _run(_create_async(path, list(body_names), capacity))
+                _run(_create_async(path, list(body_names), capacity, bool(indicator)))
                 files = {}
                 for root, _, names in os.walk(path):
                     for n in names:
@@ -559,8 +573,9 @@ class Store:
     def _sample_keys(self, job_id):
         """The sample arrays a job's store has (stores made before ``time_yr`` lack it)."""
         base = self.job_path(job_id) / "samples"
-        return [k for k in list(_SERIES) + ["elements"]
-                if k != "time_yr" or (base / k / "zarr.json").exists()]
+        return [k for k in list(_SERIES) + ["elements"] + list(_INDICATOR_ATTRS)
+                if k not in ("time_yr",) + tuple(_INDICATOR_ATTRS)
+                or (base / k / "zarr.json").exists()]
 
     async def _open_async(self, job_id):
         from zarr.api import asynchronous as za
@@ -835,16 +850,16 @@ class _NewJobs:
     def __enter__(self):
         return self
 
-    def add(self, job_id, body_names, capacity, block, arrays):
+    def add(self, job_id, body_names, capacity, block, arrays, indicator=False):
         st = self.store
         if "time_yr" not in block:
             block = dict(block, time_yr=block["time"] / YEAR_D)
-        template = (tuple(body_names), min(int(capacity), defaults.SAMPLE_CHUNK))
+        template = (tuple(body_names), min(int(capacity), defaults.SAMPLE_CHUNK), bool(indicator))
         ck = (st._ck_name(0, 0),) + _packed(arrays)
         first = st._firsts.get((template, json.dumps(ck[2])))
         if first is None or template not in st._templates or not _fits(first, block):
             self.wait()  # the templates change only with nothing in flight
-            st.create_job(job_id, body_names, capacity, durable=self.durable)
+            st.create_job(job_id, body_names, capacity, durable=self.durable, indicator=indicator)
             return st.write_first(job_id, block, arrays, durable=self.durable)
         if self.pool is None:
             from concurrent.futures import ThreadPoolExecutor
