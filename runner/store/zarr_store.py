@@ -26,7 +26,6 @@ import uuid
 from pathlib import Path
 
 import numpy as np
-import zarr
 
 from orbitledger.runner import defaults
 from orbitledger.runner.errors import StoreError
@@ -459,6 +458,8 @@ class Store:
         if mode == "r" and not path.exists():
             raise StoreError(f"job {job_id} has no Zarr group at {path}.")
         if mode == "r":
+            import zarr  # here, so the ledger's status commands never load it
+
             try:
                 return zarr.open_group(str(path), mode="r")
             except Exception as err:  # noqa: BLE001 - zarr raises many types on bad metadata
@@ -466,6 +467,8 @@ class Store:
         # Writers reuse their handle: opening a group re-reads its metadata.
         key = int(job_id)
         if key not in self._open:
+            import zarr
+
             self._open[key] = zarr.open_group(str(path), mode="a")
         return self._open[key]
 
