@@ -1,4 +1,4 @@
-"""Commands that read committed work: outcomes, audit, report, plot, compare, export,
+"""Commands that read committed work: outcomes, map, audit, report, plot, compare, export,
 backward, reversibility, verify, replay."""
 
 from pathlib import Path
@@ -60,6 +60,63 @@ def outcomes(ensemble_id: Annotated[int, typer.Argument(help="Ensemble id.", min
             write_atomic(html, plots.page(f"orbitledger ensemble {ensemble_id}: {ens['name']}",
                                           [("Outcomes", section)]))
             out.print(f"report written to {html}")
+
+
+MAP_VIEWS = ("megno", "lyapunov_time", "survival_time")
+
+
+@app.command("map")
+@_guard
+def map_cmd(ensemble_id: Annotated[int, typer.Argument(help="A grid ensemble's id.", min=1)],
+            workspace: WorkspaceOpt = None, db: DbOpt = None,
+            show: Annotated[str, typer.Option(
+                help="Cell value to draw: megno, lyapunov_time or survival_time.")] = "megno",
+            plot: Annotated[Optional[Path], typer.Option(
+                help="Write the map here (.png or .svg).")] = None,
+            dataset: Annotated[Optional[Path], typer.Option(
+                help="Write the map as an xarray Dataset here (a .zarr folder).")] = None):
+    """A grid ensemble's stability map: each cell's class, MEGNO, Lyapunov and survival time."""
+    from orbitledger.runner.analysis.stability_map import CHAOS_MARGIN, classes, stability_map
+    from orbitledger.runner.inputs.text import format_time
+
+    if show not in MAP_VIEWS:
+        fail(f"--show must be one of {', '.join(MAP_VIEWS)}, got {show!r}.")
+    if plot is not None and plot.suffix.lower() not in (".png", ".svg"):
+        fail(f"--plot must end in .png or .svg, got {plot.name!r}.")
+    if dataset is not None and (dataset.suffix.lower() != ".zarr" or dataset.exists()):
+        fail(f"--dataset must be a new folder ending in .zarr, got {str(dataset)!r}"
+             + (" (it exists; remove it or choose another name)." if dataset.exists() else "."))
+    with open_ledger(workspace, db) as ledger:
+        ds = stability_map(ledger, ensemble_id)
+    names = classes(ds)
+    counts = {c: int((names == c).sum()) for c in ("regular", "chaotic", "unstable", "survived")}
+    running = ~ds["stopped"].values
+    reached = ds["time_reached"].values[running] if running.any() else ds["time_reached"].values
+    shape = " x ".join(f"{ds.sizes[d]} {ds[d].attrs['long_name']} "
+                       f"({ds[d].attrs['units']})" for d in ds["cell_class"].dims)
+    out.print(f"ensemble {ensemble_id}: {ds.attrs['ensemble_name']}, {shape}; every cell not "
+              f"stopped run to at least {format_time(float(reached.min()) * 365.25)}",
+              markup=False)
+    out.print(", ".join(f"{c} {n}" for c, n in counts.items() if n)
+              + f" (chaotic: |<Y> - 2| > {CHAOS_MARGIN}, a convention)", markup=False)
+    meanings = ds["outcome"].attrs["flag_meanings"].split()
+    codes = ds["outcome"].values.ravel()
+    pending = {m: int((codes == k).sum()) for k, m in enumerate(meanings)
+               if m in ("queued", "running", "held", "cancelled", "failed")}
+    if pending:
+        out.print("not finished: " + ", ".join(f"{m} {n}" for m, n in pending.items())
+                  + " (their cells show what they committed so far; `status` says why)",
+                  markup=False)
+    if plot is not None:
+        from orbitledger.runner.presentation import plots
+
+        plots.save(plots.stability_map_figure(ds, show), plot)
+        out.print(f"map written to {plot}")
+    if dataset is not None:
+        tmp = dataset.with_name(dataset.name + ".part")
+        ds.to_zarr(str(tmp), mode="w-", consolidated=False)
+        tmp.rename(dataset)
+        out.print(f"dataset written to {dataset}")
 
 
 @app.command()

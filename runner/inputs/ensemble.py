@@ -88,6 +88,74 @@ def member_offset(sysspec, ens, member):
     return k, float(size * draws(rule.rule, ens.seed, ens.members)[member])
 
 
+_GRID_KIND = {"a": "length", "e": None, "i": "angle", "mean_anomaly": "angle"}
+GRID_UNITS = {"a": "au", "e": "1", "i": "deg", "mean_anomaly": "deg"}
+GRID_NAMES = {"a": "semi-major axis", "e": "eccentricity", "i": "inclination",
+              "mean_anomaly": "mean anomaly"}
+
+
+def grid_axes(ens):
+    """[(body, quantity, values)] of a grid ensemble, values in au, 1 or degrees."""
+    out = []
+    for n, axis in enumerate(ens.grid):
+        vals = []
+        for end in ("first", "last"):
+            key = f"ensemble.grid[{n}].{end}"
+            v = getattr(axis, end)
+            kind = _GRID_KIND[axis.quantity]
+            if kind is None:
+                if isinstance(v, str):
+                    raise SpecError(f"`{key}` for the eccentricity is a plain number, got {v!r}.")
+                vals.append(float(v))
+            else:
+                if not isinstance(v, str):
+                    raise SpecError(f"`{key}` needs a unit for quantity {axis.quantity!r}, got "
+                                    f"{v!r}; write e.g. \"{v} {GRID_UNITS[axis.quantity]}\".")
+                vals.append(parse_quantity(key, v, kind))
+        lo, hi = vals
+        if axis.count == 1:
+            values = np.array([lo])
+        else:
+            values = lo + (hi - lo) * (np.arange(axis.count) / (axis.count - 1))
+        out.append((axis.body, axis.quantity, values))
+    return out
+
+
+def grid_index(ens, member):
+    """The cell (i0[, i1]) of member k: row-major, the first axis slowest."""
+    counts = [axis.count for axis in ens.grid]
+    return tuple(int(i) for i in np.unravel_index(member, counts))
+
+
+def grid_cell(sysspec, ens, member):
+    """{body index: {quantity: value}} of member k of a grid ensemble (checked for any k)."""
+    names = [b.name for b in sysspec.bodies]
+    axes = grid_axes(ens)
+    seen = set()
+    for n, (body, quantity, values) in enumerate(axes):
+        if body not in names:
+            raise SpecError(f"`ensemble.grid[{n}].body` names {body!r}, which is not one of the "
+                            f"bodies {names}; use one of those names.")
+        if (body, quantity) in seen:
+            raise SpecError(f"`ensemble.grid[{n}]` repeats {quantity!r} of {body!r}; "
+                            "give each axis its own quantity.")
+        seen.add((body, quantity))
+        if quantity == "e" and not (values.min() >= 0.0 and values.max() < 1.0):
+            raise SpecError(f"`ensemble.grid[{n}]` eccentricities must lie in [0, 1), got "
+                            f"{values.min():g} to {values.max():g}.")
+        if quantity == "a" and not values.min() > 0.0:
+            raise SpecError(f"`ensemble.grid[{n}]` semi-major axes must be positive.")
+    if member is None:
+        return {}
+    if not 0 <= member < ens.members:
+        raise SpecError(f"`member` must be in 0..{ens.members - 1}, got {member}; "
+                        "members are numbered from 0.")
+    out = {}
+    for (body, quantity, values), i in zip(axes, grid_index(ens, member)):
+        out.setdefault(names.index(body), {})[quantity] = float(values[i])
+    return out
+
+
 def member_spec(spec, k):
     """The spec of member k of an ensemble spec."""
     return spec.model_copy(update={"member": k, "name": f"{spec.name}-m{k:04d}"})

@@ -14,7 +14,7 @@ import re
 import tomllib
 from typing import Literal
 
-from pydantic import BaseModel, ConfigDict, ValidationError, field_validator
+from pydantic import BaseModel, ConfigDict, ValidationError, field_validator, model_validator
 
 from orbitledger.integrators import CORRECTOR_ORDERS, METHODS, StopConditions, System
 from orbitledger.integrators.constants import G
@@ -127,17 +127,58 @@ class PerturbSpec(_Strict):
     relative: bool = False
 
 
+class GridAxisSpec(_Strict):
+    """One axis of a grid ensemble: `count` values of one element of one body,
+    evenly spaced from `first` to `last` (both included)."""
+
+    body: str
+    quantity: Literal["a", "e", "i", "mean_anomaly"]
+    first: str | float
+    last: str | float
+    count: int
+
+    @field_validator("count")
+    @classmethod
+    def _count(cls, v):
+        if not 1 <= v <= 10_000:
+            raise ValueError("must be between 1 and 10000")
+        return v
+
+
 class EnsembleSpec(_Strict):
-    members: int
+    members: int | None = None
     seed: int = 0
-    perturb: PerturbSpec
+    perturb: PerturbSpec | None = None
+    grid: list[GridAxisSpec] | None = None
 
     @field_validator("members")
     @classmethod
     def _members(cls, v):
-        if not 1 <= v <= 100_000:
+        if v is not None and not 1 <= v <= 100_000:
             raise ValueError("must be between 1 and 100000")
         return v
+
+    @model_validator(mode="after")
+    def _rule(self):
+        if (self.perturb is None) == (self.grid is None):
+            raise ValueError("give either [ensemble.perturb] (clones) or [[ensemble.grid]] "
+                             "axes (a map), not both or neither")
+        if self.grid is not None:
+            if not 1 <= len(self.grid) <= 2:
+                raise ValueError(f"a grid has one or two axes, got {len(self.grid)}")
+            cells = 1
+            for axis in self.grid:
+                cells *= axis.count
+            if self.members is None:
+                self.members = cells
+            elif self.members != cells:
+                raise ValueError(f"members = {self.members} but the grid has {cells} cells; "
+                                 "remove `members` or make it the product of the counts")
+            if self.members > 100_000:
+                raise ValueError(f"the grid has {self.members} cells, more than 100000")
+        elif self.members is None:
+            raise ValueError("`ensemble.members` is required with [ensemble.perturb]")
+        return self
 
 
 class JobSpec(_Strict):
@@ -418,12 +459,18 @@ def build_system(sysspec, ensemble=None, member=None):
 
     gm_arr = np.array(gm)
     mu = jacobi_mu(gm_arr) if sysspec.frame == "jacobi" else gm_arr[0] + gm_arr
-    target, offset = None, 0.0
-    if ensemble is not None:
+    target, offset, cells = None, 0.0, {}
+    if ensemble is not None and ensemble.grid is not None:
+        from orbitledger.runner.inputs.ensemble import grid_cell
+
+        cells = grid_cell(sysspec, ensemble, member)
+    elif ensemble is not None:
         from orbitledger.runner.inputs.ensemble import member_offset
 
         target, offset = member_offset(sysspec, ensemble, member)
     for k, b in enumerate(sysspec.bodies):
+        if k in cells:
+            b = _grid_elements(f"system.bodies[{k}]", b, cells[k])
         if k == target and ensemble.perturb.quantity in ("a", "e", "i", "mean_anomaly"):
             b = _perturbed_elements(f"system.bodies[{k}]", b, ensemble.perturb, offset)
         x, v = _body_state(f"system.bodies[{k}]", b, float(mu[k + 1]))
@@ -439,6 +486,18 @@ def build_system(sysspec, ensemble=None, member=None):
         if not np.any(rel_x[k] != rel_x[0]):
             raise SpecError(f"`system.bodies[{k - 1}]` sits on the star; give it a distance.")
     return System(names, gm_arr, rel_x, rel_v, 0.0, np.array(radii)).to_barycentric_frame()
+
+
+def _grid_elements(key, body, values):
+    """A copy of a body spec with elements set to a grid cell's values (au, 1, degrees)."""
+    if body.a is None:
+        raise SpecError(f"`ensemble.grid` sets orbital elements, so `{key}` must be given by "
+                        "orbital elements (a, e, ...), not a position and velocity.")
+    update = {}
+    for quantity, value in values.items():
+        update[quantity] = (value if quantity == "e" else
+                            f"{value!r} au" if quantity == "a" else f"{value!r} deg")
+    return body.model_copy(update=update)
 
 
 def _perturbed_elements(key, body, rule, offset):

@@ -193,3 +193,72 @@ def divergence_figure(t, d, fit, title):
     ax.legend(fontsize=8)
     fig.tight_layout()
     return fig
+
+
+def stability_map_figure(ds, show="megno"):
+    """A stability map: a heat map of one cell variable over a one- or two-axis grid.
+
+    show: "megno" (<Y>, colour range 0-8 by convention, 2 marked),
+    "lyapunov_time" (yr, log scale) or "survival_time" (yr, log scale).
+    Cells that stopped (unstable) are drawn in black in every view.
+    """
+    plt = _figure()
+    from matplotlib.colors import LogNorm, Normalize
+
+    var = ds[show]
+    values = np.array(var.values, dtype=float)
+    stopped = ds["stopped"].values.astype(bool)
+    label = {"megno": "MEGNO <Y>  (2: quasi-periodic)",
+             "lyapunov_time": "Lyapunov time (yr)",
+             "survival_time": "survival time (yr)"}[show]
+    if show == "megno":
+        norm = Normalize(vmin=0.0, vmax=8.0)
+    else:
+        finite = values[np.isfinite(values) & (values > 0)]
+        lo, hi = (finite.min(), finite.max()) if finite.size else (1.0, 10.0)
+        norm = LogNorm(vmin=lo, vmax=max(hi, lo * 10))
+    masked = np.ma.masked_where(stopped | ~np.isfinite(values), values)
+    cmap = plt.get_cmap("viridis").copy()
+    cmap.set_bad("black")
+    fig, ax = plt.subplots(figsize=(7, 4.8), dpi=110)
+    dims = var.dims
+
+    def axis_label(d):
+        c = ds[d]
+        return f"{c.attrs.get('long_name', d)} ({c.attrs.get('units', '')})"
+
+    if len(dims) == 2:
+        x = ds[dims[1]].values
+        y = ds[dims[0]].values
+        mesh = ax.pcolormesh(_edges(x), _edges(y), masked, cmap=cmap, norm=norm,
+                             shading="flat")
+        ax.set_xlabel(axis_label(dims[1]))
+        ax.set_ylabel(axis_label(dims[0]))
+    else:
+        x = ds[dims[0]].values
+        mesh = ax.pcolormesh(_edges(x), [0.0, 1.0], masked[None, :], cmap=cmap, norm=norm,
+                             shading="flat")
+        ax.set_yticks([])
+        ax.set_xlabel(axis_label(dims[0]))
+    bar = fig.colorbar(mesh, ax=ax)
+    bar.set_label(label)
+    if show == "megno":
+        bar.ax.axhline(2.0, color="white", lw=1)
+    from orbitledger.runner.inputs.text import format_time
+
+    reached = ds["time_reached"].values[~stopped]
+    span = format_time(float(reached.min()) * 365.25) if reached.size else "-"
+    ax.set_title(f"{ds.attrs.get('ensemble_name', '')}: {show.replace('_', ' ')} "
+                 f"(black: stopped; the others run to at least {span})", fontsize=9)
+    fig.tight_layout()
+    return fig
+
+
+def _edges(centres):
+    """Cell edges around evenly spaced centres (one cell: +-0.5 of its value or 0.5)."""
+    c = np.asarray(centres, dtype=float)
+    if c.size == 1:
+        h = 0.5 * abs(c[0]) or 0.5
+        return np.array([c[0] - h, c[0] + h])
+    mid = 0.5 * (c[1:] + c[:-1])
+    return np.concatenate([[c[0] - (mid[0] - c[0])], mid, [c[-1] + (c[-1] - mid[-1])]])
