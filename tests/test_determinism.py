@@ -23,22 +23,26 @@ sys.path.insert(0, {root!r}); sys.path.insert(0, {tests!r})
 from conftest import solar_subset, state_bytes
 from orbitledger.integrators import WisdomHolman
 s = solar_subset(["Jupiter", "Saturn"])
-wh = WisdomHolman(s, 37.0, corrector={corr}, gr={gr})
+wh = WisdomHolman(s, 37.0, corrector={corr}, gr={gr}, indicator={ind!r})
 wh.advance({n})
 x = wh.synchronized()
 print(json.dumps({{"state": state_bytes(wh).hex(), "x": x.x.tobytes().hex()}}))
 """
 
 
-@pytest.mark.parametrize("corr,gr", [(0, False), (5, True)])
-def test_compiled_equals_plain_python_bit_for_bit(corr, gr):
+@pytest.mark.parametrize("corr,gr,ind", [(0, False, None), (5, True, None), (5, True, "megno")])
+def test_compiled_equals_plain_python_bit_for_bit(corr, gr, ind):
+    # With ind = "megno" the tangent vector and the MEGNO sums (in the state
+    # bytes) are compared too.
     n = 25
-    script = _SCRIPT.format(root=ROOT, tests=os.path.join(ROOT, "tests"), corr=corr, gr=gr, n=n)
+    script = _SCRIPT.format(root=ROOT, tests=os.path.join(ROOT, "tests"), corr=corr, gr=gr, n=n,
+                            ind=ind)
     env = dict(os.environ, NUMBA_DISABLE_JIT="1")
     out = subprocess.run([sys.executable, "-c", script], env=env, capture_output=True,
                          text=True, check=True)
     plain = json.loads(out.stdout)
-    wh = WisdomHolman(solar_subset(["Jupiter", "Saturn"]), 37.0, corrector=corr, gr=gr)
+    wh = WisdomHolman(solar_subset(["Jupiter", "Saturn"]), 37.0, corrector=corr, gr=gr,
+                      indicator=ind)
     wh.advance(n)
     assert state_bytes(wh).hex() == plain["state"]
     assert wh.synchronized().x.tobytes().hex() == plain["x"]
