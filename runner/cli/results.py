@@ -1,5 +1,5 @@
-"""Commands that read committed work: outcomes, map, audit, report, plot, compare, export,
-backward, reversibility, verify, replay."""
+"""Commands that read committed work: outcomes, map, frequencies, audit, report, plot,
+compare, export, backward, reversibility, verify, replay."""
 
 from pathlib import Path
 from typing import Annotated, Optional
@@ -117,6 +117,65 @@ def map_cmd(ensemble_id: Annotated[int, typer.Argument(help="A grid ensemble's i
         ds.to_zarr(str(tmp), mode="w-", consolidated=False)
         tmp.rename(dataset)
         out.print(f"dataset written to {dataset}")
+
+
+@app.command()
+@_guard
+def frequencies(job_id: JobArg, workspace: WorkspaceOpt = None, db: DbOpt = None,
+                start: Annotated[Optional[str], typer.Option(
+                    "--from", help="Start of the stretch (a time from the job's start).")] = None,
+                end: Annotated[Optional[str], typer.Option(
+                    "--to", help="End of the stretch (default: the last sample).")] = None,
+                frame: Annotated[str, typer.Option(
+                    help="invariable (plane normal to the total angular momentum) or "
+                         "system (the spec's frame).")] = "invariable",
+                terms: Annotated[int, typer.Option(help="Terms per signal.", min=1, max=20)] = 3,
+                as_json: JsonOpt = False):
+    """Fundamental frequencies of a job's samples (Laskar's frequency analysis).
+
+    For each planet, the leading terms of z = e exp(i varpi) and zeta = sin(i/2)
+    exp(i node), and how much the leading frequency moves between the two
+    halves of the stretch (a chaos indicator: Laskar 1993).
+    """
+    from rich.table import Table
+
+    from orbitledger.runner.analysis.frequency import analyse_job
+    from orbitledger.runner.inputs.units import parse_quantity
+
+    if frame not in ("invariable", "system"):
+        fail(f"--frame must be invariable or system, got {frame!r}.")
+    with open_ledger(workspace, db) as ledger:
+        row = ledger.job(job_id)
+        sign = 1.0 if row["dt"] > 0 else -1.0
+        t0 = None if start is None else sign * parse_quantity("--from", start, "time")
+        t1 = None if end is None else sign * parse_quantity("--to", end, "time")
+        lo, hi = (t0, t1) if sign > 0 else (t1, t0)
+        try:
+            res = analyse_job(ledger, job_id, lo, hi, frame, terms)
+        except ValueError as err:
+            fail(str(err))
+    if as_json:
+        print_json(res)
+        return
+    t = Table(title=f"Job {job_id}: frequencies over {res['span_yr']:.6g} yr "
+                    f"({res['samples']} samples, {frame} frame)", header_style="bold")
+    for col in ("body", "signal", "frequency (\"/yr)", "period (yr)", "amplitude",
+                "drift between halves"):
+        t.add_column(col)
+    for name, entry in res["bodies"].items():
+        for label in ("z", "zeta"):
+            first = True
+            for term in entry[label]["terms"]:
+                t.add_row(name if first and label == "z" else "", label if first else "",
+                          f"{term['frequency_arcsec_per_yr']:.6g}", f"{term['period_yr']:.6g}",
+                          f"{term['amplitude']:.4g}",
+                          f"{entry[label]['drift']:.2e}" if first else "")
+                first = False
+    out.print(t)
+    out.print("z = e exp(i varpi), zeta = sin(i/2) exp(i node); frequencies found one by one "
+              "with a Hanning window (Laskar 1990, 1993). A drift of the leading frequency "
+              "well above the analysis' own error between the halves marks chaotic diffusion.",
+              markup=False)
 
 
 @app.command()
