@@ -1,7 +1,6 @@
 """Frequency analysis (Laskar's numerical frequency analysis): synthetic quasi-periodic
 signals of known terms, and the secular frequencies of the giant planets."""
 
-import math
 
 import numpy as np
 import pytest

@@ -307,3 +307,33 @@ def test_a_job_with_megno_killed_at_random_moments_resumes_bit_for_bit(tmp_path)
     assert last == pytest.approx(2.0, abs=0.05)
     led.close()
     ref.close()
+
+
+def test_audit_plot_and_report_show_the_indicator(tmp_path):
+    from helpers import cli
+
+    spec = tmp_path / "m.toml"
+    spec.write_text(megno_spec_text(length="3000 yr", chunk="50000 steps", output="500 steps"))
+    ws = tmp_path / "ws"
+    assert cli("init", "--workspace", ws).returncode == 0
+    assert cli("submit", spec, "--workspace", ws).returncode == 0
+    assert cli("work", "--workspace", ws, "--quiet").returncode == 0
+    res = cli("audit", "1", "--workspace", ws)
+    assert res.returncode == 0 and "MEGNO <Y> = " in res.stdout, res.stdout
+    assert "quasi-periodic so far" in res.stdout
+    assert cli("plot", "1", "--workspace", ws, "--kind", "megno",
+               "--to", tmp_path / "m.png").returncode == 0
+    assert (tmp_path / "m.png").stat().st_size > 10_000
+    assert cli("report", "1", "--workspace", ws, "--to", tmp_path / "r.html").returncode == 0
+    page = (tmp_path / "r.html").read_text()
+    assert "Chaos indicator" in page and "alt='megno'" in page
+    assert "Frequencies" in page and "sin(i/2)" in page
+    # A job without the indicator: a clear refusal for the plot, no section.
+    plain = tmp_path / "p.toml"
+    plain.write_text(megno_spec_text(name="plain", length="300 yr").replace(
+        'indicator = "megno"', ""))
+    assert cli("submit", plain, "--workspace", ws).returncode == 0
+    assert cli("work", "--workspace", ws, "--quiet").returncode == 0
+    res = cli("plot", "2", "--workspace", ws, "--kind", "megno", "--to", tmp_path / "x.png")
+    assert res.returncode != 0 and "carries no chaos indicator" in res.stderr + res.stdout
+    assert "MEGNO" not in cli("audit", "2", "--workspace", ws).stdout

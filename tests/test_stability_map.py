@@ -157,10 +157,12 @@ count = 2
     assert cli("submit", spec, "--workspace", ws).returncode == 0
     assert cli("work", "--workspace", ws, "--quiet").returncode == 0
     res = cli("map", "1", "--workspace", ws, "--plot", tmp_path / "m.png",
-              "--dataset", tmp_path / "m.zarr")
+              "--dataset", tmp_path / "m.zarr", "--html", tmp_path / "m.html")
     assert res.returncode == 0, res.stderr
     assert "4 Cadmus c: semi-major axis (au) x 2 Cadmus c: eccentricity (1)" in res.stdout
     assert (tmp_path / "m.png").stat().st_size > 10_000
+    page = (tmp_path / "m.html").read_text()
+    assert page.count("<img") == 3 and "a convention" in page
     ds = xr.open_zarr(str(tmp_path / "m.zarr"), consolidated=False)
     assert ds["megno"].dims == ("a", "e")
     assert ds["a"].attrs["units"] == "au" and ds["e"].sizes["e"] == 2

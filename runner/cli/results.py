@@ -74,7 +74,9 @@ def map_cmd(ensemble_id: Annotated[int, typer.Argument(help="A grid ensemble's i
             plot: Annotated[Optional[Path], typer.Option(
                 help="Write the map here (.png or .svg).")] = None,
             dataset: Annotated[Optional[Path], typer.Option(
-                help="Write the map as an xarray Dataset here (a .zarr folder).")] = None):
+                help="Write the map as an xarray Dataset here (a .zarr folder).")] = None,
+            html: Annotated[Optional[Path], typer.Option(
+                help="Write a self-contained HTML page with all three maps here.")] = None):
     """A grid ensemble's stability map: each cell's class, MEGNO, Lyapunov and survival time."""
     from orbitledger.runner.analysis.stability_map import CHAOS_MARGIN, classes, stability_map
     from orbitledger.runner.inputs.text import format_time
@@ -83,6 +85,8 @@ def map_cmd(ensemble_id: Annotated[int, typer.Argument(help="A grid ensemble's i
         fail(f"--show must be one of {', '.join(MAP_VIEWS)}, got {show!r}.")
     if plot is not None and plot.suffix.lower() not in (".png", ".svg"):
         fail(f"--plot must end in .png or .svg, got {plot.name!r}.")
+    if html is not None and html.suffix.lower() != ".html":
+        fail(f"--html must end in .html, got {html.name!r}.")
     if dataset is not None and (dataset.suffix.lower() != ".zarr" or dataset.exists()):
         fail(f"--dataset must be a new folder ending in .zarr, got {str(dataset)!r}"
              + (" (it exists; remove it or choose another name)." if dataset.exists() else "."))
@@ -112,6 +116,26 @@ def map_cmd(ensemble_id: Annotated[int, typer.Argument(help="A grid ensemble's i
 
         plots.save(plots.stability_map_figure(ds, show), plot)
         out.print(f"map written to {plot}")
+    if html is not None:
+        from orbitledger.runner.presentation import plots
+
+        summary = ", ".join(f"{c} {n}" for c, n in counts.items() if n)
+        sections = [("Cells", plots.kv_html([
+            ("grid", shape), ("classes", summary + f" (chaotic: |<Y> - 2| > {CHAOS_MARGIN}, "
+                                                   "a convention)"),
+            ("least advanced cell not stopped", format_time(float(reached.min()) * 365.25))]))]
+        for view in MAP_VIEWS:
+            fig = plots.stability_map_figure(ds, view)
+            sections.append((view.replace("_", " "),
+                             f"<img alt='{view}' src='{plots.png_data_uri(fig)}'>"))
+        sections.append(("Cautions", "<p>MEGNO and the Lyapunov exponent are finite-time "
+                         "indicators and the chaotic class is a convention; a cell's verdict "
+                         "holds for the time it reached. A symplectic map is not accurate "
+                         "through close encounters; in a chaotic system one trajectory is a "
+                         "sample, not a prediction.</p>"))
+        write_atomic(html, plots.page(f"orbitledger map, ensemble {ensemble_id}: "
+                                      f"{ds.attrs['ensemble_name']}", sections))
+        out.print(f"report written to {html}")
     if dataset is not None:
         tmp = dataset.with_name(dataset.name + ".part")
         ds.to_zarr(str(tmp), mode="w-", consolidated=False)
@@ -187,8 +211,11 @@ def audit(job_id: JobArg, workspace: WorkspaceOpt = None, db: DbOpt = None,
 
     from orbitledger.runner.analysis.budgets import audit_job
 
+    from orbitledger.runner.presentation.html import chaos_text
+
     with open_ledger(workspace, db) as ledger:
         verdicts = audit_job(ledger, job_id)
+        chaos = chaos_text(ledger, job_id)
     if as_json:
         from orbitledger.runner.presentation.records import audit_record
 
@@ -204,6 +231,8 @@ def audit(job_id: JobArg, workspace: WorkspaceOpt = None, db: DbOpt = None,
     out.print(t)
     out.print("alpha near 0: bounded oscillation; near 1/2: round-off random walk (Brouwer 1937);"
               " near 1: systematic drift.")
+    if chaos is not None:
+        out.print(chaos, markup=False)
 
 
 @app.command()
@@ -224,13 +253,14 @@ def report(job_id: JobArg, to: Annotated[Path, typer.Option(help="HTML file to w
 @app.command()
 @_guard
 def plot(job_id: JobArg, to: Annotated[Path, typer.Option(help="Image file (.png or .svg).")],
-         kind: Annotated[str, typer.Option(help="energy or elements.")] = "energy",
+         kind: Annotated[str, typer.Option(help="energy, elements or megno.")] = "energy",
          workspace: WorkspaceOpt = None, db: DbOpt = None):
-    """Plot a job's energy error (log-log, with a t^1/2 line) or its elements over time."""
+    """Plot a job's energy error (log-log, with a t^1/2 line), its elements over time, or
+    its MEGNO and Lyapunov exponent (jobs with `method.indicator = "megno"`)."""
     from orbitledger.runner.presentation import plots
 
-    if kind not in ("energy", "elements"):
-        fail(f"--kind must be 'energy' or 'elements', got {kind!r}.")
+    if kind not in ("energy", "elements", "megno"):
+        fail(f"--kind must be 'energy', 'elements' or 'megno', got {kind!r}.")
     if to.suffix.lower() not in (".png", ".svg"):
         fail(f"--to must end in .png or .svg, got {to.name!r}.")
     with open_ledger(workspace, db) as ledger:
@@ -238,8 +268,12 @@ def plot(job_id: JobArg, to: Annotated[Path, typer.Option(help="Image file (.png
         samples = ledger.store.read_samples(job_id, row["n_samples"])
         names = ledger.store.body_names(job_id)[1:]
     title = f"job {job_id}: {row['name']}"
-    fig = plots.energy_figure(samples, title) if kind == "energy" else \
-        plots.elements_figure(samples, names, title)
+    if kind == "megno" and "megno" not in samples:
+        fail(f"job {job_id} carries no chaos indicator; submit it with "
+             "`method.indicator = \"megno\"` to have one.")
+    fig = (plots.energy_figure(samples, title) if kind == "energy" else
+           plots.elements_figure(samples, names, title) if kind == "elements" else
+           plots.megno_figure(samples, title))
     plots.save(fig, to)
     out.print(f"plot written to {to}")
 

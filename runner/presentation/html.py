@@ -109,6 +109,53 @@ def _provenance(ledger, job_id):
                                [(ref,) + key for key, ref in soft.items()]))
 
 
+def chaos_text(ledger, job_id, samples=None):
+    """One line on a job's chaos indicator at its last sample, or None without one."""
+    row = ledger.job(job_id)
+    if samples is None:
+        n = row["n_samples"]
+        samples = ledger.store.read_samples(job_id, n, start=max(n - 1, 0)) if n else {}
+    if "megno" not in samples or not len(samples["megno"]):
+        return None
+    y = float(samples["megno"][-1])
+    lam = float(samples["lyapunov"][-1]) * 365.25
+    t = format_time(abs(float(samples["time"][-1])))
+    verdict = ("near 2: quasi-periodic so far" if abs(y - 2.0) <= 0.5 else
+               "below 2: nearly periodic so far" if y < 1.5 else
+               "above 2: chaotic (it grows like lambda t / 2)")
+    if abs(y - 2.0) > 0.5 and y > 2.0 and lam > 0:
+        life = f"Lyapunov time {1.0 / lam:.4g} yr"
+    else:
+        life = "not a Lyapunov time: on a regular orbit it falls like ln(t)/t"
+    return (f"MEGNO <Y> = {y:.4g} at {t} ({verdict}); finite-time Lyapunov exponent "
+            f"{lam:.3g} /yr ({life}). Finite-time indicators: thresholds are conventions.")
+
+
+def _frequency_section(ledger, job_id):
+    """Leading frequencies of each planet's z and zeta (or why there are none)."""
+    from orbitledger.runner.analysis.frequency import analyse_job
+
+    try:
+        res = analyse_job(ledger, job_id, n_terms=2)
+    except ValueError as err:
+        return f"<p>{html.escape(str(err))}</p>"
+    rows = []
+    for name, entry in res["bodies"].items():
+        for label in ("z", "zeta"):
+            for k, term in enumerate(entry[label]["terms"]):
+                rows.append((name if k == 0 and label == "z" else "", label if k == 0 else "",
+                             f"{term['frequency_arcsec_per_yr']:.6g}",
+                             f"{term['period_yr']:.6g}", f"{term['amplitude']:.4g}",
+                             f"{entry[label]['drift']:.2e}" if k == 0 else ""))
+    return (f"<p>Over {res['span_yr']:.6g} yr ({res['samples']} samples, invariable plane): "
+            "z = e exp(i varpi), zeta = sin(i/2) exp(i node), terms found one by one with a "
+            "Hanning window (Laskar 1990, 1993); the drift is the relative change of the "
+            "leading frequency between the two halves (large: chaotic diffusion, or a "
+            "stretch too short for that frequency).</p>"
+            + plots.table_html(["body", "signal", "frequency (\"/yr)", "period (yr)",
+                                "amplitude", "drift between halves"], rows))
+
+
 def job_report(ledger, job_id, compare_with=None):
     """The report page (str) of a job, optionally with its divergence from another job."""
     from orbitledger.runner.analysis.integrity import verify
@@ -156,6 +203,11 @@ def job_report(ledger, job_id, compare_with=None):
         ("Orbital elements", f"<img alt='elements' src='"
                              f"{plots.png_data_uri(plots.elements_figure(samples, names[1:], title))}'>"),
     ]
+    chaos = chaos_text(ledger, job_id, samples)
+    if chaos is not None:
+        sections.append(("Chaos indicator", f"<p>{html.escape(chaos)}</p><img alt='megno' src='"
+                         f"{plots.png_data_uri(plots.megno_figure(samples, title))}'>"))
+    sections.append(("Frequencies", _frequency_section(ledger, job_id)))
     if compare_with is not None:
         from orbitledger.runner.analysis.divergence import compare_jobs, describe_divergence
 

@@ -262,3 +262,23 @@ def _edges(centres):
         return np.array([c[0] - h, c[0] + h])
     mid = 0.5 * (c[1:] + c[:-1])
     return np.concatenate([[c[0] - (mid[0] - c[0])], mid, [c[-1] + (c[-1] - mid[-1])]])
+
+
+def megno_figure(samples, title):
+    """MEGNO <Y> and the finite-time Lyapunov exponent against time (linear axes)."""
+    plt = _figure()
+    t, tlabel = _time_axis(samples["time"])
+    y = np.asarray(samples["megno"], dtype=float)
+    lam = np.asarray(samples["lyapunov"], dtype=float) * 365.25
+    fig, (ax1, ax2) = plt.subplots(2, 1, figsize=(7, 5.2), dpi=110, sharex=True)
+    ax1.plot(t, y, lw=1.2, label="MEGNO <Y>")
+    ax1.axhline(2.0, color="k", lw=0.8, ls="--", label="2: quasi-periodic")
+    ax1.set_ylabel("<Y>")
+    ax1.legend(loc="upper left", fontsize=8)
+    ax2.plot(t, lam, lw=1.2, color="C1")
+    ax2.set_ylabel("Lyapunov exponent (1/yr)")
+    ax2.set_xlabel(tlabel)
+    _plain_ticks(ax2)
+    ax1.set_title(title)
+    fig.tight_layout()
+    return fig
