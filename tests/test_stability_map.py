@@ -183,3 +183,25 @@ size = "1 cm"
     res = cli("map", "1", "--workspace", ws, "--show", "colour")
     assert res.returncode != 0 and "--show must be one of" in res.stderr + res.stdout
     led.close()
+
+
+def test_a_map_taken_early_covers_the_whole_grid_at_an_earlier_time(tmp_path):
+    # Breadth first, every cell advances together: stopped part-way, the map
+    # already has every cell, none more than a chunk ahead of another.
+    from helpers import stepping_clock
+
+    text = PAIR.format(length="2000 yr", first=outer_a(3.2), last=outer_a(4.4), count=6)
+    led = Ledger(f"sqlite:///{tmp_path}/l.sqlite", tmp_path / "store")
+    ens, _ = led.submit_ensemble(S.load_text(text))
+    clock = stepping_clock(1.0)
+    Worker(led, clock=clock, deadline=70.0, max_steps_per_call=20000, slice_seconds=None).run()
+    ds = stability_map(led, ens)
+    reached = ds["time_reached"].values
+    chunk_yr = 20000 * 9.13125 / 365.25
+    assert 0 < reached.min() < 2000.0                 # stopped part-way
+    assert reached.max() - reached.min() <= chunk_yr + 1e-9
+    assert np.isfinite(ds["megno"].values).all()     # every cell has a value already
+    # The rest of the run sharpens the same map.
+    Worker(led).run()
+    assert (stability_map(led, ens)["time_reached"].values == pytest.approx(2000.0))
+    led.close()
