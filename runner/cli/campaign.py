@@ -228,6 +228,14 @@ def show(job_id: JobArg, workspace: WorkspaceOpt = None, db: DbOpt = None,
         t, p, _ = show_tables(ledger, job_id)
         out.print(t)
         out.print(p)
+        import json
+
+        eph = json.loads(ledger.job(job_id)["spec_json"])["system"].get("ephemeris")
+        if eph and eph.get("sources"):
+            out.print("Initial conditions read from an ephemeris; where every number came "
+                      "from:", markup=False)
+            for line in eph["sources"]:
+                out.print("  " + line, markup=False, highlight=False)
 
 
 @app.command()

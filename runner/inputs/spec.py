@@ -17,7 +17,7 @@ from typing import Literal
 from pydantic import BaseModel, ConfigDict, ValidationError, field_validator, model_validator
 
 from orbitledger.integrators import CORRECTOR_ORDERS, METHODS, StopConditions, System
-from orbitledger.integrators.constants import G
+from orbitledger.integrators.constants import G, SUN_RADIUS_AU
 
 from orbitledger.runner import defaults
 from orbitledger.runner.errors import SpecError
@@ -51,10 +51,25 @@ class BodySpec(_Strict):
     velocity: list[str] | None = None
 
 
+class EphemerisSpec(_Strict):
+    """Initial conditions read from a solar-system ephemeris (see runner.inputs.ephemeris)."""
+
+    epoch: str
+    scale: Literal["tdb", "tt", "utc", "tai"] = "tdb"
+    bodies: list[str]
+    source: str = "builtin"
+    plane: Literal["ecliptic", "invariable"] = "ecliptic"
+    masses: dict[str, str] | None = None
+    fold_unlisted: bool = True
+    # Filled at submit: where every number came from (kept with the job's spec).
+    sources: list[str] | None = None
+
+
 class SystemSpec(_Strict):
     star: StarSpec
     bodies: list[BodySpec]
     frame: Literal["heliocentric", "jacobi"] = "heliocentric"
+    ephemeris: EphemerisSpec | None = None
 
 
 class MethodSpec(_Strict):
@@ -219,9 +234,9 @@ _FIX = {
 }
 
 
-def _one_line(err, data):
+def _one_line(err, data, prefix=()):
     e = err.errors()[0]
-    key = _dotted(e["loc"])
+    key = _dotted(tuple(prefix) + tuple(e["loc"]))
     kind = e["type"]
     if kind == "missing":
         return f"`{key}` is required but missing; add it to the spec."
@@ -275,12 +290,44 @@ def parse(data, notes=None):
     if not isinstance(data, dict):
         raise SpecError("a spec must be a TOML table of keys, got something else.")
     data = _renamed(data, notes if notes is not None else [])
+    data = _from_ephemeris(data)
     try:
         spec = JobSpec.model_validate(data)
     except ValidationError as err:
         raise SpecError(_one_line(err, data)) from None
     resolve(spec)  # every quantity, unit and physical constraint is checked here
     return spec
+
+
+def _from_ephemeris(data):
+    """A spec whose [system.ephemeris] asks for planets, with the star and bodies read
+    from the ephemeris written out (exact numbers, so the stored spec no longer needs
+    the ephemeris); a spec that lists its bodies as well (a stored one) is left as is."""
+    system = data.get("system")
+    if not isinstance(system, dict) or not isinstance(system.get("ephemeris"), dict):
+        return data
+    if "bodies" in system or "star" in system:
+        if "bodies" in system and "star" in system:
+            return data
+        raise SpecError("`system.ephemeris` gives the star and the bodies; remove "
+                        "`system.star` and `system.bodies` (or the ephemeris section).")
+    try:
+        eph = EphemerisSpec.model_validate(system["ephemeris"])
+    except ValidationError as err:
+        raise SpecError(_one_line(err, system["ephemeris"], ("system", "ephemeris"))) from None
+    from orbitledger.runner.inputs.ephemeris import ephemeris_system
+
+    names, masses, x, v, sources = ephemeris_system(eph)
+    bodies = [{"name": n, "mass": f"{float(m)!r} Msun",
+               "position": [f"{float(q)!r} au" for q in xx],
+               "velocity": [f"{float(q)!r} au/d" for q in vv]}
+              for n, m, xx, vv in zip(names[1:], masses[1:], x[1:], v[1:])]
+    eph_out = dict(system["ephemeris"], sources=[f"{who}: {what} ({src})"
+                                               for who, what, src in sources])
+    system = dict(system, star={"name": names[0], "mass": f"{float(masses[0])!r} Msun",
+                                "radius": f"{SUN_RADIUS_AU!r} au"},
+                  bodies=bodies, frame="heliocentric", ephemeris=eph_out)
+    return dict(data, system=system)
 
 
 def load_text(text, source="spec", notes=None):

@@ -61,9 +61,17 @@ def _spec_tables(spec, row):
     if spec.get("ensemble"):
         ens = spec["ensemble"]
         pert = ens.get("perturb") or {}
+        rule = ", ".join(f"{k} {v}" for k, v in pert.items()) or "; ".join(
+            f"{a['body']} {a['quantity']} from {a['first']} to {a['last']} in {a['count']}"
+            for a in ens.get("grid") or [])
         settings.append(("ensemble member", f"{spec.get('member')} of {ens['members']}: "
-                         + ", ".join(f"{k} {v}" for k, v in pert.items())))
+                         + rule))
     parts.append("<h3>Settings</h3>" + plots.kv_html(settings))
+    eph = spec["system"].get("ephemeris")
+    if eph and eph.get("sources"):
+        parts.append("<h3>Where the initial conditions came from</h3><ul>"
+                     + "".join(f"<li>{html.escape(line)}</li>" for line in eph["sources"])
+                     + "</ul>")
     parts.append("<details><summary>The spec as stored (JSON)</summary><pre>"
                  + html.escape(json.dumps(spec, indent=2, sort_keys=True)) + "</pre></details>")
     return "".join(parts)
