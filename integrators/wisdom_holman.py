@@ -21,6 +21,7 @@ from .kepler import drift_row
 from .nbody import accelerations, gr_coefficient
 from .stops import NUMERICAL_FAILURE_CODE, check_stops, first_broken, is_broken
 from .system import jacobi_from_inertial, jacobi_mu
+from .particles import check_particles, drift_particles, hill_factors, kick_particles
 from .variational import (N_SUMS, drift_all_tangent, initial_tangent, kick_tangent,
                           lyapunov_of, megno_of, megno_update)
 
@@ -201,6 +202,49 @@ def wh_steps_tangent(xj, vj, gm, mu, mr, dt, n_steps, pending, gr_coef, pairs, p
     return n_steps, pending, 0, -1, -1, rows
 
 
+@njit(cache=True, error_model="numpy", nogil=True)
+def wh_steps_particles(xj, vj, gm, mu, mr, dt, n_steps, pending, gr_coef, pairs, params, xi,
+                       acc, rh, step0, every, a_inv, c_inv, scratch, out_g, out_el, row0,
+                       px, pv, alive, events, mu_all, hill_f):
+    """:func:`wh_steps` with test particles (see :mod:`integrators.particles`).
+
+    The massive bodies' arithmetic is wh_steps' own. Particles meeting a stop
+    condition are removed and recorded in `events` with their step; only the
+    massive bodies' stops end the call.
+    """
+    half = 0.5 * dt
+    check = params[0] > 0.0
+    rows = row0
+    until = every - step0 % every if every > 0 else -1
+    for k in range(n_steps):
+        h = dt if pending else half
+        drift_all(xj, vj, mu, h)
+        drift_particles(px, pv, alive, mu_all, h)
+        pending = True
+        kick(xj, vj, gm, mu, mr, dt, gr_coef, xi, acc)
+        kick_particles(px, pv, alive, xi, xj[0], gm, mu_all, dt)
+        if is_broken(vj[vj.shape[0] - 1, 0]):
+            return k + 1, pending, NUMERICAL_FAILURE_CODE, first_broken(xj, vj), -1, rows
+        if check:
+            check_particles(px, alive, events, xi, xj[0], hill_f, params, step0 + k + 1)
+            code, a, b = check_stops(xi, xj, vj, mu, pairs, params, rh)
+            if code != 0:
+                return k + 1, pending, code, a, b, rows
+        until -= 1
+        if until == 0:
+            until = every
+            e, lx, ly, lz = wh_diagnose(xj, vj, gm, mu, mr, dt, pending, gr_coef, a_inv, c_inv,
+                                        scratch[0], scratch[1], scratch[2], scratch[3],
+                                        scratch[4], scratch[5], out_el[rows])
+            out_g[rows, 0] = step0 + k + 1
+            out_g[rows, 1] = e
+            out_g[rows, 2] = lx
+            out_g[rows, 3] = ly
+            out_g[rows, 4] = lz
+            rows += 1
+    return n_steps, pending, 0, -1, -1, rows
+
+
 @njit(cache=True, error_model="numpy")
 def apply_stages(xj, vj, gm, mu, mr, dt, gr_coef, a_arr, c_arr, xi, acc):
     """Apply X(a, c) = drift(a dt) kick(c dt) drift(-a dt) for each stage in order."""
@@ -252,14 +296,21 @@ class WisdomHolman(Integrator):
         trajectory is the same bit for bit with or without it.
     tangent_seed : int
         Seed of the initial tangent vector's direction.
+    particles : (x, v), optional
+        Test particles: heliocentric positions (k, 3) in au and velocities
+        (k, 3) in au/d, in the frame of `system` (see
+        :mod:`integrators.particles`). Not yet with a corrector or an indicator.
     """
 
     method = "wisdom_holman"
     INDICATORS = (None, "megno")
 
     def __init__(self, system, dt, corrector=0, gr=False, stops=None, indicator=None,
-                 tangent_seed=0):
+                 tangent_seed=0, particles=None):
         super().__init__(system, dt, stops)
+        if particles is not None and (corrector or indicator is not None):
+            raise ValueError("test particles are not yet supported with a corrector or a "
+                             "chaos indicator; use corrector=0 and no indicator.")
         if corrector not in correctors.ORDERS:
             raise ValueError(f"corrector must be one of {correctors.ORDERS}, got {corrector}.")
         if indicator not in self.INDICATORS:
@@ -274,6 +325,18 @@ class WisdomHolman(Integrator):
         self.xj = jacobi_from_inertial(self.gm, system.x)
         self.vj = jacobi_from_inertial(self.gm, system.v)
         self.pending = False
+        self.particles = None
+        if particles is not None:
+            px = np.array(particles[0], dtype=np.float64).reshape(-1, 3)
+            pv = np.array(particles[1], dtype=np.float64).reshape(-1, 3)
+            if px.shape != pv.shape:
+                raise ValueError("particle positions and velocities must have the same shape.")
+            # Relative to the massive bodies' centre of mass (Jacobi row 0).
+            px = (np.asarray(system.x)[0] + px) - self.xj[0]
+            pv = (np.asarray(system.v)[0] + pv) - self.vj[0]
+            alive = np.ones(len(px), dtype=np.int64)
+            events = np.full((len(px), 3), -1, dtype=np.int64)
+            self.particles = (px, pv, alive, events)
         if self.corrector:
             a, c = _stage_arrays(self.corrector, +1.0)
             apply_stages(self.xj, self.vj, self.gm, self.mu, self.mr, self.dt,
@@ -315,6 +378,15 @@ class WisdomHolman(Integrator):
         if out_g is None:
             out_g, out_el = self._no_out
         a_inv, c_inv = self._inv
+        if self.particles is not None:
+            px, pv, alive, events = self.particles
+            steps, self.pending, code, a, b, rows = wh_steps_particles(
+                self.xj, self.vj, self.gm, self.mu, self.mr, self.dt, n, self.pending,
+                self.gr_coef, self._stop_pairs, self._stop_params, self._xi, self._acc, self._rh,
+                self.step + self.sample_offset, every, a_inv, c_inv, self._diag_scratch, out_g,
+                out_el, row0, px, pv, alive, events, self.eta[-1],
+                hill_factors(self.gm, self.stops.hill))
+            return steps, code, a, b, rows
         if self.tangent is not None:
             dx, dv, sums = self.tangent
             steps, self.pending, code, a, b, rows = wh_steps_tangent(
@@ -345,7 +417,35 @@ class WisdomHolman(Integrator):
         return wh_diagnose(self.xj, self.vj, self.gm, self.mu, self.mr, self.dt, self.pending,
                            self.gr_coef, a, c, *self._diag_scratch, els)
 
+    def particle_states(self):
+        """Heliocentric positions and velocities (k, 3) of the test particles at the
+        synchronized time; removed particles are rows of NaN."""
+        if self.particles is None:
+            return np.empty((0, 3)), np.empty((0, 3))
+        px, pv, alive, _ = self.particles
+        cx, cv, qx, qv = self.xj.copy(), self.vj.copy(), px.copy(), pv.copy()
+        if self.pending:
+            drift_all(cx, cv, self.mu, 0.5 * self.dt)
+            drift_particles(qx, qv, alive, self.eta[-1], 0.5 * self.dt)
+        n = len(self.gm)
+        xo, vo = np.empty((n, 3)), np.empty((n, 3))
+        to_inertial(cx, self.mr, xo)
+        to_inertial(cv, self.mr, vo)
+        x = cx[0] + qx - xo[0]
+        v = cv[0] + qv - vo[0]
+        x[alive == 0] = np.nan
+        v[alive == 0] = np.nan
+        return x, v
+
+    def particle_events(self):
+        """(step, kind code, body) per particle; step -1 while it is still integrated."""
+        return (np.empty((0, 3), dtype=np.int64) if self.particles is None
+                else self.particles[3].copy())
+
     def _settle_pending(self, dt_forward):
+        if self.pending and self.particles is not None:
+            px, pv, alive, _ = self.particles
+            drift_particles(px, pv, alive, self.eta[-1], 0.5 * dt_forward)
         if self.pending:
             if self.tangent is not None:
                 drift_all_tangent(self.xj, self.vj, self.tangent[0], self.tangent[1], self.mu,
@@ -358,6 +458,11 @@ class WisdomHolman(Integrator):
         out = {"xj": self.xj.copy(), "vj": self.vj.copy(),
                "pending": np.array([int(self.pending)], dtype=np.int64),
                "settings": np.array([self.corrector, int(self.gr)], dtype=np.int64)}
+        if self.particles is not None:
+            out["particles_x"] = self.particles[0].copy()
+            out["particles_v"] = self.particles[1].copy()
+            out["particles_alive"] = self.particles[2].copy()
+            out["particles_events"] = self.particles[3].copy()
         if self.tangent is not None:
             # Only when carried, so states without it keep their bytes.
             out["tangent_x"] = self.tangent[0].copy()
@@ -372,6 +477,11 @@ class WisdomHolman(Integrator):
         settings = np.asarray(arrays["settings"])
         self.corrector = int(settings[0])
         self.gr = bool(settings[1])
+        self.particles = None
+        if "particles_x" in arrays:
+            self.particles = tuple(np.array(arrays[k], dtype=dt) for k, dt in (
+                ("particles_x", np.float64), ("particles_v", np.float64),
+                ("particles_alive", np.int64), ("particles_events", np.int64)))
         self.tangent = None
         if "tangent_x" in arrays:
             self.tangent = (np.array(arrays["tangent_x"], dtype=np.float64),
