@@ -255,6 +255,21 @@ def apply_stages(xj, vj, gm, mu, mr, dt, gr_coef, a_arr, c_arr, xi, acc):
 
 
 @njit(cache=True, error_model="numpy")
+def apply_stages_particles(xj, vj, gm, mu, mr, dt, gr_coef, a_arr, c_arr, xi, acc, px, pv,
+                           alive, mu_all):
+    """:func:`apply_stages` with test particles carried through the same stages (the
+    massive bodies' operations are apply_stages' own, in its order)."""
+    for s in range(a_arr.shape[0]):
+        h = a_arr[s] * dt
+        drift_all(xj, vj, mu, h)
+        drift_particles(px, pv, alive, mu_all, h)
+        kick(xj, vj, gm, mu, mr, c_arr[s] * dt, gr_coef, xi, acc)
+        kick_particles(px, pv, alive, xi, xj[0], gm, mu_all, c_arr[s] * dt)
+        drift_all(xj, vj, mu, -h)
+        drift_particles(px, pv, alive, mu_all, -h)
+
+
+@njit(cache=True, error_model="numpy")
 def synchronize(xj, vj, gm, mu, mr, dt, pending, gr_coef, a_arr, c_arr, xi, acc, xo, vo):
     """Physical inertial state of the (unchanged) internal state into xo, vo.
 
@@ -299,7 +314,8 @@ class WisdomHolman(Integrator):
     particles : (x, v), optional
         Test particles: heliocentric positions (k, 3) in au and velocities
         (k, 3) in au/d, in the frame of `system` (see
-        :mod:`integrators.particles`). Not yet with a corrector or an indicator.
+        :mod:`integrators.particles`); carried through the corrector's stages
+        too. Not yet with an indicator.
     """
 
     method = "wisdom_holman"
@@ -308,9 +324,9 @@ class WisdomHolman(Integrator):
     def __init__(self, system, dt, corrector=0, gr=False, stops=None, indicator=None,
                  tangent_seed=0, particles=None):
         super().__init__(system, dt, stops)
-        if particles is not None and (corrector or indicator is not None):
-            raise ValueError("test particles are not yet supported with a corrector or a "
-                             "chaos indicator; use corrector=0 and no indicator.")
+        if particles is not None and indicator is not None:
+            raise ValueError("test particles are not yet supported with a chaos indicator; "
+                             "leave the indicator off.")
         if corrector not in correctors.ORDERS:
             raise ValueError(f"corrector must be one of {correctors.ORDERS}, got {corrector}.")
         if indicator not in self.INDICATORS:
@@ -339,8 +355,14 @@ class WisdomHolman(Integrator):
             self.particles = (px, pv, alive, events)
         if self.corrector:
             a, c = _stage_arrays(self.corrector, +1.0)
-            apply_stages(self.xj, self.vj, self.gm, self.mu, self.mr, self.dt,
-                         self.gr_coef, a, c, self._xi, self._acc)
+            if self.particles is not None:
+                px, pv, alive, _ = self.particles
+                apply_stages_particles(self.xj, self.vj, self.gm, self.mu, self.mr, self.dt,
+                                       self.gr_coef, a, c, self._xi, self._acc, px, pv, alive,
+                                       self.eta[-1])
+            else:
+                apply_stages(self.xj, self.vj, self.gm, self.mu, self.mr, self.dt,
+                             self.gr_coef, a, c, self._xi, self._acc)
 
     def _derive(self):
         # Quantities fixed by gm and settings; recomputed (deterministically) on restore.
@@ -428,6 +450,11 @@ class WisdomHolman(Integrator):
             drift_all(cx, cv, self.mu, 0.5 * self.dt)
             drift_particles(qx, qv, alive, self.eta[-1], 0.5 * self.dt)
         n = len(self.gm)
+        if self.corrector:
+            a, c = self._inv
+            apply_stages_particles(cx, cv, self.gm, self.mu, self.mr, self.dt, self.gr_coef, a,
+                                   c, np.empty((n, 3)), np.empty((n, 3)), qx, qv, alive,
+                                   self.eta[-1])
         xo, vo = np.empty((n, 3)), np.empty((n, 3))
         to_inertial(cx, self.mr, xo)
         to_inertial(cv, self.mr, vo)
