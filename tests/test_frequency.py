@@ -150,3 +150,13 @@ def test_frequencies_command_on_a_job_and_a_stretch(tmp_path):
     res = cli("frequencies", "1", "--workspace", ws, "--from", "59.9 kyr")
     assert res.returncode != 0 and "needs at least 32" in res.stderr + res.stdout
     assert "Orrin b" in cli("frequencies", "1", "--workspace", ws).stdout
+    # The backward run from the end retraces the same stretch: the same
+    # frequencies, with the same signs (its samples are analysed in time order).
+    assert cli("backward", "1", "--workspace", ws).returncode == 0
+    assert cli("work", "--workspace", ws, "--quiet").returncode == 0
+    back = json.loads(cli("frequencies", "2", "--workspace", ws, "--json", "--terms",
+                          "2").stdout)
+    for label in ("z", "zeta"):
+        f1 = rec["bodies"]["Orrin b"][label]["terms"][0]["frequency_arcsec_per_yr"]
+        f2 = back["bodies"]["Orrin b"][label]["terms"][0]["frequency_arcsec_per_yr"]
+        assert f2 == pytest.approx(f1, rel=1e-6), label

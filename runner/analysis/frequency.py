@@ -200,6 +200,10 @@ def analyse_job(ledger, job_id, start=None, end=None, frame="invariable", n_term
         keep &= t <= end
     t = t[keep]
     els = np.asarray(s["elements"])[keep]
+    # A backward run's samples go back in time: analyse them in time order, so
+    # frequencies keep their sign.
+    order = np.argsort(t, kind="stable")
+    t, els = t[order], els[order]
     if t.size < 32:
         raise ValueError(f"job {job_id} has {t.size} samples in that stretch; frequency "
                          "analysis needs at least 32 (sample more often or take a longer one).")
