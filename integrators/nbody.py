@@ -56,6 +56,30 @@ def accelerations(x, gm, gr_coef, acc):
             acc[0, 2] += q * f * dz
 
 
+@njit(cache=True, error_model="numpy", inline="always")
+def to_inertial(xj, mr, xi):
+    """Inertial positions from Jacobi positions into xi (see system.inertial_from_jacobi).
+
+    mr[i] = gm[i] / eta[i], the mass ratios of the Jacobi chain, computed once
+    (the same quotient every call, so the same bits as dividing here).
+    """
+    n = xj.shape[0]
+    c0 = xj[0, 0]
+    c1 = xj[0, 1]
+    c2 = xj[0, 2]
+    for i in range(n - 1, 0, -1):
+        q = mr[i]
+        c0 = c0 - q * xj[i, 0]
+        c1 = c1 - q * xj[i, 1]
+        c2 = c2 - q * xj[i, 2]
+        xi[i, 0] = c0 + xj[i, 0]
+        xi[i, 1] = c1 + xj[i, 1]
+        xi[i, 2] = c2 + xj[i, 2]
+    xi[0, 0] = c0
+    xi[0, 1] = c1
+    xi[0, 2] = c2
+
+
 @njit(cache=True, error_model="numpy")
 def _energy_g(x, v, gm, gr_coef):
     n = x.shape[0]

@@ -39,6 +39,7 @@ from numba import njit
 
 from .constants import GAUSS_K, TWO_PI
 from .kepler import _F_IDENTITY, solve_universal, stumpff
+from .nbody import to_inertial
 
 # Velocity weight in the tangent vector's length: the natural time unit, days.
 V_SCALE = 1.0 / GAUSS_K
@@ -205,21 +206,8 @@ def kick_tangent(xj, xi, dxj, dvj, gm, mu, mr, h, gr_coef, dxi, dacc):
     are scratch arrays (n, 3).
     """
     n = xj.shape[0]
-    # Inertial tangent positions: the same linear map as to_inertial.
-    c0 = dxj[0, 0]
-    c1 = dxj[0, 1]
-    c2 = dxj[0, 2]
-    for i in range(n - 1, 0, -1):
-        q = mr[i]
-        c0 = c0 - q * dxj[i, 0]
-        c1 = c1 - q * dxj[i, 1]
-        c2 = c2 - q * dxj[i, 2]
-        dxi[i, 0] = c0 + dxj[i, 0]
-        dxi[i, 1] = c1 + dxj[i, 1]
-        dxi[i, 2] = c2 + dxj[i, 2]
-    dxi[0, 0] = c0
-    dxi[0, 1] = c1
-    dxi[0, 2] = c2
+    # Inertial tangent positions: to_inertial is linear.
+    to_inertial(dxj, mr, dxi)
     for i in range(n):
         dacc[i, 0] = 0.0
         dacc[i, 1] = 0.0

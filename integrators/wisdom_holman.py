@@ -18,7 +18,7 @@ from . import correctors
 from .base import Integrator
 from .diagnostics import diagnose
 from .kepler import drift_row
-from .nbody import accelerations, gr_coefficient
+from .nbody import accelerations, gr_coefficient, to_inertial
 from .stops import NUMERICAL_FAILURE_CODE, check_stops, first_broken, is_broken
 from .system import jacobi_from_inertial, jacobi_mu
 from .particles import check_particles, drift_particles, hill_factors, kick_particles
@@ -35,30 +35,6 @@ def drift_all(xj, vj, mu, h):
     xj[0, 2] += vj[0, 2] * h
     for i in range(1, n):
         drift_row(xj, vj, i, mu[i], h)
-
-
-@njit(cache=True, error_model="numpy", inline="always")
-def to_inertial(xj, mr, xi):
-    """Inertial positions from Jacobi positions into xi (see system.inertial_from_jacobi).
-
-    mr[i] = gm[i] / eta[i], the mass ratios of the Jacobi chain, computed once
-    (the same quotient every call, so the same bits as dividing here).
-    """
-    n = xj.shape[0]
-    c0 = xj[0, 0]
-    c1 = xj[0, 1]
-    c2 = xj[0, 2]
-    for i in range(n - 1, 0, -1):
-        q = mr[i]
-        c0 = c0 - q * xj[i, 0]
-        c1 = c1 - q * xj[i, 1]
-        c2 = c2 - q * xj[i, 2]
-        xi[i, 0] = c0 + xj[i, 0]
-        xi[i, 1] = c1 + xj[i, 1]
-        xi[i, 2] = c2 + xj[i, 2]
-    xi[0, 0] = c0
-    xi[0, 1] = c1
-    xi[0, 2] = c2
 
 
 @njit(cache=True, error_model="numpy", inline="always")

@@ -29,6 +29,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from orbitledger.runner.inputs.ephemeris import invariable_rotation  # noqa: F401 - part of this API
+
 # Arcseconds per radian, and days per Julian year.
 ARCSEC = 180.0 * 3600.0 / math.pi
 YEAR_D = 365.25
@@ -147,19 +149,6 @@ def _vectors(inc, node, peri):
     p = np.stack([cO * cw - sO * sw * ci, sO * cw + cO * sw * ci, sw * si], axis=-1)
     nrm = np.stack([sO * si, -cO * si, ci], axis=-1)
     return p, nrm
-
-
-def invariable_rotation(angmom):
-    """The rotation matrix taking the total angular momentum `angmom` to +z (the x
-    axis along the ascending node of the new plane on the old one)."""
-    lz = np.asarray(angmom, dtype=float)
-    lz = lz / np.linalg.norm(lz)
-    node = np.cross([0.0, 0.0, 1.0], lz)
-    if np.linalg.norm(node) < 1e-15:
-        return np.eye(3) if lz[2] > 0 else np.diag([1.0, -1.0, -1.0])
-    ex = node / np.linalg.norm(node)
-    ey = np.cross(lz, ex)
-    return np.stack([ex, ey, lz])
 
 
 def signals(elements, rotation=None):
