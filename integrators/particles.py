@@ -17,6 +17,7 @@ moving and its event (step, kind code, body) is recorded; the run goes on.
 import numpy as np
 from numba import njit
 
+from .diagnostics import heliocentric_elements
 from .kepler import drift_state
 
 # Columns of the events array: step of removal (-1 while alive), kind code
@@ -93,7 +94,11 @@ def check_particles(px, alive, events, xi, cm, hill_f, params, step):
         r = np.sqrt(d0 * d0 + d1 * d1 + d2 * d2)
         code = 0
         body = -1
-        if r_star > 0.0 and r < r_star:
+        if not (r - r == 0.0):
+            # The particle's state stopped being finite numbers (e.g. it passed
+            # through a body): removed as a numerical failure; the run goes on.
+            code = 5
+        elif r_star > 0.0 and r < r_star:
             code = 3
             body = 0
         elif eject > 0.0 and r > eject:
@@ -118,6 +123,21 @@ def check_particles(px, alive, events, xi, cm, hill_f, params, step):
             events[k, EVENT_BODY] = body
             removed += 1
     return removed
+
+
+def particle_elements(x, v, gm0, out):
+    """Heliocentric elements (a, e, i, node, peri, M; au and degrees) of massless
+    particles about a star of gravitational parameter gm0 into out (k, 6); rows of
+    NaN states give NaN. x, v: heliocentric states (k, 3)."""
+    k = x.shape[0]
+    xs = np.zeros((k + 1, 3))
+    vs = np.zeros((k + 1, 3))
+    xs[1:] = x
+    vs[1:] = v
+    gm = np.zeros(k + 1)
+    gm[0] = gm0
+    heliocentric_elements(xs, vs, gm, out)
+    return out
 
 
 def hill_factors(gm, hill):

@@ -21,7 +21,8 @@ from .kepler import drift_row
 from .nbody import accelerations, gr_coefficient, to_inertial
 from .stops import NUMERICAL_FAILURE_CODE, check_stops, first_broken, is_broken
 from .system import jacobi_from_inertial, jacobi_mu
-from .particles import check_particles, drift_particles, hill_factors, kick_particles
+from .particles import (check_particles, drift_particles, hill_factors, kick_particles,
+                        particle_elements)
 from .variational import (N_SUMS, drift_all_tangent, initial_tangent, kick_tangent,
                           lyapunov_of, megno_of, megno_update)
 
@@ -201,8 +202,10 @@ def wh_steps_particles(xj, vj, gm, mu, mr, dt, n_steps, pending, gr_coef, pairs,
         kick_particles(px, pv, alive, xi, xj[0], gm, mu_all, dt)
         if is_broken(vj[vj.shape[0] - 1, 0]):
             return k + 1, pending, NUMERICAL_FAILURE_CODE, first_broken(xj, vj), -1, rows
+        # Always: a particle whose state is no longer finite is removed even
+        # with every stop condition off.
+        check_particles(px, alive, events, xi, xj[0], hill_f, params, step0 + k + 1)
         if check:
-            check_particles(px, alive, events, xi, xj[0], hill_f, params, step0 + k + 1)
             code, a, b = check_stops(xi, xj, vj, mu, pairs, params, rh)
             if code != 0:
                 return k + 1, pending, code, a, b, rows
@@ -440,10 +443,31 @@ class WisdomHolman(Integrator):
         v[alive == 0] = np.nan
         return x, v
 
+    @property
+    def particle_count(self):
+        """Number of test particles carried (removed ones included)."""
+        return 0 if self.particles is None else len(self.particles[2])
+
+    def particles_left(self):
+        """Number of test particles still integrated."""
+        return 0 if self.particles is None else int(self.particles[2].sum())
+
+    def particle_elements_into(self, out):
+        """Heliocentric elements (a, e, i, node, peri, M; au, degrees; about the star,
+        mu = G m0) of the particles at the synchronized time into out (k, 6); rows of
+        removed particles are NaN. Works on copies: the run is unchanged."""
+        x, v = self.particle_states()
+        return particle_elements(x, v, float(self.gm[0]), out)
+
     def particle_events(self):
-        """(step, kind code, body) per particle; step -1 while it is still integrated."""
-        return (np.empty((0, 3), dtype=np.int64) if self.particles is None
-                else self.particles[3].copy())
+        """(step, kind code, body) per particle: the step counter at its removal (its
+        time is t0 + step dt), -1 while it is still integrated."""
+        if self.particles is None:
+            return np.empty((0, 3), dtype=np.int64)
+        ev = self.particles[3].copy()
+        # The kernels count steps from the sample offset (see advance_sampled).
+        ev[ev[:, 0] >= 0, 0] -= self.sample_offset
+        return ev
 
     def _settle_pending(self, dt_forward):
         if self.pending and self.particles is not None:

@@ -39,5 +39,9 @@ EXIT_FAILED = 1
 MAX_SPEC_BYTES = 1_000_000
 # Most bodies in one system.
 MAX_BODIES = 1_000
+# Most test particles in one job.
+MAX_PARTICLES = 100_000
+# Bytes of one Zarr chunk of the particles' sampled elements (its rows follow).
+PARTICLE_CHUNK_BYTES = 4_000_000
 # `status` lists every job up to this many; above it, one row per ensemble.
 STATUS_LIST_MAX = 40

@@ -1,5 +1,5 @@
-"""Commands that read committed work: outcomes, map, frequencies, audit, report, plot,
-compare, export, backward, reversibility, verify, replay."""
+"""Commands that read committed work: outcomes, map, frequencies, particles, audit, report,
+plot, compare, export, backward, reversibility, verify, replay."""
 
 from pathlib import Path
 from typing import Annotated, Optional
@@ -200,6 +200,58 @@ def frequencies(job_id: JobArg, workspace: WorkspaceOpt = None, db: DbOpt = None
               "with a Hanning window (Laskar 1990, 1993). A drift of the leading frequency "
               "well above the analysis' own error between the halves marks chaotic diffusion.",
               markup=False)
+
+
+@app.command()
+@_guard
+def particles(job_id: JobArg, workspace: WorkspaceOpt = None, db: DbOpt = None,
+              bins: Annotated[int, typer.Option(help="Bins of initial semi-major axis.",
+                                                min=1, max=200)] = 10,
+              plot: Annotated[Optional[Path], typer.Option(
+                  help="Write the survival curve and the fraction by initial a here "
+                       "(.png or .svg).")] = None,
+              as_json: JsonOpt = False):
+    """A job's test particles: removals by kind, their survival curve, the fraction
+    surviving by initial semi-major axis."""
+    from rich.table import Table
+
+    from orbitledger.runner.analysis.particles import particle_summary
+    from orbitledger.runner.inputs.text import format_time
+    from orbitledger.runner.presentation import plots
+
+    if plot is not None and plot.suffix.lower() not in (".png", ".svg"):
+        fail(f"--plot must end in .png or .svg, got {plot.name!r}.")
+    with open_ledger(workspace, db) as ledger:
+        row = ledger.job(job_id)
+        s = particle_summary(ledger, job_id, bins=bins)
+    if as_json:
+        from orbitledger.runner.presentation.records import particles_record
+
+        print_json(particles_record(s))
+        return
+    t = Table(title=f"Job {job_id}: {row['name']}, {s.n} test particles at "
+                    f"{format_time(s.reached * 365.25)}", header_style="bold")
+    t.add_column("outcome")
+    t.add_column("particles")
+    t.add_row("still integrated", str(s.left))
+    for kind, c in sorted(s.counts.items()):
+        t.add_row(f"removed: {kind}", str(c))
+    out.print(t)
+    out.print(f"surviving {s.left}/{s.n}; median time to removal "
+              + ("not reached" if s.median is None else format_time(s.median * 365.25))
+              + " (Kaplan-Meier, particles left censored at the time reached)")
+    b = Table(title="Surviving fraction by initial a", header_style="bold")
+    for col in ("initial a (au)", "particles", "surviving", "fraction", "95% interval"):
+        b.add_column(col)
+    for k in range(len(s.bin_n)):
+        n = int(s.bin_n[k])
+        b.add_row(f"{s.edges[k]:.4g}-{s.edges[k + 1]:.4g}", str(n), str(int(s.bin_left[k])),
+                  f"{s.bin_left[k] / n:.3f}" if n else "-",
+                  f"{s.bin_lo[k]:.3f}-{s.bin_hi[k]:.3f}" if n else "-")
+    out.print(b)
+    if plot is not None:
+        plots.save(plots.particles_figure(s, f"job {job_id}: {row['name']}"), plot)
+        out.print(f"plot written to {plot}")
 
 
 @app.command()

@@ -185,7 +185,8 @@ class Worker:
         max_e, max_l = row["max_energy_error"], row["max_angmom_error"]
         last_beat = self.clock()
         buf = SampleBuffer(len(integ.gm), e0, l0, capacity=min(chunk // out + 1, 4096),
-                           indicator=integ.indicator is not None)
+                           indicator=integ.indicator is not None,
+                           particles=getattr(integ, "particle_count", 0))
         # With a wall-time slice, a short first call measures the cost of a step.
         steps_per_call = (self.max_steps_per_call if self.slice_seconds is None
                           else min(self.max_steps_per_call, 100))

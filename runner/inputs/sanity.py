@@ -26,10 +26,21 @@ def projected_samples(plan):
     return plan.total_steps // plan.output_steps + 2
 
 
+def _particle_count(plan):
+    return 0 if plan.particles is None else len(plan.particles.names)
+
+
+def bytes_per_sample(plan):
+    """Bytes one stored sample takes: the series, the bodies' elements and, with test
+    particles, their elements and the count still integrated."""
+    n_bodies = len(plan.system.gm) - 1
+    k = _particle_count(plan)
+    return _ROW_BYTES + n_bodies * 6 * 8 + (k * 6 * 8 + 8 if k else 0)
+
+
 def projected_store_bytes(plan):
     """Bytes the job's samples will take: bytes per sample x samples (elements included)."""
-    n_bodies = len(plan.system.gm) - 1
-    return (_ROW_BYTES + n_bodies * 6 * 8) * projected_samples(plan)
+    return bytes_per_sample(plan) * projected_samples(plan)
 
 
 def check(plan, spec):
@@ -63,6 +74,8 @@ def check(plan, spec):
                             f"orbit of {names[k]} (it reaches {dist:.6g} au from the star): it "
                             "would count as ejected at once; give a distance beyond every "
                             "starting orbit.")
+    if plan.particles is not None:
+        _check_particles(plan)
     _check_step(plan, spec)
     _check_chunk_memory(plan, spec)
     size = projected_store_bytes(plan)
@@ -79,8 +92,7 @@ def chunk_memory_bytes(plan):
     A row in memory: the stored series, the compiled loop's five diagnostics
     and the elements (8 bytes each).
     """
-    n_bodies = len(plan.system.gm) - 1
-    return (_chunk_rows(plan) + 1) * (_ROW_BYTES + 8 + 5 * 8 + n_bodies * 6 * 8)
+    return (_chunk_rows(plan) + 1) * (bytes_per_sample(plan) + 8 + 5 * 8)
 
 
 def _chunk_rows(plan):
@@ -104,6 +116,32 @@ def _check_chunk_memory(plan, spec):
             f"the {limit / 1e6:.0f} MB a chunk may hold; make `span.chunk` at most "
             f"{format_time(most * abs(plan.dt))} ({most} steps) or sample less often "
             "(`span.output`).")
+
+
+def _check_particles(plan):
+    """Test particles that would be removed at their first step: inside the star, or on
+    an orbit that already reaches the escape distance."""
+    from orbitledger.integrators.particles import particle_elements
+
+    ps = plan.particles
+    st = plan.stops
+    r = np.linalg.norm(ps.x, axis=1)
+    if st.star_radius > 0 and (r <= st.star_radius).any():
+        k = int(np.argmax(r <= st.star_radius))
+        raise SpecError(f"test particle {ps.names[k]} starts {r[k]:.6g} au from the star, inside "
+                        f"its radius (`stops.star_contact_distance` = {st.star_radius:.6g} au); "
+                        "move it out or give a smaller radius.")
+    if st.eject_distance > 0:
+        el = particle_elements(ps.x, ps.v, float(plan.system.gm[0]), np.empty((len(r), 6)))
+        a, ecc = el[:, 0], el[:, 1]
+        bound = (a > 0) & np.isfinite(a) & (ecc < 1)
+        far = np.where(bound, a * (1 + ecc), r)
+        if (far >= st.eject_distance).any():
+            k = int(np.argmax(far >= st.eject_distance))
+            raise SpecError(f"`stops.escape_distance` = {st.eject_distance:.6g} au is inside the "
+                            f"orbit of test particle {ps.names[k]} (it reaches {far[k]:.6g} au "
+                            "from the star): it would count as ejected at once; give a distance "
+                            "beyond every starting orbit.")
 
 
 def _farthest(plan):

@@ -196,6 +196,59 @@ class EnsembleSpec(_Strict):
         return self
 
 
+class ParticleSpec(_Strict):
+    """One listed test particle: heliocentric elements about the star, or a state."""
+
+    name: str | None = None
+    a: str | None = None
+    e: float | None = None
+    i: str = "0 deg"
+    node: str = "0 deg"
+    peri: str = "0 deg"
+    mean_anomaly: str = "0 deg"
+    position: list[str] | None = None
+    velocity: list[str] | None = None
+
+
+class DrawnParticlesSpec(_Strict):
+    """Test particles drawn by rule: a, e and i uniform in their ranges, the node,
+    argument of pericentre and mean anomaly uniform in 0-360 deg, from PCG64(seed)."""
+
+    count: int
+    seed: int = 0
+    a: list[str]
+    e: list[float] = [0.0, 0.0]
+    i: list[str] = ["0 deg", "0 deg"]
+
+    @field_validator("count")
+    @classmethod
+    def _count(cls, v):
+        if not 1 <= v <= defaults.MAX_PARTICLES:
+            raise ValueError(f"must be between 1 and {defaults.MAX_PARTICLES}")
+        return v
+
+    @field_validator("a", "e", "i")
+    @classmethod
+    def _range(cls, v):
+        if len(v) != 2:
+            raise ValueError("must be a range of two values, [lowest, highest]")
+        return v
+
+
+class ParticlesSpec(_Strict):
+    """Massless bodies that feel the star and the bodies and nothing else."""
+
+    listed: list[ParticleSpec] | None = None
+    drawn: DrawnParticlesSpec | None = None
+
+    @model_validator(mode="after")
+    def _some(self):
+        if not self.listed and self.drawn is None:
+            raise ValueError("lists no particles; add [[particles.listed]] tables or a "
+                             "[particles.drawn] rule")
+        return self
+
+
 class JobSpec(_Strict):
     """A validated job spec (structure and types; see :func:`resolve` for meaning)."""
 
@@ -208,6 +261,7 @@ class JobSpec(_Strict):
     stops: StopSpec = StopSpec()
     ensemble: EnsembleSpec | None = None
     member: int | None = None
+    particles: ParticlesSpec | None = None
 
     @field_validator("name")
     @classmethod
@@ -358,7 +412,12 @@ def load(path, notes=None):
 
 def canonical_json(spec):
     """Canonical JSON of a validated spec: defaults filled, keys sorted, no spaces."""
-    return json.dumps(spec.model_dump(mode="json"), sort_keys=True, separators=(",", ":"),
+    data = spec.model_dump(mode="json")
+    if data.get("particles") is None:
+        # Only when given, so specs without particles keep the text (and hash)
+        # they had before particles existed.
+        data.pop("particles", None)
+    return json.dumps(data, sort_keys=True, separators=(",", ":"),
                       ensure_ascii=False, allow_nan=False)
 
 
@@ -373,6 +432,15 @@ def from_json(text):
 
 
 # -- resolution to internal units ----------------------------------------------
+
+@dataclass(frozen=True)
+class Particles:
+    """A job's test particles: names and heliocentric states (k, 3) in au and au/d."""
+
+    names: tuple
+    x: object
+    v: object
+
 
 @dataclass(frozen=True)
 class Plan:
@@ -391,6 +459,7 @@ class Plan:
     angmom_budget: float | None
     on_exceed: str
     indicator: str = "none"
+    particles: "Particles | None" = None
 
     def make_integrator(self, system=None):
         """A fresh integrator at the start of the run (or from another system)."""
@@ -399,7 +468,9 @@ class Plan:
             return METHODS[self.method](sysm, self.dt, corrector=self.corrector,
                                         gr=self.relativity, stops=self.stops,
                                         indicator=None if self.indicator == "none"
-                                        else self.indicator)
+                                        else self.indicator,
+                                        particles=None if self.particles is None
+                                        else (self.particles.x, self.particles.v))
         return METHODS[self.method](sysm, self.dt, stops=self.stops)
 
 
@@ -561,6 +632,75 @@ def _perturbed_elements(key, body, rule, offset):
     return body.model_copy(update={rule.quantity: f"{ang + offset!r} deg"})
 
 
+def _range(key, values, kind, low, high, fix):
+    """Two values of a drawn range, in internal units, checked against [low, high)."""
+    vals = []
+    for k, q in enumerate(values):
+        if kind is None:
+            if isinstance(q, str):
+                raise SpecError(f"`{key}[{k}]` is a plain number, got {q!r}; write e.g. 0.1.")
+            vals.append(float(q))
+        else:
+            vals.append(parse_quantity(f"{key}[{k}]", q, kind))
+    lo, hi = vals
+    if not (low <= lo <= hi) or not (hi < high or (high == 180.0 and hi == high)):
+        raise SpecError(f"`{key}` must be a range [lowest, highest] {fix}, got {values!r}; "
+                        "correct it.")
+    return lo, hi
+
+
+def build_particles(spec, system):
+    """A spec's test particles (heliocentric states about the star, mu = G m0), or None.
+
+    Drawn particles take a, e and i uniform in their ranges and the node, the
+    argument of pericentre and the mean anomaly uniform in [0, 360) deg, in
+    that order per particle, from numpy's PCG64(seed): the same spec always
+    gives the same particles, bit for bit.
+    """
+    ps = spec.particles
+    if ps is None:
+        return None
+    import numpy as np
+
+    from orbitledger.integrators import elements as el
+
+    mu = float(system.gm[0])
+    names, xs, vs = [], [], []
+    for k, p in enumerate(ps.listed or []):
+        x, v = _body_state(f"particles.listed[{k}]", p, mu)
+        names.append(p.name if p.name is not None else f"p{k:05d}")
+        xs.append(list(x))
+        vs.append(list(v))
+    if ps.drawn is not None:
+        d = ps.drawn
+        a = _range("particles.drawn.a", d.a, "length", 1e-300, math.inf,
+                   "of positive lengths, lowest first")
+        e = _range("particles.drawn.e", d.e, None, 0.0, 1.0, "with 0 <= e < 1, lowest first")
+        inc = _range("particles.drawn.i", d.i, "angle", 0.0, 180.0,
+                     "within 0-180 deg, lowest first")
+        u = np.random.Generator(np.random.PCG64(d.seed)).random((d.count, 6))
+        rad = math.pi / 180.0
+        for k in range(d.count):
+            row = u[k]
+            x, v = el.to_state(mu, a[0] + (a[1] - a[0]) * row[0], e[0] + (e[1] - e[0]) * row[1],
+                               (inc[0] + (inc[1] - inc[0]) * row[2]) * rad,
+                               360.0 * row[3] * rad, 360.0 * row[4] * rad, 360.0 * row[5] * rad)
+            names.append(f"d{k:05d}")
+            xs.append(list(x))
+            vs.append(list(v))
+    if len(names) > defaults.MAX_PARTICLES:
+        raise SpecError(f"`particles` gives {len(names)} particles; at most "
+                        f"{defaults.MAX_PARTICLES} are allowed in one job.")
+    seen = set()
+    for k, nm in enumerate(names):
+        if nm in seen:
+            raise SpecError(f"`particles.listed[{k}].name` repeats the name {nm!r}; particle "
+                            "names must be unique.")
+        seen.add(nm)
+    return Particles(tuple(names), np.array(xs, dtype=float).reshape(-1, 3),
+                     np.array(vs, dtype=float).reshape(-1, 3))
+
+
 def resolve(spec):
     """Resolve a validated spec to a :class:`Plan` (raises SpecError)."""
     if spec.member is not None and spec.ensemble is None:
@@ -609,9 +749,16 @@ def resolve(spec):
     )
     if stops.eject_distance < 0 or stops.star_radius < 0 or stops.unbound_distance < 0:
         raise SpecError("`stops` distances must be >= 0; give 0 to turn a condition off.")
+    particles = build_particles(spec, system)
+    if particles is not None and (spec.method.name != "wisdom_holman"
+                                  or spec.method.indicator != "none"):
+        raise SpecError("`particles` need method 'wisdom_holman' without a chaos indicator, got "
+                        f"method {spec.method.name!r} with indicator "
+                        f"{spec.method.indicator!r}; remove the particles or the indicator.")
     plan = Plan(system, spec.method.name, dt, spec.method.corrector, spec.method.relativity,
                 int(total), int(chunk), int(output), stops, spec.budget.energy,
-                spec.budget.angular_momentum, spec.budget.on_exceed, spec.method.indicator)
+                spec.budget.angular_momentum, spec.budget.on_exceed, spec.method.indicator,
+                particles)
     from orbitledger.runner.inputs.sanity import check
 
     check(plan, spec)

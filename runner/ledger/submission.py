@@ -85,12 +85,17 @@ class Submitting:
         off_grid = integ.sample_offset % plan.output_steps != 0
         capacity = (total - integ.step) // plan.output_steps + 1 + off_grid
         carried = integ.indicator is not None
+        parts = () if plan.particles is None else plan.particles.names
+        if len(parts) != getattr(integ, "particle_count", 0):
+            raise LedgerError(f"the starting state carries {integ.particle_count} test "
+                              f"particles but the spec lists {len(parts)}.")
         if batch is None:
-            self.store.create_job(job_id, sysm.names, capacity=capacity, indicator=carried)
+            self.store.create_job(job_id, sysm.names, capacity=capacity, indicator=carried,
+                                  particles=parts)
             s_hash, digest = self.store.write_first(job_id, first, integ.state_arrays())
         else:
             s_hash, digest = batch.add(job_id, sysm.names, capacity, first, integ.state_arrays(),
-                                       indicator=carried)
+                                       indicator=carried, particles=parts)
         conn.execute(insert(checkpoints).values(
             job_id=job_id, idx=0, step=integ.step, time=integ.time, fence=0,
             state_sha256=digest, chain_sha256=chain_sha256(GENESIS, digest, s_hash),

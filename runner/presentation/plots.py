@@ -16,10 +16,14 @@ def _figure():
     return plt
 
 
-def survival_figure(summary, title):
-    """The Kaplan-Meier survival curve with its confidence band and censored members."""
+def survival_figure(summary, title, ax=None, what="members"):
+    """The Kaplan-Meier survival curve with its confidence band and censored members
+    (or test particles: ``what="particles"``)."""
     plt = _figure()
-    fig, ax = plt.subplots(figsize=(7, 4.2), dpi=110)
+    if ax is None:
+        fig, ax = plt.subplots(figsize=(7, 4.2), dpi=110)
+    else:
+        fig = ax.figure
     t_end = float(summary.times.max()) if summary.n else 1.0
     if len(summary.km_t):
         t = np.concatenate([[0.0], summary.km_t, [t_end]])
@@ -29,7 +33,8 @@ def survival_figure(summary, title):
         ax.fill_between(t, lo, hi, step="post", alpha=0.25, label="95% confidence band")
         ax.step(t, s, where="post", lw=2, label="Kaplan-Meier survival")
     else:
-        ax.step([0.0, t_end], [1.0, 1.0], where="post", lw=2, label="no instability so far")
+        ax.step([0.0, t_end], [1.0, 1.0], where="post", lw=2,
+                label="no instability so far" if what == "members" else "none removed so far")
     cens = summary.times[~summary.events]
     if len(cens):
         # Survival just after each censoring time: the last step at or before it.
@@ -38,10 +43,37 @@ def survival_figure(summary, title):
                       else 1.0, 1.0)
         ax.plot(cens, at, "|", ms=12, color="k", label="censored (survived so far)")
     _years_axis(ax, t_end)
-    ax.set_ylabel("fraction still stable")
+    ax.set_ylabel("fraction still stable" if what == "members" else "fraction of particles left")
     ax.set_ylim(-0.02, 1.05)
     ax.set_title(title)
     ax.legend(loc="lower left", fontsize=8)
+    fig.tight_layout()
+    return fig
+
+
+def particles_figure(summary, title):
+    """Test particles: their Kaplan-Meier survival curve, and the fraction surviving by
+    initial semi-major axis (bars, with Wilson intervals)."""
+    plt = _figure()
+    fig, (a1, a2) = plt.subplots(1, 2, figsize=(11, 4.2), dpi=110)
+    survival_figure(summary, "survival of the particles", ax=a1, what="particles")
+    e = summary.edges
+    frac = np.where(summary.bin_n > 0, summary.bin_left / np.maximum(summary.bin_n, 1), np.nan)
+    mid = 0.5 * (e[1:] + e[:-1])
+    a2.bar(mid, np.nan_to_num(frac), width=np.diff(e), align="center", alpha=0.6,
+           edgecolor="k", label="surviving fraction")
+    ok = summary.bin_n > 0
+    a2.errorbar(mid[ok], frac[ok], yerr=[frac[ok] - summary.bin_lo[ok],
+                                         summary.bin_hi[ok] - frac[ok]],
+                fmt="none", ecolor="k", capsize=3, label="95% Wilson interval")
+    for x, n in zip(mid, summary.bin_n):
+        a2.annotate(str(int(n)), (x, 1.02), ha="center", fontsize=7)
+    a2.set_xlabel("initial semi-major axis (au)")
+    a2.set_ylabel("fraction surviving")
+    a2.set_ylim(0, 1.1)
+    a2.set_title("by initial a (particles per bin above)")
+    a2.legend(loc="lower right", fontsize=8)
+    fig.suptitle(title)
     fig.tight_layout()
     return fig
 

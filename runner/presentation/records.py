@@ -138,6 +138,21 @@ def outcomes_record(ensemble_id, name, s):
     })
 
 
+def particles_record(s):
+    """A job's test-particle outcomes (see analysis.particles.ParticleSummary)."""
+    return plain({
+        "job": s.job_id, "particles": s.n, "left": s.left, "time_reached_yr": s.reached,
+        "counts": s.counts, "median_time_to_removal_yr": s.median,
+        "kaplan_meier": {"time_yr": s.km_t, "survival": s.km_s, "band_95_low": s.km_lo,
+                         "band_95_high": s.km_hi},
+        "by_initial_a": {"edges_au": s.edges, "particles": s.bin_n, "surviving": s.bin_left,
+                         "wilson_95_low": s.bin_lo, "wilson_95_high": s.bin_hi},
+        "each": [{"name": nm, "initial_a_au": a, "removed": bool(ev), "kind": kind or None,
+                  "time_yr": t if ev else None}
+                 for nm, a, ev, kind, t in zip(s.names, s.a0, s.events, s.kinds, s.times)],
+    })
+
+
 def compare_record(job_a, job_b, t, d, fit, names, ranges_a, ranges_b):
     keys = {0: "a_au", 1: "e", 2: "i_deg"}
     return plain({

@@ -2,6 +2,7 @@
 
 import numpy as np
 
+from orbitledger.integrators.base import AdvanceResult
 from orbitledger.integrators.constants import G, YEAR_D
 
 
@@ -19,11 +20,18 @@ class SampleBuffer:
     indicator : bool
         The integrator carries a chaos indicator: rows also get MEGNO <Y>
         ("megno") and the finite-time Lyapunov exponent ("lyapunov", 1/d).
+    particles : int
+        Test particles carried: rows also get their heliocentric elements
+        ("particle_elements", NaN once removed) and how many are still
+        integrated ("particles_left"). They are computed between kernel
+        calls that end on the sample steps (how a run is split never
+        changes it).
     """
 
-    def __init__(self, n_bodies, energy0, angmom0, capacity=16, indicator=False):
+    def __init__(self, n_bodies, energy0, angmom0, capacity=16, indicator=False, particles=0):
         self.nb = n_bodies - 1
         self.indicator = bool(indicator)
+        self.np = int(particles)
         self.e0g = energy0 * G
         self.l0g = np.asarray(angmom0, dtype=np.float64) * G
         self.l0n = float(np.linalg.norm(self.l0g))
@@ -38,6 +46,9 @@ class SampleBuffer:
         if self.indicator:
             self.arrays["megno"] = np.empty(cap)
             self.arrays["lyapunov"] = np.empty(cap)
+        if self.np:
+            self.arrays["particle_elements"] = np.empty((cap, self.np, 6))
+            self.arrays["particles_left"] = np.empty(cap, dtype=np.int64)
         if old is not None:
             for k in old:
                 self.arrays[k][: self.n] = old[k][: self.n]
@@ -65,7 +76,13 @@ class SampleBuffer:
         if self.indicator:
             a["megno"][k] = integ.megno()
             a["lyapunov"][k] = integ.lyapunov()
+        if self.np:
+            self._add_particles(integ, k)
         self.n = k + 1
+
+    def _add_particles(self, integ, k):
+        integ.particle_elements_into(self.arrays["particle_elements"][k])
+        self.arrays["particles_left"][k] = integ.particles_left()
 
     def advance(self, integ, n_steps, every):
         """Advance integ by up to n_steps, sampling at multiples of every inside the kernel."""
@@ -76,8 +93,11 @@ class SampleBuffer:
             self._g = np.empty((len(self.arrays["time"]), 5))
             self._ind = np.empty((len(self.arrays["time"]), 2)) if self.indicator else None
         start = self.n
-        res, rows = integ.advance_sampled(n_steps, every, self._g, self.arrays["elements"], start,
-                                          self._ind)
+        if self.np:
+            res, rows = self._advance_particles(integ, n_steps, every)
+        else:
+            res, rows = integ.advance_sampled(n_steps, every, self._g, self.arrays["elements"],
+                                              start, self._ind)
         if rows > start:
             g = self._g[start:rows]
             a = self.arrays
@@ -92,6 +112,27 @@ class SampleBuffer:
             self.n = rows
         return res
 
+    def _advance_particles(self, integ, n_steps, every):
+        """advance_sampled in calls that end on sample steps, the particles' elements
+        taken after each (one row at most per call)."""
+        rows = self.n
+        left = n_steps
+        done = 0
+        while True:
+            until = every - (integ.step + integ.sample_offset) % every
+            res, new = integ.advance_sampled(min(left, until), every, self._g,
+                                             self.arrays["elements"], rows, self._ind)
+            if new > rows:
+                self._add_particles(integ, rows)
+                rows = new
+            done += res.steps
+            left -= res.steps
+            if res.stopped or left <= 0:
+                break
+        if done != res.steps:
+            res = AdvanceResult(done, res.kind, res.bodies, integ.step)
+        return res, rows
+
     def block(self):
         """The rows so far as a dict of arrays (views; time in years computed here)."""
         out = {k: v[: self.n] for k, v in self.arrays.items()}
@@ -102,6 +143,7 @@ class SampleBuffer:
 def sample_now(integ, energy0, angmom0):
     """One sample of the integrator's synchronized state, as a block of one row."""
     buf = SampleBuffer(len(integ.gm), energy0, angmom0, capacity=1,
-                       indicator=integ.indicator is not None)
+                       indicator=integ.indicator is not None,
+                       particles=getattr(integ, "particle_count", 0))
     buf.add(integ)
     return {k: v.copy() for k, v in buf.block().items()}

@@ -61,6 +61,17 @@ _INDICATOR_ATTRS = {
     "lyapunov": {"units": "1/day", "long_name": "finite-time largest Lyapunov exponent",
                  "coordinates": "time time_yr step"},
 }
+# Series of jobs with test particles (`[particles]`), only in their stores.
+_PARTICLE_ATTRS = {
+    "particle_elements": {"long_name": "heliocentric osculating elements of the test particles "
+                                       "about the star (NaN once removed; units by element: "
+                                       "element_units)", "element_units": ELEMENT_UNITS,
+                          "coordinates": "time time_yr step"},
+    "particles_left": {"units": "1", "long_name": "test particles still integrated",
+                       "coordinates": "time time_yr step"},
+}
+# Sample arrays only some jobs have.
+_OPTIONAL = tuple(_INDICATOR_ATTRS) + tuple(_PARTICLE_ATTRS)
 _SERIES = {
     "time": ("f8", ["sample"]),
     "time_yr": ("f8", ["sample"]),
@@ -340,6 +351,11 @@ def _plan(h, base, samples, ck):
     return puts, grow, coros, files, dirs
 
 
+def _template_key(body_names, capacity, indicator, particles):
+    """What makes two new jobs' groups the same bytes: bodies, first size, optional arrays."""
+    return (tuple(body_names), int(capacity), bool(indicator), tuple(particles))
+
+
 def _new_folders(rels, existing):
     """Folders of the relative file paths `rels` not already made for the paths
     `existing`, parents first."""
@@ -397,7 +413,12 @@ def _store_error(job_id, path, what, err):
     return StoreError(f"job {job_id}: {what} could not be read ({type(err).__name__}: {err}).")
 
 
-async def _create_async(path, body_names, capacity, indicator=False):
+def _particle_rows(k):
+    """Rows of one Zarr chunk of k particles' elements (about PARTICLE_CHUNK_BYTES)."""
+    return max(1, min(defaults.SAMPLE_CHUNK, defaults.PARTICLE_CHUNK_BYTES // (48 * max(k, 1))))
+
+
+async def _create_async(path, body_names, capacity, indicator=False, particles=()):
     """A job's groups, sample arrays and label arrays, created concurrently."""
     from zarr.api import asynchronous as za
     from zarr.storage import LocalStore
@@ -426,11 +447,23 @@ async def _create_async(path, body_names, capacity, indicator=False):
                                 compressors=None, attributes=_ATTRS["elements"]))
     # Labels of the body and element dimensions (written once, never resized).
     labels = {"body": body_names[1:], "element": ELEMENT_NAMES}
+    if particles:
+        k = len(particles)
+        coros += [s.create_array("particle_elements", shape=(capacity, k, 6), dtype="f8",
+                                 fill_value=np.nan, chunks=(_particle_rows(k), k, 6),
+                                 dimension_names=["sample", "particle", "element"],
+                                 compressors=None,
+                                 attributes=_PARTICLE_ATTRS["particle_elements"]),
+                  s.create_array("particles_left", shape=(capacity,), dtype="i8",
+                                 fill_value=-1, chunks=(defaults.SAMPLE_CHUNK,),
+                                 dimension_names=["sample"], compressors=None,
+                                 attributes=_PARTICLE_ATTRS["particles_left"])]
+        labels["particle"] = list(particles)
     coros += [s.create_array(key, shape=(len(v),), dtype=str, dimension_names=[key],
                              compressors=None) for key, v in labels.items()]
     arrays = await asyncio.gather(*coros)
     await asyncio.gather(*[a.setitem(slice(None), np.array(labels[k]))
-                           for a, k in zip(arrays[-2:], labels)])
+                           for a, k in zip(arrays[-len(labels):], labels)])
 
 
 class Store:
@@ -473,7 +506,8 @@ class Store:
         return self._open[key]
 
     # -- creation -------------------------------------------------------------
-    def create_job(self, job_id, body_names, capacity=0, durable=True, indicator=False):
+    def create_job(self, job_id, body_names, capacity=0, durable=True, indicator=False,
+                   particles=()):
         """Create (or reset) a job's group with sample arrays of up to one chunk of rows.
 
         ``capacity`` (the rows the whole run needs) only caps the first size:
@@ -482,13 +516,14 @@ class Store:
         for the whole run up front would make trimming a cancelled job walk
         every chunk key of the plan (a 1 Gyr job sampled every step: 10^6 keys
         per array, gigabytes of memory). Unwritten rows read as NaN (step -1).
-        With ``indicator`` the group also has the chaos indicator's series.
+        With ``indicator`` the group also has the chaos indicator's series;
+        with ``particles`` (their names) the test particles' arrays.
         """
         capacity = min(int(capacity), defaults.SAMPLE_CHUNK)
         try:
             path = self.job_path(job_id)
             self._forget(job_id)
-            key = (tuple(body_names), capacity, bool(indicator))
+            key = _template_key(body_names, capacity, indicator, particles)
             self._made = {int(job_id): key}
             tpl = self._templates.get(key)
             if tpl is None:
@@ -496,7 +531,8 @@ class Store:
                 # bytes it wrote are kept as the template of every later job
                 # with the same bodies and first size (the members of an
                 # ensemble), which is then written as plain files.
-                _run(_create_async(path, list(body_names), capacity, bool(indicator)))
+                _run(_create_async(path, list(body_names), capacity, bool(indicator),
+                                   tuple(particles)))
                 files = {}
                 for root, _, names in os.walk(path):
                     for n in names:
@@ -576,9 +612,8 @@ class Store:
     def _sample_keys(self, job_id):
         """The sample arrays a job's store has (stores made before ``time_yr`` lack it)."""
         base = self.job_path(job_id) / "samples"
-        return [k for k in list(_SERIES) + ["elements"] + list(_INDICATOR_ATTRS)
-                if k not in ("time_yr",) + tuple(_INDICATOR_ATTRS)
-                or (base / k / "zarr.json").exists()]
+        return [k for k in list(_SERIES) + ["elements"] + list(_OPTIONAL)
+                if k not in ("time_yr",) + _OPTIONAL or (base / k / "zarr.json").exists()]
 
     async def _open_async(self, job_id):
         from zarr.api import asynchronous as za
@@ -820,6 +855,18 @@ class Store:
             raise StoreError(f"samples of job {job_id} (rows {start}..{stop - 1}) are damaged "
                              f"and could not be read ({type(err).__name__}: {err}).") from None
 
+    def particle_names(self, job_id):
+        """Names of the job's test particles (the store's particle labels); [] without."""
+        g = self._group(job_id, "r")
+        try:
+            s = g["samples"]
+            if "particle" not in s:
+                return []
+            return [str(x) for x in np.asarray(s["particle"][:])]
+        except Exception as err:  # noqa: BLE001 - zarr raises many types on bad metadata
+            raise _store_error(job_id, self.job_path(job_id), "the particle labels", err) \
+                from None
+
     def body_names(self, job_id):
         """Body names (star first) recorded when the job's group was created."""
         try:
@@ -853,16 +900,18 @@ class _NewJobs:
     def __enter__(self):
         return self
 
-    def add(self, job_id, body_names, capacity, block, arrays, indicator=False):
+    def add(self, job_id, body_names, capacity, block, arrays, indicator=False, particles=()):
         st = self.store
         if "time_yr" not in block:
             block = dict(block, time_yr=block["time"] / YEAR_D)
-        template = (tuple(body_names), min(int(capacity), defaults.SAMPLE_CHUNK), bool(indicator))
+        template = _template_key(body_names, min(int(capacity), defaults.SAMPLE_CHUNK),
+                                 indicator, particles)
         ck = (st._ck_name(0, 0),) + _packed(arrays)
         first = st._firsts.get((template, json.dumps(ck[2])))
         if first is None or template not in st._templates or not _fits(first, block):
             self.wait()  # the templates change only with nothing in flight
-            st.create_job(job_id, body_names, capacity, durable=self.durable, indicator=indicator)
+            st.create_job(job_id, body_names, capacity, durable=self.durable, indicator=indicator,
+                          particles=particles)
             return st.write_first(job_id, block, arrays, durable=self.durable)
         if self.pool is None:
             from concurrent.futures import ThreadPoolExecutor
