@@ -137,6 +137,7 @@ def particle_elements(x, v, gm0, out):
     gm = np.zeros(k + 1)
     gm[0] = gm0
     heliocentric_elements(xs, vs, gm, out)
+    out[~(np.isfinite(x).all(axis=1) & np.isfinite(v).all(axis=1))] = np.nan
     return out
 
 

@@ -56,6 +56,10 @@ def check(plan, spec):
         i, j = sorted((int(order[np.argmax(same)]), int(order[np.argmax(same) + 1])))
         raise SpecError(f"`{key(j)}` ({names[j]}) starts at the same place as `{key(i)}` "
                         f"({names[i]}); the force between them is infinite; move one of them.")
+    if not (np.asarray(sysm.gm[1:]) > 0).any():
+        raise SpecError("`system.bodies` are all massless, so the system's energy and angular "
+                        "momentum about the star are zero and their errors mean nothing; give "
+                        "a body a mass, or list massless bodies under [particles].")
     xh = x[1:] - x[0]
     r = np.linalg.norm(xh, axis=1)
     st = plan.stops
