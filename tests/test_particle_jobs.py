@@ -321,6 +321,10 @@ def test_particles_command_counts_survival_and_fraction_by_initial_a(tmp_path):
     kinds = {p["kind"] for p in each if p["removed"]}
     assert kinds <= {"close_encounter (Orrin b)", "close_encounter (Orrin c)", "ejection",
                      "numerical_failure"}, kinds
+    # The job's report has a section on them.
+    assert cli("report", "1", "--workspace", ws, "--to", tmp_path / "r.html").returncode == 0
+    page = (tmp_path / "r.html").read_text()
+    assert "Test particles" in page and "alt='test particles'" in page
     # A job without particles: one clear line.
     plain = tmp_path / "q.toml"
     plain.write_text(small_spec_text(name="plain", length="100 yr"))

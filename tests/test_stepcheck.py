@@ -78,7 +78,7 @@ def test_submit_warns_on_stderr_and_show_reports_the_resolution(tmp_path):
 
 
 def test_the_example_jobs_resolve_their_orbits():
-    for name in ("veyra-giants", "veyra-full", "ilvar-ensemble"):
+    for name in ("veyra-giants", "veyra-full", "ilvar-ensemble", "cadmus-map", "tessaly-belt"):
         import os
 
         from helpers import ROOT

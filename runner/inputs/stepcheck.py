@@ -49,7 +49,33 @@ def resolution(plan):
         q = a * (1.0 - ecc)
         passage = 2.0 * math.pi * math.sqrt(q ** 3 / (mu[i] * (1.0 + ecc)))
         out.append(Resolution(sysm.names[i], period, passage, period / dt, passage / dt))
+    if getattr(plan, "particles", None) is not None:
+        out += _particles(plan, dt)
     return out
+
+
+def _particles(plan, dt):
+    """The test particles' least resolved bound orbits (heliocentric, about the star):
+    the one with the shortest pericentre passage and the one with the shortest period."""
+    import numpy as np
+
+    from orbitledger.integrators.particles import particle_elements
+
+    ps = plan.particles
+    mu = float(plan.system.gm[0])
+    el = particle_elements(ps.x, ps.v, mu, np.empty((len(ps.names), 6)))
+    a, ecc = el[:, 0], el[:, 1]
+    bound = np.nonzero((a > 0) & np.isfinite(a) & (ecc < 1))[0]
+    if not len(bound):
+        return []
+    a, ecc = a[bound], ecc[bound]
+    period = 2.0 * np.pi * np.sqrt(a ** 3 / mu)
+    q = a * (1.0 - ecc)
+    passage = 2.0 * np.pi * np.sqrt(q ** 3 / (mu * (1.0 + ecc)))
+    picks = sorted({int(np.argmin(passage)), int(np.argmin(period))})
+    return [Resolution(f"test particle {ps.names[bound[k]]}", float(period[k]),
+                       float(passage[k]), float(period[k]) / dt, float(passage[k]) / dt)
+            for k in picks]
 
 
 def advice(plan):

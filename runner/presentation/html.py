@@ -164,6 +164,20 @@ def _frequency_section(ledger, job_id):
                                 "amplitude", "drift between halves"], rows))
 
 
+def _particles_section(ledger, job_id, title):
+    """Removals by kind and the figure of `orbitledger particles`."""
+    from orbitledger.runner.analysis.particles import particle_summary
+
+    s = particle_summary(ledger, job_id)
+    rows = [("still integrated", s.left)] + sorted(s.counts.items())
+    fig = plots.particles_figure(s, title)
+    return (f"<p>{s.n} test particles; {s.left} still integrated. Removed particles met a "
+            "stop condition (or stopped being finite numbers); the survival curve censors "
+            "the others at the time reached.</p>"
+            + plots.table_html(["outcome", "particles"], rows)
+            + f"<img alt='test particles' src='{plots.png_data_uri(fig)}'>")
+
+
 def job_report(ledger, job_id, compare_with=None):
     """The report page (str) of a job, optionally with its divergence from another job."""
     from orbitledger.runner.analysis.integrity import verify
@@ -216,6 +230,8 @@ def job_report(ledger, job_id, compare_with=None):
         sections.append(("Chaos indicator", f"<p>{html.escape(chaos)}</p><img alt='megno' src='"
                          f"{plots.png_data_uri(plots.megno_figure(samples, title))}'>"))
     sections.append(("Frequencies", _frequency_section(ledger, job_id)))
+    if "particles_left" in samples:
+        sections.append(("Test particles", _particles_section(ledger, job_id, title)))
     if compare_with is not None:
         from orbitledger.runner.analysis.divergence import compare_jobs, describe_divergence
 

@@ -148,6 +148,9 @@ def show_tables(ledger, job_id):
     ]
     fields.insert(1 + [k for k, _ in fields].index("method"),
                   ("step resolution", _step_resolution(row)))
+    if spec.get("particles"):
+        fields.insert(1 + [k for k, _ in fields].index("bodies"),
+                      ("test particles", particles_text(spec["particles"])))
     if row["parent_job_id"]:
         fields.append(("started from", f"job {row['parent_job_id']} checkpoint "
                                        f"{row['parent_checkpoint']}"))
@@ -168,6 +171,17 @@ def show_tables(ledger, job_id):
                   f"({(ver.get('source_commit') or 'no commit')[:12]}), numba {ver.get('numba')}, "
                   f"numpy {ver.get('numpy')}")
     return t, p, segs
+
+
+def particles_text(ps):
+    """How a spec's test particles are given: "41 (1 listed; 40 drawn, seed 11, a 3.3 au-5.8 au)"."""
+    listed = len(ps.get("listed") or [])
+    d = ps.get("drawn")
+    parts = [f"{listed} listed"] if listed else []
+    if d:
+        parts.append(f"{d['count']} drawn, seed {d['seed']}, a {d['a'][0]}-{d['a'][1]}, "
+                     f"e {d['e'][0]}-{d['e'][1]}, i {d['i'][0]}-{d['i'][1]}")
+    return f"{listed + (d['count'] if d else 0)} ({'; '.join(parts)})"
 
 
 def _step_resolution(row):
