@@ -129,3 +129,75 @@ def test_show_and_report_say_where_the_numbers_came_from(tmp_path):
     assert cli("work", "--workspace", ws, "--quiet").returncode == 0
     assert cli("report", "1", "--workspace", ws, "--to", tmp_path / "r.html").returncode == 0
     assert "Where the initial conditions came from" in (tmp_path / "r.html").read_text()
+
+
+# -- a local JPL file ---------------------------------------------------------------------
+
+AU_KM = 149597870.7  # the astronomical unit in km (IAU 2012 Resolution B2)
+
+
+def write_spk(path, segments, start, end):
+    """A minimal SPK file, written from the DAF and SPK type 2 layouts (NAIF's "DAF
+    Required Reading" and "SPK Required Reading"): one Chebyshev record per segment.
+
+    segments: {(target, centre): (p0 km (3,), w km/s (3,))}, the motion p0 + w (t - mid)
+    over [start, end] (seconds of TDB past J2000), as coefficients of degree 2.
+    """
+    import struct
+
+    ftp = b"FTPSTR:\r:\n:\r\n:\r\x00:\x81:\x10\xce:ENDFTP"  # the DAF transfer test string
+    deg = 2
+    rsize = 2 + 3 * (deg + 1)
+    mid, radius = 0.5 * (start + end), 0.5 * (end - start)
+    data, summaries, names = [], [], []
+    addr = 3 * 128 + 1  # data begin at record 4 (1-based double-word addresses)
+    for (target, centre), (p0, w) in segments.items():
+        rec = [mid, radius]
+        for k in range(3):
+            rec += [p0[k], w[k] * radius, 0.0]  # T0 and T1 coefficients of a line
+        words = rec + [start, end - start, float(rsize), 1.0]  # INIT, INTLEN, RSIZE, N
+        summaries.append(struct.pack("<2d6i", start, end, target, centre, 1, 2, addr,
+                                     addr + len(words) - 1))
+        names.append(f"segment {target} wrt {centre}".encode().ljust(40))
+        data += words
+        addr += len(words)
+    head = struct.pack("<8sII60sIII8s", b"DAF/SPK ", 2, 6, b"orbitledger test kernel".ljust(60),
+                       2, 2, addr, b"LTL-IEEE")
+    file_record = head.ljust(699, b"\0") + ftp
+    file_record = file_record.ljust(1024, b"\0")
+    summary = struct.pack("<3d", 0.0, 0.0, float(len(summaries))) + b"".join(summaries)
+    blob = (file_record + summary.ljust(1024, b"\0") + b"".join(names).ljust(1024, b" ")
+            + struct.pack(f"<{len(data)}d", *data))
+    path.write_bytes(blob.ljust(-(-len(blob) // 1024) * 1024, b"\0"))
+
+
+def test_a_local_jpl_file_gives_the_states_it_holds(tmp_path):
+    # An SPK file written here (type 2 Chebyshev segments of straight-line motion) is
+    # read through astropy and jplephem. The heliocentric distance, speed and r.v of
+    # each planet equal the file's numbers (rotation to the ecliptic keeps them).
+    pytest.importorskip("jplephem")
+    sun = (np.array([1.0e5, -2.0e5, 3.0e4]), np.array([0.010, 0.012, -0.001]))
+    jup = (np.array([7.4e8, 1.0e8, -2.0e7]), np.array([-2.0, 12.5, 0.3]))
+    sat = (np.array([1.3e9, 5.0e8, 1.0e7]), np.array([-3.5, 8.9, 0.1]))
+    kernel = tmp_path / "made.bsp"
+    write_spk(kernel, {(10, 0): sun, (5, 0): jup, (6, 0): sat}, -1e7, 1e7)
+    spec = S.load_text(ephemeris_spec(["jupiter", "saturn"], extra=f'source = "{kernel}"'))
+    eph = spec.system.ephemeris
+    assert any("SHA-256" in line and "jplephem" in line for line in eph.sources)
+    for body, (p0, w) in zip(spec.system.bodies, (jup, sat)):
+        r = np.array([float(q.split()[0]) for q in body.position])
+        v = np.array([float(q.split()[0]) for q in body.velocity])
+        rk, vk = p0 - sun[0], w - sun[1]
+        assert np.linalg.norm(r) == pytest.approx(np.linalg.norm(rk) / AU_KM, rel=1e-13)
+        assert np.linalg.norm(v) == pytest.approx(np.linalg.norm(vk) * 86400 / AU_KM, rel=1e-12)
+        assert r @ v == pytest.approx((rk @ vk) * 86400 / AU_KM ** 2, rel=1e-11)
+
+
+@pytest.mark.parametrize("source", ["de440", "jpl", "https://example.org/de440s.bsp",
+                                    "/nowhere/de440.bsp"])
+def test_an_ephemeris_that_is_not_a_local_file_is_refused_not_downloaded(source):
+    from orbitledger.runner.errors import SpecError
+
+    with pytest.raises(SpecError, match="is not a file on this machine") as err:
+        S.load_text(ephemeris_spec(["jupiter"], extra=f'source = "{source}"'))
+    assert "\n" not in str(err.value) and "nothing is downloaded" in str(err.value)

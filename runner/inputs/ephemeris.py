@@ -51,6 +51,7 @@ def barycentric_states(bodies, epoch, scale="tdb", source="builtin"):
     except (ValueError, TypeError) as err:
         raise SpecError(f"`system.ephemeris.epoch` could not be read as a time ({err}); write "
                         "it as e.g. \"2000-01-01T12:00:00\" with `scale` = \"tdb\".") from None
+    source = _local_source(source)
     x, v = [], []
     for name in ("sun",) + tuple(bodies):
         try:
@@ -63,6 +64,40 @@ def barycentric_states(bodies, epoch, scale="tdb", source="builtin"):
         x.append(p.xyz.to_value(u.au))
         v.append(vel.xyz.to_value(u.au / u.d))
     return t, np.array(x), np.array(v)
+
+
+def _local_source(source):
+    """Either "builtin" or the path of a local ephemeris file that jplephem can read.
+
+    Anything else is refused before astropy sees it: astropy would take a
+    name such as "de440", "jpl" or a URL as a request to download a kernel,
+    and a job's initial conditions are never downloaded here.
+    """
+    if source == "builtin":
+        return source
+    import os
+
+    if not os.path.isfile(source):
+        raise SpecError(f"`system.ephemeris.source` = {source!r} is not a file on this machine; "
+                        "give the path of a local JPL ephemeris file (.bsp) you have, or "
+                        "\"builtin\" (nothing is downloaded).")
+    try:
+        import jplephem  # noqa: F401 - astropy reads the file through it
+    except ImportError:
+        raise SpecError(f"`system.ephemeris.source` = {source!r} needs the jplephem package to "
+                        "read a JPL file; pip install jplephem, or use \"builtin\".") from None
+    return os.path.abspath(source)
+
+
+def file_sha256(path):
+    """SHA-256 of a file's bytes (the identity of a local ephemeris in the provenance)."""
+    import hashlib
+
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for block in iter(lambda: fh.read(1 << 20), b""):
+            h.update(block)
+    return h.hexdigest()
 
 
 def invariable_rotation(angmom):
@@ -119,8 +154,14 @@ def ephemeris_system(eph):
     rot = ecliptic_rotation()
     x = (bx - bx[0]) @ rot.T
     v = (bv - bv[0]) @ rot.T
-    where = (f"astropy {_astropy_version()} {eph.source!r} ephemeris"
-             + (" (ERFA epv00 and plan94, Simon et al. 1994)" if eph.source == "builtin" else "")
+    if eph.source == "builtin":
+        kind = " (ERFA epv00 and plan94, Simon et al. 1994)"
+    else:
+        import jplephem
+
+        kind = (f" (local JPL file read by jplephem {jplephem.__version__}, SHA-256 "
+                f"{file_sha256(eph.source)})")
+    where = (f"astropy {_astropy_version()} {eph.source!r} ephemeris" + kind
              + f", at {t.isot} {t.scale.upper()}, heliocentric, ecliptic of J2000")
     for k, b in enumerate(bodies):
         notes.append((b, "position and velocity", where))
