@@ -203,9 +203,14 @@ class Integrator:
         arrays["dt"] = np.array([-self.dt])
         arrays["step"] = np.array([0], dtype=np.int64)
         arrays["sample_offset"] = np.array([-(self.step + self.sample_offset)], dtype=np.int64)
+        self._on_reverse(arrays)
         back = Integrator.from_state_arrays(arrays)
         back._settle_pending(self.dt)  # each method applies its own half-drift
         return back
+
+    @staticmethod
+    def _on_reverse(arrays):
+        """Adjust a method's own state arrays for :meth:`reversed` (none by default)."""
 
     # -- exact state capture -------------------------------------------------
     def state_arrays(self):

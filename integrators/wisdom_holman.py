@@ -182,11 +182,12 @@ def wh_steps_tangent(xj, vj, gm, mu, mr, dt, n_steps, pending, gr_coef, pairs, p
 @njit(cache=True, error_model="numpy", nogil=True)
 def wh_steps_particles(xj, vj, gm, mu, mr, dt, n_steps, pending, gr_coef, pairs, params, xi,
                        acc, rh, step0, every, a_inv, c_inv, scratch, out_g, out_el, row0,
-                       px, pv, alive, events, mu_all, hill_f):
+                       px, pv, alive, events, mu_all, hill_f, own_step0):
     """:func:`wh_steps` with test particles (see :mod:`integrators.particles`).
 
     The massive bodies' arithmetic is wh_steps' own. Particles meeting a stop
-    condition are removed and recorded in `events` with their step; only the
+    condition are removed and recorded in `events` with the integrator's own
+    step number (own_step0 + k + 1, not shifted by a sample offset); only the
     massive bodies' stops end the call.
     """
     half = 0.5 * dt
@@ -204,7 +205,7 @@ def wh_steps_particles(xj, vj, gm, mu, mr, dt, n_steps, pending, gr_coef, pairs,
             return k + 1, pending, NUMERICAL_FAILURE_CODE, first_broken(xj, vj), -1, rows
         # Always: a particle whose state is no longer finite is removed even
         # with every stop condition off.
-        check_particles(px, alive, events, xi, xj[0], hill_f, params, step0 + k + 1)
+        check_particles(px, alive, events, xi, xj[0], hill_f, params, own_step0 + k + 1)
         if check:
             code, a, b = check_stops(xi, xj, vj, mu, pairs, params, rh)
             if code != 0:
@@ -386,7 +387,7 @@ class WisdomHolman(Integrator):
                 self.gr_coef, self._stop_pairs, self._stop_params, self._xi, self._acc, self._rh,
                 self.step + self.sample_offset, every, a_inv, c_inv, self._diag_scratch, out_g,
                 out_el, row0, px, pv, alive, events, self.eta[-1],
-                hill_factors(self.gm, self.stops.hill))
+                hill_factors(self.gm, self.stops.hill), self.step)
             return steps, code, a, b, rows
         if self.tangent is not None:
             dx, dv, sums = self.tangent
@@ -461,13 +462,21 @@ class WisdomHolman(Integrator):
 
     def particle_events(self):
         """(step, kind code, body) per particle: the step counter at its removal (its
-        time is t0 + step dt), -1 while it is still integrated."""
+        time is t0 + step dt; 0: removed before this integrator's start, see
+        :meth:`_on_reverse`), -1 while it is still integrated."""
         if self.particles is None:
             return np.empty((0, 3), dtype=np.int64)
-        ev = self.particles[3].copy()
-        # The kernels count steps from the sample offset (see advance_sampled).
-        ev[ev[:, 0] >= 0, 0] -= self.sample_offset
-        return ev
+        return self.particles[3].copy()
+
+    @staticmethod
+    def _on_reverse(arrays):
+        # A reversed run starts with the particles removed so far still removed;
+        # their removals happened before its start: step 0 (no step of a run
+        # removes at 0, its checks come after a step).
+        if "particles_events" in arrays:
+            ev = np.array(arrays["particles_events"])
+            ev[ev[:, 0] >= 0, 0] = 0
+            arrays["particles_events"] = ev
 
     def _settle_pending(self, dt_forward):
         if self.pending and self.particles is not None:

@@ -331,3 +331,38 @@ def test_particles_command_counts_survival_and_fraction_by_initial_a(tmp_path):
     assert cli("submit", plain, "--workspace", ws).returncode == 0
     res = cli("particles", "2", "--workspace", ws)
     assert res.returncode != 0 and "carries no test particles" in res.stderr
+
+
+def test_a_backward_run_keeps_earlier_removals_apart_and_times_its_own(tmp_path):
+    from orbitledger.runner.analysis.particles import particle_summary
+    from orbitledger.runner.execution.worker import Worker
+    from orbitledger.runner.ledger.operations import Ledger
+
+    led = Ledger(f"sqlite:///{tmp_path}/l.sqlite", tmp_path / "store")
+    fwd = led.submit(load(particle_spec_text(length="20000 yr", chunk="100000 steps",
+                                             output="1000 steps")))
+    Worker(led).run()
+    back = led.submit_backward(fwd)
+    Worker(led).run()
+    assert led.job(back)["status"] == "done"
+    f_ev = led.load_integrator(fwd)[0].particle_events()
+    b_ev = led.load_integrator(back)[0].particle_events()
+    gone = f_ev[:, 0] >= 0
+    assert gone.any()
+    # Removed going forward: still removed, marked as before the backward job's start.
+    assert (b_ev[gone, 0] == 0).all() and (b_ev[gone, 1:] == f_ev[gone, 1:]).all()
+    s = particle_summary(led, back)
+    assert s.at_risk == 41 - gone.sum()
+    assert all(k.startswith("before this job's start") for k, g in zip(s.kinds, gone) if g)
+    # Its own removals carry its own step: the particle's sampled elements turn to NaN
+    # at the first sample at or after that step.
+    row = led.job(back)
+    samples = led.store.read_samples(back, row["n_samples"])
+    own = np.nonzero(b_ev[:, 0] > 0)[0]
+    assert len(own)
+    for k in own:
+        nan = np.isnan(samples["particle_elements"][:, k, 0])
+        first = int(np.argmax(nan))
+        assert nan[first:].all() and not nan[:first].any()
+        assert samples["step"][first] >= b_ev[k, 0] > (samples["step"][first - 1])
+    led.close()

@@ -46,6 +46,7 @@ class ParticleSummary:
     bin_left: np.ndarray
     bin_lo: np.ndarray         # Wilson interval of the surviving fraction (NaN: empty bin)
     bin_hi: np.ndarray
+    at_risk: int = 0           # particles not removed before this job's start
 
 
 def particle_summary(ledger, job_id, bins=10, confidence=0.95):
@@ -65,6 +66,9 @@ def particle_summary(ledger, job_id, bins=10, confidence=0.95):
     dt = abs(integ.dt)
     reached = integ.step * dt / YEAR_D
     events = ev[:, 0] >= 0
+    # Removed before this job's start (a backward run of a job with removals):
+    # never at risk here, left out of the statistics.
+    before = ev[:, 0] == 0
     times = np.where(events, ev[:, 0] * dt / YEAR_D, reached)
     kinds, counts = [], {}
     for k in range(n):
@@ -74,15 +78,19 @@ def particle_summary(ledger, job_id, bins=10, confidence=0.95):
         kind = KIND_BY_CODE[int(ev[k, 1])].value
         if int(ev[k, 2]) > 0:
             kind += f" ({body_names[int(ev[k, 2])]})"
+        if before[k]:
+            kind = f"before this job's start: {kind}"
         kinds.append(kind)
         counts[kind] = counts.get(kind, 0) + 1
-    km_t, km_s, lo, hi = kaplan_meier(times, events, confidence)
+    risk = ~before
+    km_t, km_s, lo, hi = kaplan_meier(times[risk], events[risk], confidence)
     below = np.nonzero(km_s <= 0.5)[0]
     median = float(km_t[below[0]]) if len(below) else None
-    edges, bin_n, bin_left, bin_lo, bin_hi = by_initial_a(a0, ~events, bins, confidence)
+    edges, bin_n, bin_left, bin_lo, bin_hi = by_initial_a(a0[risk], ~events[risk], bins,
+                                                          confidence)
     return ParticleSummary(int(job_id), n, int((~events).sum()), reached, names, a0, times,
                            events, kinds, counts, km_t, km_s, lo, hi, median, edges, bin_n,
-                           bin_left, bin_lo, bin_hi)
+                           bin_left, bin_lo, bin_hi, int(risk.sum()))
 
 
 def by_initial_a(a0, survived, bins=10, confidence=0.95):

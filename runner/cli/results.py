@@ -237,7 +237,7 @@ def particles(job_id: JobArg, workspace: WorkspaceOpt = None, db: DbOpt = None,
     for kind, c in sorted(s.counts.items()):
         t.add_row(f"removed: {kind}", str(c))
     out.print(t)
-    out.print(f"surviving {s.left}/{s.n}; median time to removal "
+    out.print(f"surviving {s.left}/{s.at_risk}; median time to removal "
               + ("not reached" if s.median is None else format_time(s.median * 365.25))
               + " (Kaplan-Meier, particles left censored at the time reached)")
     b = Table(title="Surviving fraction by initial a", header_style="bold")

@@ -141,7 +141,8 @@ def outcomes_record(ensemble_id, name, s):
 def particles_record(s):
     """A job's test-particle outcomes (see analysis.particles.ParticleSummary)."""
     return plain({
-        "job": s.job_id, "particles": s.n, "left": s.left, "time_reached_yr": s.reached,
+        "job": s.job_id, "particles": s.n, "at_risk": s.at_risk, "left": s.left,
+        "time_reached_yr": s.reached,
         "counts": s.counts, "median_time_to_removal_yr": s.median,
         "kaplan_meier": {"time_yr": s.km_t, "survival": s.km_s, "band_95_low": s.km_lo,
                          "band_95_high": s.km_hi},
