@@ -4,6 +4,7 @@ from .base import AdvanceResult, Integrator
 from .constants import C_AU_PER_DAY, G, GAUSS_K, YEAR_D
 from .correctors import ORDERS as CORRECTOR_ORDERS
 from .errors import IntegratorError
+from .gauss_radau import GaussRadau
 from .kepler import propagate, stumpff
 from .leapfrog import Leapfrog
 from .stops import StopConditions, StopKind
@@ -16,5 +17,5 @@ METHODS = dict(Integrator.registry)
 __all__ = [
     "AdvanceResult", "Integrator", "C_AU_PER_DAY", "G", "GAUSS_K", "YEAR_D",
     "CORRECTOR_ORDERS", "IntegratorError", "propagate", "stumpff", "Leapfrog",
-    "StopConditions", "StopKind", "System", "WisdomHolman", "METHODS",
+    "StopConditions", "StopKind", "System", "WisdomHolman", "GaussRadau", "METHODS",
 ]
