@@ -157,3 +157,141 @@ def test_a_bad_tolerance_is_refused():
     for bad in (0.0, -1e-9, float("nan")):
         with pytest.raises(ValueError, match="tolerance"):
             GaussRadau(s, 1.0, tolerance=bad)
+
+
+# -- in jobs ------------------------------------------------------------------------------
+
+RADAU_SPEC = """
+name = "pellar-radau"
+[system]
+star = {{ name = "Pellar", mass = "1 Msun" }}
+[[system.bodies]]
+name = "Pellar b"
+mass = "1 jupiterMass"
+a = "1 au"
+e = 0.95
+[[system.bodies]]
+name = "Pellar c"
+mass = "0.3 jupiterMass"
+a = "6 au"
+e = 0.1
+i = "3 deg"
+[method]
+name = "gauss_radau"
+step = "100 d"
+{extra}
+[span]
+length = "{length}"
+output = "10 steps"
+chunk = "300 steps"
+"""
+
+
+def test_a_radau_job_killed_at_random_moments_resumes_bit_for_bit(tmp_path):
+    # Real worker processes killed by SIGKILL (at named failpoints and at random times):
+    # the substep sizes, the predictor and the compensation terms are state, so the run
+    # equals an uninterrupted one byte for byte, and verify passes. An invented star,
+    # Pellar, with a planet on an e = 0.95 orbit (the map's weak case).
+    import os
+    import random
+    import signal
+    import subprocess
+    import sys
+    import time
+
+    from helpers import ROOT, final_state, samples_bytes
+    from orbitledger.runner.analysis.integrity import verify
+    from orbitledger.runner.execution.worker import Worker
+    from orbitledger.runner.inputs import spec as S
+    from orbitledger.runner.ledger.operations import Ledger
+    from orbitledger.runner.ledger.workspace import init
+
+    text = RADAU_SPEC.format(extra="", length="6000 yr")
+    ref = Ledger(f"sqlite:///{tmp_path}/ref.sqlite", tmp_path / "ref-store")
+    ref_id = ref.submit(S.load_text(text))
+    Worker(ref).run()
+    ws, led = init(tmp_path / "ws")
+    jid = led.submit(S.load_text(text))
+    rng = random.Random(5)
+    kills = 0
+    for mode in ["mid_store_write:1", "in_commit:1", "first_step:1"] + [None] * 20:
+        if led.job(jid)["status"] == "done":
+            break
+        env = dict(os.environ)
+        env.pop("ORBITLEDGER_FAILPOINTS", None)
+        if mode:
+            env["ORBITLEDGER_FAILPOINTS"] = mode
+        proc = subprocess.Popen([sys.executable, "-m", "orbitledger.runner.cli", "work",
+                                 "--workspace", str(ws), "--quiet", "--lease", "5"], cwd=ROOT,
+                                env=env, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
+        if mode is None and kills < 6:
+            time.sleep(rng.uniform(1.0, 2.0))
+            if proc.poll() is None:
+                proc.send_signal(signal.SIGKILL)
+        rc = proc.wait(timeout=300)
+        kills += rc == -signal.SIGKILL
+        assert rc in (0, 3, -signal.SIGKILL), proc.stderr.read()
+    assert led.job(jid)["status"] == "done"
+    assert kills >= 3, kills
+    assert final_state(led, jid) == final_state(ref, ref_id)
+    assert samples_bytes(led, jid) == samples_bytes(ref, ref_id)
+    rep = verify(led, jid)
+    assert rep.ok, rep.problem
+    # Energy at round-off level over 6000 yr of an e = 0.95 orbit.
+    assert led.job(jid)["max_energy_error"] < 1e-12
+    led.close()
+    ref.close()
+
+
+@pytest.mark.parametrize("extra, words", [
+    ("corrector = 3", "`method.corrector` needs method 'wisdom_holman'"),
+    ("tolerance = 1e-12", "`method.tolerance` must be between 1e-9 and 1e-3"),
+    ('indicator = "megno"', "`method.indicator`"),
+])
+def test_radau_settings_that_mean_nothing_are_refused(extra, words):
+    from orbitledger.runner.errors import SpecError
+    from orbitledger.runner.inputs import spec as S
+
+    with pytest.raises(SpecError) as err:
+        S.load_text(RADAU_SPEC.format(extra=extra, length="100 yr"))
+    assert words in str(err.value) and "\n" not in str(err.value)
+    with pytest.raises(SpecError, match="`method.tolerance` is for method 'gauss_radau'"):
+        S.load_text(RADAU_SPEC.format(extra="tolerance = 1e-8", length="100 yr").replace(
+            'name = "gauss_radau"', 'name = "wisdom_holman"').replace("e = 0.95", "e = 0.5"))
+
+
+def test_recheck_finds_the_maps_error_falling_as_the_step_squared(tmp_path):
+    # A well-resolved, regular job (the invented Orrin planets, no corrector) checked over
+    # its first checkpoint against Gauss-Radau: the map's position error over the stretch
+    # falls as dt^2 (second-order map: Wisdom & Holman 1991) when the step halves, and
+    # the reference's own energy change is at round-off, far below the map's.
+    import json
+
+    from helpers import cli, small_spec_text
+
+    ws = tmp_path / "ws"
+    assert cli("init", "--workspace", ws).returncode == 0
+    for name, step, chunk, out in (("o10", "10 d", "18260 steps", "1826 steps"),
+                                   ("o5", "5 d", "36520 steps", "3652 steps")):
+        spec = tmp_path / f"{name}.toml"
+        spec.write_text(small_spec_text(name=name, step=step, corrector=0, length="500 yr",
+                                        chunk=chunk, output=out))
+        assert cli("submit", spec, "--workspace", ws).returncode == 0
+    assert cli("work", "--workspace", ws, "--quiet").returncode == 0
+    recs = []
+    for jid in (1, 2):
+        res = cli("recheck", str(jid), "--workspace", ws, "--from", "0", "--to", "1", "--json")
+        assert res.returncode == 0, res.stderr
+        recs.append(json.loads(res.stdout))
+    for name in recs[0]["bodies"]:
+        coarse, fine = recs[0]["bodies"][name], recs[1]["bodies"][name]
+        ratio = coarse["position_au"] / fine["position_au"]
+        assert 3.5 < ratio < 4.5, (name, ratio)
+        assert coarse["position_au"] < 1e-4
+    for r in recs:
+        assert abs(r["reference_energy_change"]) < 1e-14
+        assert abs(r["reference_energy_change"]) < 1e-3 * abs(r["map_energy_change"])
+    table = cli("recheck", "1", "--workspace", ws)
+    assert table.returncode == 0 and "against Gauss-Radau 15" in table.stdout
+    bad = cli("recheck", "1", "--workspace", ws, "--from", "1", "--to", "1")
+    assert bad.returncode != 0 and "start < end" in bad.stderr

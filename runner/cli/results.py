@@ -1,5 +1,5 @@
-"""Commands that read committed work: outcomes, map, frequencies, particles, audit, report,
-plot, compare, export, backward, reversibility, verify, replay."""
+"""Commands that read committed work: outcomes, map, frequencies, particles, recheck, audit,
+report, plot, compare, export, backward, reversibility, verify, replay."""
 
 from pathlib import Path
 from typing import Annotated, Optional
@@ -252,6 +252,59 @@ def particles(job_id: JobArg, workspace: WorkspaceOpt = None, db: DbOpt = None,
     if plot is not None:
         plots.save(plots.particles_figure(s, f"job {job_id}: {row['name']}"), plot)
         out.print(f"plot written to {plot}")
+
+
+@app.command()
+@_guard
+def recheck(job_id: JobArg, workspace: WorkspaceOpt = None, db: DbOpt = None,
+            start: Annotated[Optional[int], typer.Option(
+                "--from", help="First checkpoint of the stretch (default: the one before "
+                               "--to).", min=0)] = None,
+            end: Annotated[Optional[int], typer.Option(
+                "--to", help="Last checkpoint of the stretch (default: the last).",
+                min=1)] = None,
+            tolerance: Annotated[float, typer.Option(
+                help="Gauss-Radau tolerance (|b7|/|a| per substep).", min=1e-9,
+                max=1e-3)] = 1e-9,
+            as_json: JsonOpt = False):
+    """Integrate a committed stretch again with Gauss-Radau 15 and report how far the
+    job's state at its end is from it: the map's error over the stretch, not just its
+    energy error."""
+    from rich.table import Table
+
+    from orbitledger.runner.analysis.recheck import recheck as run_check
+    from orbitledger.runner.inputs.text import format_time
+
+    with open_ledger(workspace, db) as ledger:
+        r = run_check(ledger, job_id, start, end, tolerance)
+    span = abs(r.end["time"] - r.start["time"])
+    if as_json:
+        from orbitledger.runner.presentation.records import plain
+
+        print_json(plain({
+            "job": job_id, "from_checkpoint": r.start["idx"], "to_checkpoint": r.end["idx"],
+            "span_yr": span / 365.25, "tolerance": r.tolerance, "substeps": r.substeps,
+            "reference_energy_change": r.reference_energy_change,
+            "map_energy_change": r.map_energy_change,
+            "bodies": {name: {"position_au": p, "velocity_au_per_d": v, "d_a_au": d[0],
+                              "d_e": d[1], "d_i_deg": d[2], "d_mean_longitude_deg": d[3]}
+                       for name, p, v, d in zip(r.names[1:], r.position, r.velocity,
+                                                r.d_elements)}}))
+        return
+    t = Table(title=f"Job {job_id}: checkpoints {r.start['idx']} to {r.end['idx']} "
+                    f"({format_time(span)}) against Gauss-Radau 15", header_style="bold")
+    for col in ("body", "|dr| (au)", "|dv| (au/d)", "da (au)", "de", "di (deg)",
+                "d mean longitude (deg)"):
+        t.add_column(col, justify="right" if col != "body" else "left")
+    for name, p, v, d in zip(r.names[1:], r.position, r.velocity, r.d_elements):
+        t.add_row(name, f"{p:.3e}", f"{v:.3e}", f"{d[0]:.3e}", f"{d[1]:.3e}", f"{d[2]:.3e}",
+                  f"{d[3]:.3e}")
+    out.print(t)
+    out.print(f"the job minus the reference, heliocentric, at checkpoint {r.end['idx']}. "
+              f"Reference: {r.substeps} substeps, tolerance {r.tolerance:g}, its energy "
+              f"changed by {r.reference_energy_change:.2e} over the stretch (the job's by "
+              f"{r.map_energy_change:.2e}). In a chaotic stretch of more than a few Lyapunov "
+              "times the difference is mostly divergence, not the map's error.", markup=False)
 
 
 @app.command()

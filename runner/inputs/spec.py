@@ -73,12 +73,21 @@ class SystemSpec(_Strict):
 
 
 class MethodSpec(_Strict):
-    name: Literal["wisdom_holman", "leapfrog"] = "wisdom_holman"
+    name: Literal["wisdom_holman", "gauss_radau", "leapfrog"] = "wisdom_holman"
     step: str
     corrector: int = 0
     relativity: bool = False
     allow_long_step: bool = False
     indicator: Literal["none", "megno"] = "none"
+    tolerance: float | None = None
+
+    @field_validator("tolerance")
+    @classmethod
+    def _tolerance(cls, v):
+        if v is not None and not 1e-9 <= v <= 1e-3:
+            raise ValueError("must be between 1e-9 and 1e-3 (below 1e-9 the last Radau "
+                             "coefficient is rounding noise at close approaches)")
+        return v
 
     @field_validator("corrector")
     @classmethod
@@ -413,6 +422,8 @@ def load(path, notes=None):
 def canonical_json(spec):
     """Canonical JSON of a validated spec: defaults filled, keys sorted, no spaces."""
     data = spec.model_dump(mode="json")
+    if data["method"].get("tolerance") is None:
+        data["method"].pop("tolerance", None)  # as for particles, below
     if data.get("particles") is None:
         # Only when given, so specs without particles keep the text (and hash)
         # they had before particles existed.
@@ -460,6 +471,7 @@ class Plan:
     on_exceed: str
     indicator: str = "none"
     particles: "Particles | None" = None
+    tolerance: float | None = None
 
     def make_integrator(self, system=None):
         """A fresh integrator at the start of the run (or from another system)."""
@@ -471,6 +483,11 @@ class Plan:
                                         else self.indicator,
                                         particles=None if self.particles is None
                                         else (self.particles.x, self.particles.v))
+        if self.method == "gauss_radau":
+            from orbitledger.integrators.gauss_radau import DEFAULT_TOLERANCE
+
+            return METHODS[self.method](sysm, self.dt, stops=self.stops, gr=self.relativity,
+                                        tolerance=self.tolerance or DEFAULT_TOLERANCE)
         return METHODS[self.method](sysm, self.dt, stops=self.stops)
 
 
@@ -713,9 +730,15 @@ def resolve(spec):
         raise SpecError(f"`method.step` must be positive, got {spec.method.step!r}; "
                         "give the step size and use `span.direction` for backward runs.")
     dt = step if spec.span.direction == "forward" else -step
-    if spec.method.name != "wisdom_holman" and (spec.method.corrector or spec.method.relativity):
-        raise SpecError(f"`method.corrector` and `method.relativity` need method "
-                        f"'wisdom_holman', got method {spec.method.name!r}; remove them.")
+    if spec.method.name != "wisdom_holman" and spec.method.corrector:
+        raise SpecError(f"`method.corrector` needs method 'wisdom_holman', got method "
+                        f"{spec.method.name!r}; remove it.")
+    if spec.method.name == "leapfrog" and spec.method.relativity:
+        raise SpecError("`method.relativity` needs method 'wisdom_holman' or 'gauss_radau', got "
+                        "method 'leapfrog'; remove it.")
+    if spec.method.name != "gauss_radau" and spec.method.tolerance is not None:
+        raise SpecError(f"`method.tolerance` is for method 'gauss_radau', got method "
+                        f"{spec.method.name!r}; remove it (a map's accuracy is set by its step).")
     if spec.method.name != "wisdom_holman" and spec.method.indicator != "none":
         raise SpecError(f"`method.indicator` = {spec.method.indicator!r} needs method "
                         f"'wisdom_holman', got method {spec.method.name!r}; remove it.")
@@ -758,7 +781,7 @@ def resolve(spec):
     plan = Plan(system, spec.method.name, dt, spec.method.corrector, spec.method.relativity,
                 int(total), int(chunk), int(output), stops, spec.budget.energy,
                 spec.budget.angular_momentum, spec.budget.on_exceed, spec.method.indicator,
-                particles)
+                particles, spec.method.tolerance)
     from orbitledger.runner.inputs.sanity import check
 
     check(plan, spec)

@@ -81,8 +81,8 @@ def _particles(plan, dt):
 def advice(plan):
     """Warning lines (key, value, fix) when the step under-resolves an orbit; else []."""
     res = resolution(plan)
-    if not res:
-        return []
+    if not res or plan.method == "gauss_radau":
+        return []  # adaptive substeps: its step is only the frame of samples
     worst = min(res, key=lambda r: r.steps_per_passage)
     if worst.steps_per_passage >= MIN_STEPS_PER_PASSAGE:
         return []
@@ -95,6 +95,8 @@ def advice(plan):
 
 def summary(plan):
     """One line for `show`: the least resolved orbit."""
+    if plan.method == "gauss_radau":
+        return "adaptive substeps (Gauss-Radau); the step is the frame of samples"
     res = resolution(plan)
     if not res:
         return "no bound orbit"
