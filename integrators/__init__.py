@@ -9,6 +9,7 @@ from .kepler import propagate, stumpff
 from .leapfrog import Leapfrog
 from .stops import StopConditions, StopKind
 from .system import System
+from .switching import Switching
 from .wisdom_holman import WisdomHolman
 
 # The methods, by name: each class joined Integrator.registry when defined.
@@ -17,5 +18,5 @@ METHODS = dict(Integrator.registry)
 __all__ = [
     "AdvanceResult", "Integrator", "C_AU_PER_DAY", "G", "GAUSS_K", "YEAR_D",
     "CORRECTOR_ORDERS", "IntegratorError", "propagate", "stumpff", "Leapfrog",
-    "StopConditions", "StopKind", "System", "WisdomHolman", "GaussRadau", "METHODS",
+    "StopConditions", "StopKind", "System", "WisdomHolman", "GaussRadau", "Switching", "METHODS",
 ]

@@ -42,7 +42,7 @@ from numba import njit
 
 from .base import Integrator
 from .nbody import accelerations, gr_coefficient
-from .stops import NUMERICAL_FAILURE_CODE, check_stops, first_broken, is_broken
+from .stops import COLLISION_CODE, NUMERICAL_FAILURE_CODE, check_stops, first_broken, is_broken
 
 # The seven interior Gauss-Radau nodes on [0, 1]: the roots other than x = -1 of
 # P7(x) + P8(x) (Legendre polynomials), mapped by tau = (x + 1) / 2 (Everhart
@@ -235,15 +235,23 @@ def _pair_time(x, gm):
 
 @njit(cache=True, error_model="numpy", nogil=True)
 def radau_frames(x, v, gm, gr_coef, dt, n_frames, tol, ctl, b, g, a0, an, xn, xo, vo, bp,
-                 r, c, dmat, binom, pairs, params, mu, hx, hv, rh, cx, cv, cxo, cvo):
+                 r, c, dmat, binom, pairs, params, mu, hx, hv, rh, cx, cv, cxo, cvo, contact):
     """Advance n_frames frames of length dt; returns (frames done, code, body a, body b).
 
-    ctl = [next substep, last substep, substeps taken, substeps rejected] (state).
+    ctl = [next substep, last substep, substeps taken, substeps rejected, time into
+    the frame] (state; the last is 0 except after a stop inside a frame). contact
+    (n, n): the sum of two bodies' radii, checked after every substep (all zero: off).
     """
     n = x.shape[0]
     check = params[0] > 0.0
+    touch = False
+    for i in range(n):
+        for j in range(n):
+            if contact[i, j] > 0.0:
+                touch = True
     for f in range(n_frames):
-        tau = 0.0
+        tau = ctl[4]
+        ctl[4] = 0.0
         while True:
             remaining = dt - tau
             h = ctl[0]
@@ -302,14 +310,28 @@ def radau_frames(x, v, gm, gr_coef, dt, n_frames, tol, ctl, b, g, a0, an, xn, xo
                     ctl[0] = floor * (1.0 if dt > 0 else -1.0)
             if is_broken(v[n - 1, 0]):
                 return f + 1, NUMERICAL_FAILURE_CODE, first_broken(x, v), -1
-            if check:
-                for i in range(n):
-                    for d in range(3):
-                        hx[i, d] = x[i, d] - x[0, d]
-                        hv[i, d] = v[i, d] - v[0, d]
-                code, ba, bb = check_stops(x, hx, hv, mu, pairs, params, rh)
+            if check or touch:
+                code, ba, bb = 0, -1, -1
+                if check:
+                    for i in range(n):
+                        for d in range(3):
+                            hx[i, d] = x[i, d] - x[0, d]
+                            hv[i, d] = v[i, d] - v[0, d]
+                    code, ba, bb = check_stops(x, hx, hv, mu, pairs, params, rh)
+                if code == 0 and touch:
+                    for i in range(1, n):
+                        for j in range(i + 1, n):
+                            lim = contact[i, j]
+                            d0 = x[j, 0] - x[i, 0]
+                            d1 = x[j, 1] - x[i, 1]
+                            d2 = x[j, 2] - x[i, 2]
+                            if code == 0 and d0 * d0 + d1 * d1 + d2 * d2 < lim * lim:
+                                code, ba, bb = COLLISION_CODE, i, j
                 if code != 0:
-                    # The frame is completed only when its end was reached.
+                    # The frame is completed only when its end was reached; otherwise
+                    # the time into it is kept (a caller may finish it).
+                    if not last:
+                        ctl[4] = tau + h
                     return f + (1 if last else 0), code, ba, bb
             if last:
                 break
@@ -339,19 +361,21 @@ class GaussRadau(Integrator):
 
     method = "gauss_radau"
 
-    def __init__(self, system, dt, stops=None, gr=False, tolerance=DEFAULT_TOLERANCE):
+    def __init__(self, system, dt, stops=None, gr=False, tolerance=DEFAULT_TOLERANCE,
+                 contact=False):
         super().__init__(system, dt, stops)
         if not (tolerance > 0.0 and math.isfinite(tolerance)):
             raise ValueError(f"tolerance must be a positive number, got {tolerance}.")
         self.x = np.array(system.x, dtype=np.float64)
         self.v = np.array(system.v, dtype=np.float64)
         self.gr = bool(gr)
+        self.contact = bool(contact)
         self.tolerance = float(tolerance)
         n = len(self.gm)
         self.b = np.zeros((7, n, 3))
         h0 = min(abs(self.dt), _shortest_period(self.x, self.v, self.gm) / 50.0)
         h0 = math.copysign(h0, self.dt)
-        self.ctl = np.array([h0, h0, 0.0, 0.0])
+        self.ctl = np.array([h0, h0, 0.0, 0.0, 0.0])
         self.comp = np.zeros((2, n, 3))  # compensated-summation terms of x and v
         self._derive()
 
@@ -364,6 +388,11 @@ class GaussRadau(Integrator):
         self._rh = np.zeros(n)
         self._mu = self.gm[0] + self.gm
         self._mu[0] = 0.0
+        self._contact = np.zeros((n, n))
+        if self.contact:
+            self._contact = self.radii[:, None] + self.radii[None, :]
+            self._contact[0, :] = 0.0
+            self._contact[:, 0] = 0.0
 
     def _gr_coef(self):
         return gr_coefficient(self.gm[0]) if self.gr else 0.0
@@ -373,6 +402,11 @@ class GaussRadau(Integrator):
         """(substeps accepted, substeps rejected) so far."""
         return int(self.ctl[2]), int(self.ctl[3])
 
+    @property
+    def into_frame(self):
+        """Time already integrated into the current frame (days; 0 on a frame's start)."""
+        return float(self.ctl[4])
+
     def _advance_impl(self, n, every=0, out_g=None, out_el=None, row0=0):
         if not every:
             g, bp, a0, an, xn, xo, vo, cxo, cvo = self._scratch
@@ -380,7 +414,7 @@ class GaussRadau(Integrator):
                 self.x, self.v, self.gm, self._gr_coef(), self.dt, n, self.tolerance,
                 self.ctl, self.b, g, a0, an, xn, xo, vo, bp, _R, _C, _D, _BINOM,
                 self._stop_pairs, self._stop_params, self._mu, self._hx, self._hv, self._rh,
-                self.comp[0], self.comp[1], cxo, cvo)
+                self.comp[0], self.comp[1], cxo, cvo, self._contact)
             return steps, code, a, b, row0
         done, rows = 0, row0
         while done < n:
@@ -413,7 +447,7 @@ class GaussRadau(Integrator):
     def _internal_arrays(self):
         return {"x": self.x.copy(), "v": self.v.copy(), "radau_b": self.b.copy(),
                 "radau_control": self.ctl.copy(), "radau_compensation": self.comp.copy(),
-                "settings": np.array([int(self.gr)], dtype=np.int64),
+                "settings": np.array([int(self.gr), int(self.contact)], dtype=np.int64),
                 "radau_tolerance": np.array([self.tolerance])}
 
     def _restore_internal(self, arrays):
@@ -422,7 +456,9 @@ class GaussRadau(Integrator):
         self.b = np.array(arrays["radau_b"], dtype=np.float64)
         self.ctl = np.array(arrays["radau_control"], dtype=np.float64)
         self.comp = np.array(arrays["radau_compensation"], dtype=np.float64)
-        self.gr = bool(int(np.asarray(arrays["settings"])[0]))
+        settings = np.asarray(arrays["settings"])
+        self.gr = bool(int(settings[0]))
+        self.contact = bool(int(settings[1]))
         self.tolerance = float(np.asarray(arrays["radau_tolerance"])[0])
         self._derive()
 

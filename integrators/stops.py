@@ -25,11 +25,15 @@ class StopKind(str, Enum):
     # Not a physical outcome: the state stopped being finite numbers (e.g. two
     # bodies at the same place). Always checked, whatever the stop settings.
     NUMERICAL_FAILURE = "numerical_failure"
+    # Two bodies closer than the sum of their radii (Gauss-Radau runs that check contact).
+    COLLISION = "collision"
 
 
 # Kernel codes, index into KIND_BY_CODE.
 KIND_BY_CODE = (StopKind.DONE, StopKind.CLOSE_ENCOUNTER, StopKind.EJECTION,
-                StopKind.STAR_COLLISION, StopKind.ECCENTRICITY, StopKind.NUMERICAL_FAILURE)
+                StopKind.STAR_COLLISION, StopKind.ECCENTRICITY, StopKind.NUMERICAL_FAILURE,
+                StopKind.COLLISION)
+COLLISION_CODE = 6
 NUMERICAL_FAILURE_CODE = 5
 
 

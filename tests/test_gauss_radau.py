@@ -148,7 +148,7 @@ def test_resumed_runs_and_the_plain_python_path_are_bit_identical():
     M.radau_frames.py_func(py.x, py.v, py.gm, 0.0, py.dt, 40, py.tolerance, py.ctl, py.b, g, a0,
                            an, xn, xo, vo, bp, M._R, M._C, M._D, M._BINOM, py._stop_pairs,
                            py._stop_params, py._mu, py._hx, py._hv, py._rh, py.comp[0],
-                           py.comp[1], cxo, cvo)
+                           py.comp[1], cxo, cvo, py._contact)
     assert py.x.tobytes() == compiled.x.tobytes() and py.v.tobytes() == compiled.v.tobytes()
 
 

@@ -22,7 +22,7 @@ import numpy as np
 
 from orbitledger.runner.ledger.status import JobStatus
 
-UNSTABLE = ("close_encounter", "ejection", "star_collision", "eccentricity")
+UNSTABLE = ("close_encounter", "ejection", "star_collision", "eccentricity", "collision")
 YEAR_D = 365.25
 
 

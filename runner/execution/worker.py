@@ -191,6 +191,7 @@ class Worker:
         steps_per_call = (self.max_steps_per_call if self.slice_seconds is None
                           else min(self.max_steps_per_call, 100))
         layout = state_layout(integ.state_arrays())
+        seen = len(getattr(integ, "events", ()))  # method switches and events already recorded
         while True:
             # Open the job's arrays and create the coming checkpoint's array
             # on a helper thread while the kernel runs.
@@ -274,13 +275,15 @@ class Worker:
                     then, reason = "stopped", over
                     outcome = ("over_budget", integ.step, integ.time, ())
             wall = self.clock() - wall0
+            new_events = _new_events(integ, seen)
             result = self.ledger.commit_checkpoint(
                 claim, idx=idx + 1, step=integ.step, time_=integ.time, state_hash=st_hash,
                 samples_hash=s_hash, n_samples=n_samples + len(block["time"]),
                 energy_error=e_err, angmom_error=l_err, max_energy_error=max_e,
                 max_angmom_error=max_l, then=then, outcome=outcome, reason=reason,
                 segment_id=seg, wall_seconds=wall, rate=_rate(integ, step0, wall0, self.clock()),
-                now=self.clock())
+                now=self.clock(), events=new_events)
+            seen += len(new_events)
             idx += 1
             n_samples += len(block["time"])
             total = result.total_steps
@@ -295,6 +298,23 @@ class Worker:
                     # Finished: leave exactly the committed rows for readers.
                     self.ledger.store.trim_samples(job_id, n_samples, claim.fence)
                 return result.status
+
+
+def _new_events(integ, seen):
+    """Ledger rows (kind, step, time, bodies, detail) of the integrator's events after the
+    first `seen` (runs that switch methods through encounters; none otherwise)."""
+    rows = getattr(integ, "events", None)
+    if rows is None or len(rows) <= seen:
+        return []
+    from orbitledger.integrators.switching import EVENT_NAMES
+
+    out = []
+    for step, kind, a, b, d_energy in rows[seen:]:
+        bodies = tuple(int(q) for q in (a, b) if q >= 0)
+        detail = {"relative_energy_change": float(d_energy)} if d_energy else None
+        out.append((EVENT_NAMES[int(kind)], int(step), integ.t0 + int(step) * integ.dt, bodies,
+                    detail))
+    return out
 
 
 def _body_names(integ, bodies):

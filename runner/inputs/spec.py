@@ -80,6 +80,8 @@ class MethodSpec(_Strict):
     allow_long_step: bool = False
     indicator: Literal["none", "megno"] = "none"
     tolerance: float | None = None
+    encounters: Literal["stop", "switch"] = "stop"
+    switch_back: float | None = None
 
     @field_validator("tolerance")
     @classmethod
@@ -422,8 +424,10 @@ def load(path, notes=None):
 def canonical_json(spec):
     """Canonical JSON of a validated spec: defaults filled, keys sorted, no spaces."""
     data = spec.model_dump(mode="json")
-    if data["method"].get("tolerance") is None:
-        data["method"].pop("tolerance", None)  # as for particles, below
+    # Keys added later are left out at their defaults, as for particles below.
+    for key, default in (("tolerance", None), ("encounters", "stop"), ("switch_back", None)):
+        if data["method"].get(key) == default:
+            data["method"].pop(key, None)
     if data.get("particles") is None:
         # Only when given, so specs without particles keep the text (and hash)
         # they had before particles existed.
@@ -472,10 +476,19 @@ class Plan:
     indicator: str = "none"
     particles: "Particles | None" = None
     tolerance: float | None = None
+    encounters: str = "stop"
+    switch_back: float = 5.0
 
     def make_integrator(self, system=None):
         """A fresh integrator at the start of the run (or from another system)."""
         sysm = system if system is not None else self.system
+        if self.method == "wisdom_holman" and self.encounters == "switch":
+            from orbitledger.integrators.gauss_radau import DEFAULT_TOLERANCE
+
+            return METHODS["switching"](sysm, self.dt, corrector=self.corrector,
+                                        gr=self.relativity, stops=self.stops,
+                                        back_at=self.switch_back,
+                                        tolerance=self.tolerance or DEFAULT_TOLERANCE)
         if self.method == "wisdom_holman":
             return METHODS[self.method](sysm, self.dt, corrector=self.corrector,
                                         gr=self.relativity, stops=self.stops,
@@ -736,9 +749,23 @@ def resolve(spec):
     if spec.method.name == "leapfrog" and spec.method.relativity:
         raise SpecError("`method.relativity` needs method 'wisdom_holman' or 'gauss_radau', got "
                         "method 'leapfrog'; remove it.")
-    if spec.method.name != "gauss_radau" and spec.method.tolerance is not None:
-        raise SpecError(f"`method.tolerance` is for method 'gauss_radau', got method "
-                        f"{spec.method.name!r}; remove it (a map's accuracy is set by its step).")
+    switching = spec.method.encounters == "switch"
+    if spec.method.name != "gauss_radau" and spec.method.tolerance is not None and not switching:
+        raise SpecError(f"`method.tolerance` is for method 'gauss_radau' (or `encounters = "
+                        f"\"switch\"`), got method {spec.method.name!r}; remove it (a map's "
+                        "accuracy is set by its step).")
+    if switching and spec.method.name != "wisdom_holman":
+        raise SpecError(f"`method.encounters` = \"switch\" needs method 'wisdom_holman', got "
+                        f"{spec.method.name!r}; remove it.")
+    if spec.method.switch_back is not None and not switching:
+        raise SpecError("`method.switch_back` needs `method.encounters = \"switch\"`; remove "
+                        "it or add that.")
+    if switching and spec.method.indicator != "none":
+        raise SpecError("`method.encounters` = \"switch\" cannot carry a chaos indicator "
+                        "(its tangent would cross a change of method); remove one of them.")
+    if switching and spec.span.direction == "backward":
+        raise SpecError("`method.encounters` = \"switch\" runs forward only; remove it or set "
+                        "`span.direction = \"forward\"`.")
     if spec.method.name != "wisdom_holman" and spec.method.indicator != "none":
         raise SpecError(f"`method.indicator` = {spec.method.indicator!r} needs method "
                         f"'wisdom_holman', got method {spec.method.name!r}; remove it.")
@@ -772,8 +799,16 @@ def resolve(spec):
     )
     if stops.eject_distance < 0 or stops.star_radius < 0 or stops.unbound_distance < 0:
         raise SpecError("`stops` distances must be >= 0; give 0 to turn a condition off.")
+    if switching and not st.hill > 0:
+        raise SpecError("`method.encounters` = \"switch\" needs `stops.hill` > 0: the close "
+                        "encounter at which Gauss-Radau takes over; add e.g. hill = 3.")
+    back = 5.0 if spec.method.switch_back is None else spec.method.switch_back
+    if switching and not back >= st.hill:
+        raise SpecError(f"`method.switch_back` = {back} must be at least `stops.hill` = "
+                        f"{st.hill} (the map takes over again only farther out than where it "
+                        "handed over); raise it.")
     particles = build_particles(spec, system)
-    if particles is not None and (spec.method.name != "wisdom_holman"
+    if particles is not None and (spec.method.name != "wisdom_holman" or switching
                                   or spec.method.indicator != "none"):
         raise SpecError("`particles` need method 'wisdom_holman' without a chaos indicator, got "
                         f"method {spec.method.name!r} with indicator "
@@ -781,7 +816,7 @@ def resolve(spec):
     plan = Plan(system, spec.method.name, dt, spec.method.corrector, spec.method.relativity,
                 int(total), int(chunk), int(output), stops, spec.budget.energy,
                 spec.budget.angular_momentum, spec.budget.on_exceed, spec.method.indicator,
-                particles, spec.method.tolerance)
+                particles, spec.method.tolerance, spec.method.encounters, back)
     from orbitledger.runner.inputs.sanity import check
 
     check(plan, spec)

@@ -136,12 +136,15 @@ class WorkerSide:
                           n_samples, energy_error, angmom_error, max_energy_error,
                           max_angmom_error, then, outcome=None, reason=None,
                           segment_id=None, wall_seconds=0.0, rate=None, now=None,
-                          end_reason=None):
+                          end_reason=None, events=()):
         """Record checkpoint idx and advance progress, only under the current fence.
 
         ``then`` says what the worker wants next: "continue", "release" (work
         remains, let another worker take it), "done", "stopped" (with
         ``outcome`` = (kind, step, time, bodies)), "held" (with ``reason``).
+        ``events`` are rows (kind, step, time, bodies, detail) the chunk produced
+        (switches of method, mergers, ejections), recorded in the same
+        transaction as the checkpoint that contains them.
         A pending user request (hold, cancel) and an extension made meanwhile
         are applied here. If the job stops running, the segment is closed in
         the same transaction (``end_reason`` defaults to the new status).
@@ -200,6 +203,8 @@ class WorkerSide:
                 state_sha256=state_hash, chain_sha256=chain_sha256(prev, state_hash, samples_hash),
                 samples_sha256=samples_hash, n_samples=n_samples, energy_error=energy_error,
                 angmom_error=angmom_error, segment_id=segment_id, created_at=now))
+            for kind, e_step, e_time, bodies, detail in events:
+                self._event(conn, claim.job_id, kind, e_step, e_time, bodies, detail, now)
             if then == "stopped":
                 kind, o_step, o_time, bodies = outcome
                 self._event(conn, claim.job_id, kind, o_step, o_time, bodies, None, now)

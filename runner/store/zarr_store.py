@@ -114,8 +114,10 @@ def to_storable(arrays):
 def from_storable(arrays):
     """Inverse of :func:`to_storable`."""
     out = dict(arrays)
-    if "names" in out and out["names"].dtype == np.uint8:
-        out["names"] = np.array(json.loads(bytes(out["names"]).decode("utf-8")), dtype=np.str_)
+    for key in list(out):
+        # Text arrays: the bodies' names, and a nested method's (``inner_names``).
+        if (key == "names" or key.endswith("_names")) and out[key].dtype == np.uint8:
+            out[key] = np.array(json.loads(bytes(out[key]).decode("utf-8")), dtype=np.str_)
     return out
 
 
