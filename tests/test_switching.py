@@ -225,3 +225,42 @@ def test_the_switching_state_round_trips_inside_a_gauss_radau_stretch():
     for key in sa:
         assert np.asarray(sa[key]).tobytes() == np.asarray(sb[key]).tobytes(), key
     assert StopConditions  # imported for readers: the stops that start a switch
+
+
+def test_ensemble_outcomes_count_what_happened_to_the_members_bodies(tmp_path):
+    import json
+
+    from helpers import cli
+    from orbitledger.runner.ledger.operations import Ledger
+
+    spec = tmp_path / "e.toml"
+    spec.write_text(scatter_text(length="600 yr") + """
+[ensemble]
+members = 4
+seed = 4
+[ensemble.perturb]
+body = "Tor c"
+quantity = "mean_anomaly"
+rule = "uniform"
+size = "20 deg"
+""")
+    ws = tmp_path / "ws"
+    assert cli("init", "--workspace", ws).returncode == 0
+    assert cli("submit", spec, "--workspace", ws).returncode == 0
+    assert cli("work", "--workspace", ws, "--quiet", "--workers", "2").returncode == 0
+    res = cli("outcomes", "1", "--workspace", ws, "--json")
+    assert res.returncode == 0, res.stderr
+    got = json.loads(res.stdout)["body_events"]
+    # Counted again here from the ledger's event rows: members with a merger of b and c.
+    led = Ledger(f"sqlite:///{ws}/ledger.sqlite", ws / "store")
+    merged = {j for j in range(1, 5) for e in led.events(j)
+              if e["kind"] == "merger" and e["bodies"] == "1,2"}
+    led.close()
+    assert merged and got["merger: Tor b, Tor c"] == len(merged)
+    assert got["kept every body"] == 4 - len(merged)
+    table = cli("outcomes", "1", "--workspace", ws)
+    assert "merger: Tor b, Tor c" in table.stdout and "kept every body" in table.stdout
+    # The members' plots mark the merger.
+    assert cli("plot", str(min(merged)), "--workspace", ws, "--kind", "elements",
+               "--to", tmp_path / "m.png").returncode == 0
+    assert (tmp_path / "m.png").stat().st_size > 10_000

@@ -112,6 +112,30 @@ def summarise(rows, confidence=0.95, names=None):
                    median, [dict(r, label=lab) for r, lab in zip(rows, labels)], names)
 
 
+# Events that change a member's bodies (runs with `method.encounters = "switch"`).
+BODY_EVENTS = ("merger", "ejection", "star_merger")
+
+
+def event_counts(events, n_members, names=None):
+    """Members by what happened to their bodies: {"merger: b, c": members, ...,
+    "kept every body": members}, from (job id, kind, bodies) event rows; a member
+    counts once per label however often it happened to it."""
+    from orbitledger.runner.inputs.text import body_list
+
+    seen = {}
+    touched = set()
+    for job_id, kind, bodies in events:
+        label = kind
+        if bodies and names:
+            label += ": " + ", ".join(str(b) for b in body_list(bodies, names))
+        seen.setdefault(label, set()).add(job_id)
+        touched.add(job_id)
+    out = {label: len(ids) for label, ids in sorted(seen.items())}
+    if out:
+        out["kept every body"] = n_members - len(touched)
+    return out
+
+
 def member_bodies(row, names=None):
     """The bodies of a member's stop, by name (empty when it did not stop).
 

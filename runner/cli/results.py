@@ -27,14 +27,18 @@ def outcomes(ensemble_id: Annotated[int, typer.Argument(help="Ensemble id.", min
     from orbitledger.runner.inputs.text import format_time
     from orbitledger.runner.presentation import plots
 
+    from orbitledger.runner.analysis.outcomes import BODY_EVENTS, event_counts
+
     with open_ledger(workspace, db) as ledger:
         ens = ledger.ensemble(ensemble_id)
-        s = summarise(ledger.member_outcomes(ensemble_id),
-                      names=body_names_from_json(ens["spec_json"]))
+        names = body_names_from_json(ens["spec_json"])
+        s = summarise(ledger.member_outcomes(ensemble_id), names=names)
+        happened = event_counts(ledger.member_events(ensemble_id, BODY_EVENTS), s.n, names)
         if as_json:
             from orbitledger.runner.presentation.records import outcomes_record
 
-            print_json(outcomes_record(ensemble_id, ens["name"], s))
+            print_json(dict(outcomes_record(ensemble_id, ens["name"], s),
+                            body_events=happened))
             return
         t = Table(title=f"Ensemble {ensemble_id}: {ens['name']} ({s.n} members)",
                   header_style="bold")
@@ -48,6 +52,14 @@ def outcomes(ensemble_id: Annotated[int, typer.Argument(help="Ensemble id.", min
                   f"interval {s.ci[0]:.3f}-{s.ci[1]:.3f}; median time to instability "
                   + ("not reached" if s.median is None else format_time(s.median * 365.25))
                   + " (Kaplan-Meier, unfinished members censored)")
+        if happened:
+            ev = Table(title="What happened to the members' bodies (through encounters)",
+                       header_style="bold")
+            ev.add_column("event")
+            ev.add_column("members")
+            for label, k in happened.items():
+                ev.add_row(label, str(k))
+            out.print(ev)
         if plot is not None:
             if plot.suffix.lower() not in (".png", ".svg"):
                 fail(f"--plot must end in .png or .svg, got {plot.name!r}.")
@@ -368,16 +380,19 @@ def plot(job_id: JobArg, to: Annotated[Path, typer.Option(help="Image file (.png
         fail(f"--kind must be 'energy', 'elements' or 'megno', got {kind!r}.")
     if to.suffix.lower() not in (".png", ".svg"):
         fail(f"--to must end in .png or .svg, got {to.name!r}.")
+    from orbitledger.runner.presentation.html import event_marks
+
     with open_ledger(workspace, db) as ledger:
         row = ledger.job(job_id)
         samples = ledger.store.read_samples(job_id, row["n_samples"])
         names = ledger.store.body_names(job_id)[1:]
+        marks = event_marks(ledger, job_id, samples)
     title = f"job {job_id}: {row['name']}"
     if kind == "megno" and "megno" not in samples:
         fail(f"job {job_id} carries no chaos indicator; submit it with "
              "`method.indicator = \"megno\"` to have one.")
-    fig = (plots.energy_figure(samples, title) if kind == "energy" else
-           plots.elements_figure(samples, names, title) if kind == "elements" else
+    fig = (plots.energy_figure(samples, title, marks) if kind == "energy" else
+           plots.elements_figure(samples, names, title, marks) if kind == "elements" else
            plots.megno_figure(samples, title))
     plots.save(fig, to)
     out.print(f"plot written to {to}")

@@ -79,6 +79,15 @@ class Reading:
             return [dict(r) for r in conn.execute(select(*cols).where(
                 jobs.c.ensemble_id == ensemble_id).order_by(jobs.c.id)).mappings()]
 
+    def member_events(self, ensemble_id, kinds):
+        """(job id, kind, bodies) of the events of these kinds in an ensemble's members."""
+        q = (select(events.c.job_id, events.c.kind, events.c.bodies)
+             .select_from(events.join(jobs, jobs.c.id == events.c.job_id))
+             .where(and_(jobs.c.ensemble_id == ensemble_id, events.c.kind.in_(list(kinds))))
+             .order_by(events.c.id))
+        with self.engine.connect() as conn:
+            return [tuple(r) for r in conn.execute(q)]
+
     def n_jobs(self):
         """Number of jobs in the ledger."""
         with self.engine.connect() as conn:

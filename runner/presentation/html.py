@@ -178,6 +178,23 @@ def _particles_section(ledger, job_id, title):
             + f"<img alt='test particles' src='{plots.png_data_uri(fig)}'>")
 
 
+def event_marks(ledger, job_id, samples):
+    """(days since the first sample, label) of a job's mergers and ejections, for plots."""
+    from orbitledger.runner.analysis.outcomes import BODY_EVENTS
+    from orbitledger.runner.inputs.text import body_list
+
+    if not len(samples.get("time", ())):
+        return []
+    names = ledger.store.body_names(job_id)
+    t0 = float(samples["time"][0])
+    out = []
+    for e in ledger.events(job_id):
+        if e["kind"] in BODY_EVENTS and e["time"] is not None:
+            who = ", ".join(map(str, body_list(e["bodies"], names)))
+            out.append((abs(float(e["time"]) - t0), f"{e['kind']} ({who})"))
+    return out
+
+
 def job_report(ledger, job_id, compare_with=None):
     """The report page (str) of a job, optionally with its divergence from another job."""
     from orbitledger.runner.analysis.integrity import verify
@@ -210,6 +227,7 @@ def job_report(ledger, job_id, compare_with=None):
                  "-" if v.projected is None else f"{v.projected:.3e}", v.verdict)
                 for v in audit_job(ledger, job_id)]
     title = f"job {job_id}: {row['name']}"
+    marks = event_marks(ledger, job_id, samples)
     sections = [
         ("Summary", plots.kv_html(status)),
         ("Inputs", _spec_tables(spec, row)),
@@ -221,9 +239,9 @@ def job_report(ledger, job_id, compare_with=None):
          + plots.table_html(["quantity", "max so far", "budget", "growth t^alpha",
                              "projected at end", "verdict"], verdicts)),
         ("Energy error", f"<img alt='energy error' src='"
-                         f"{plots.png_data_uri(plots.energy_figure(samples, title))}'>"),
-        ("Orbital elements", f"<img alt='elements' src='"
-                             f"{plots.png_data_uri(plots.elements_figure(samples, names[1:], title))}'>"),
+                         f"{plots.png_data_uri(plots.energy_figure(samples, title, marks))}'>"),
+        ("Orbital elements", "<img alt='elements' src='" + plots.png_data_uri(
+            plots.elements_figure(samples, names[1:], title, marks)) + "'>"),
     ]
     chaos = chaos_text(ledger, job_id, samples)
     if chaos is not None:

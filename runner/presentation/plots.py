@@ -161,8 +161,20 @@ def _plain_ticks(ax):
     ax.ticklabel_format(axis="x", style="plain", useOffset=False)
 
 
-def energy_figure(samples, title):
-    """|dE/E| against time on log-log axes, with a t^(1/2) reference line."""
+def _marks(axes, marks, scale=1.0):
+    """Vertical lines at events: marks are (days since the start, label), drawn at
+    days / scale."""
+    done = set()
+    for t, label in marks or ():
+        for ax in axes:
+            ax.axvline(t / scale, color="crimson", lw=0.8, ls=":",
+                       label=label if label not in done and ax is axes[0] else None)
+        done.add(label)
+
+
+def energy_figure(samples, title, marks=None):
+    """|dE/E| against time on log-log axes, with a t^(1/2) reference line and the
+    events (mergers, ejections) marked."""
     plt = _figure()
     fig, ax = plt.subplots(figsize=(7, 4.2), dpi=110)
     t = np.abs(samples["time"] - samples["time"][0]) / 365.25
@@ -173,6 +185,7 @@ def energy_figure(samples, title):
         t0, e0 = t[keep][0], np.median(e[keep][: max(3, keep.sum() // 50)])
         ref = e0 * np.sqrt(t[keep] / t0)
         ax.loglog(t[keep], ref, "--", color="gray", label="t^1/2 (Brouwer 1937)")
+    _marks([ax], [(tm, lab) for tm, lab in (marks or ()) if tm > 0], 365.25)
     ax.set_xlabel("time (yr)")
     ax.set_ylabel("relative energy error")
     ax.set_title(title)
@@ -181,11 +194,16 @@ def energy_figure(samples, title):
     return fig
 
 
-def elements_figure(samples, names, title):
-    """Semi-major axis, eccentricity and inclination of every body against time."""
+def elements_figure(samples, names, title, marks=None):
+    """Semi-major axis, eccentricity and inclination of every body against time (a
+    removed or merged body's curve ends there), events marked."""
+    from orbitledger.runner.inputs.text import time_unit
+
     plt = _figure()
     fig, axes = plt.subplots(3, 1, figsize=(7, 7), dpi=110, sharex=True)
-    t, xlabel = _time_axis(samples["time"] - samples["time"][0])
+    days = samples["time"] - samples["time"][0]
+    t, xlabel = _time_axis(days)
+    _marks(list(axes), marks, time_unit(float(np.abs(days).max()) if days.size else 0.0)[1])
     for b, name in enumerate(names):
         for ax, k in zip(axes, (0, 1, 2)):
             ax.plot(t, samples["elements"][:, b, k], lw=0.8, label=name)
