@@ -114,9 +114,11 @@ node = "200 deg"
 
 
 def test_a_switching_job_killed_inside_its_stretches_resumes_bit_for_bit(tmp_path):
-    # Real worker processes killed by SIGKILL at named failpoints and at random moments
-    # (some inside Gauss-Radau stretches): the run, its samples and its switch and merger
-    # events in the ledger equal an uninterrupted run's, and verify passes.
+    # Real worker processes killed by SIGKILL right after each of the first 25 commits
+    # (so every checkpoint through the scattering is a resumption point; the one at step
+    # 13200 falls inside a Gauss-Radau stretch), then at random moments: the run, its samples and
+    # its switch and merger events in the ledger equal an uninterrupted run's, and
+    # verify passes.
     import os
     import random
     import signal
@@ -130,7 +132,7 @@ def test_a_switching_job_killed_inside_its_stretches_resumes_bit_for_bit(tmp_pat
     from orbitledger.runner.ledger.operations import Ledger
     from orbitledger.runner.ledger.workspace import init
 
-    text = scatter_text(length="40000 yr")
+    text = scatter_text(length="1000 yr").replace('chunk = "4000 steps"', 'chunk = "1200 steps"')
     ref = Ledger(f"sqlite:///{tmp_path}/ref.sqlite", tmp_path / "ref-store")
     ref_id = ref.submit(load(text))
     Worker(ref).run()
@@ -138,7 +140,7 @@ def test_a_switching_job_killed_inside_its_stretches_resumes_bit_for_bit(tmp_pat
     jid = led.submit(load(text))
     rng = random.Random(23)
     kills = 0
-    for mode in ["mid_store_write:2", "in_commit:3", "first_step:1"] + [None] * 20:
+    for mode in ["after_commit:1"] * 25 + ["mid_store_write:2", "in_commit:3"] + [None] * 20:
         if led.job(jid)["status"] == "done":
             break
         env = dict(os.environ)
@@ -148,7 +150,7 @@ def test_a_switching_job_killed_inside_its_stretches_resumes_bit_for_bit(tmp_pat
         proc = subprocess.Popen([sys.executable, "-m", "orbitledger.runner.cli", "work",
                                  "--workspace", str(ws), "--quiet", "--lease", "5"], cwd=ROOT,
                                 env=env, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
-        if mode is None and kills < 6:
+        if mode is None and kills < 30:
             time.sleep(rng.uniform(0.8, 1.6))
             if proc.poll() is None:
                 proc.send_signal(signal.SIGKILL)
@@ -156,7 +158,13 @@ def test_a_switching_job_killed_inside_its_stretches_resumes_bit_for_bit(tmp_pat
         kills += rc == -signal.SIGKILL
         assert rc in (0, 3, -signal.SIGKILL), proc.stderr.read()
     assert led.job(jid)["status"] == "done"
-    assert kills >= 3, kills
+    assert kills >= 25, kills
+    # Some resumption started inside a Gauss-Radau stretch (method 1 in the state).
+    modes = []
+    for seg in led.segments(jid)[1:]:
+        ck = next(c for c in led.checkpoints(jid) if c["step"] == seg["start_step"])
+        modes.append(int(led.load_integrator(jid, ck["idx"])[0].mode))
+    assert 1 in modes and 0 in modes, modes
     assert final_state(led, jid) == final_state(ref, ref_id)
     assert samples_bytes(led, jid) == samples_bytes(ref, ref_id)
     rep = verify(led, jid)
