@@ -169,6 +169,10 @@ def test_a_switching_job_killed_inside_its_stretches_resumes_bit_for_bit(tmp_pat
     assert samples_bytes(led, jid) == samples_bytes(ref, ref_id)
     rep = verify(led, jid)
     assert rep.ok, rep.problem
+    # Replay: every stretch from one checkpoint to the next, again from its state.
+    from orbitledger.runner.analysis.integrity import replay
+
+    assert all(ok for _, ok in replay(led, jid, indices=range(8, 16)))
 
     def story(ledger, job_id):
         return [(e["kind"], e["step"], e["bodies"]) for e in ledger.events(job_id)

@@ -148,6 +148,9 @@ def show_tables(ledger, job_id):
     ]
     fields.insert(1 + [k for k, _ in fields].index("method"),
                   ("step resolution", _step_resolution(row)))
+    story = _encounter_story(ledger, job_id)
+    if story:
+        fields.insert(1 + [k for k, _ in fields].index("method"), ("through encounters", story))
     if spec.get("particles"):
         fields.insert(1 + [k for k, _ in fields].index("bodies"),
                       ("test particles", particles_text(spec["particles"])))
@@ -171,6 +174,23 @@ def show_tables(ledger, job_id):
                   f"({(ver.get('source_commit') or 'no commit')[:12]}), numba {ver.get('numba')}, "
                   f"numpy {ver.get('numpy')}")
     return t, p, segs
+
+
+def _encounter_story(ledger, job_id):
+    """One line on a switching run's stretches of Gauss-Radau and its events, or ""."""
+    evs = [e for e in ledger.events(job_id) if e["kind"] in (
+        "switch_to_gauss_radau", "merger", "ejection", "star_merger")]
+    if not evs:
+        return ""
+    names = json.loads(ledger.job(job_id)["spec_json"])["system"]
+    names = [names["star"]["name"]] + [b["name"] for b in names["bodies"]]
+    stretches = sum(e["kind"] == "switch_to_gauss_radau" for e in evs)
+    parts = [f"{stretches} stretch{'es' if stretches != 1 else ''} of Gauss-Radau"]
+    for e in evs:
+        if e["kind"] != "switch_to_gauss_radau":
+            who = ", ".join(map(str, body_list(e["bodies"], names)))
+            parts.append(f"{e['kind']} of {who} at {format_time(abs(e['time'] or 0.0))}")
+    return "; ".join(parts)
 
 
 def particles_text(ps):
