@@ -127,6 +127,28 @@ class Integrator:
             out_g[row0:rows, 0] -= self.sample_offset  # the kernels count from the offset
         return self._result(steps, code, a, b), int(rows)
 
+    def _advance_outputs(self, n, every, out_g, out_el, row0, frames):
+        """Sampled advance for methods that sample between calls rather than inside
+        their loop: ``frames(k, at)`` advances k steps from step number ``at`` and
+        returns (steps, code, a, b); the synchronized state is diagnosed at every
+        step whose number plus ``sample_offset`` is a multiple of `every`. Returns
+        what ``_advance_impl`` does."""
+        done, rows = 0, row0
+        while done < n:
+            to_next = every - (self.step + self.sample_offset + done) % every
+            steps, code, a, b = frames(min(to_next, n - done), self.step + done)
+            done += steps
+            if code:
+                return done, code, a, b, rows
+            if (self.step + self.sample_offset + done) % every == 0:
+                saved = self.step
+                self.step += done
+                e, lx, ly, lz = self.diagnose_into(out_el[rows])
+                self.step = saved
+                out_g[rows] = (saved + self.sample_offset + done, e, lx, ly, lz)
+                rows += 1
+        return done, 0, -1, -1, rows
+
     @staticmethod
     def _check_steps(n_steps):
         n_steps = int(n_steps)

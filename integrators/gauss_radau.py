@@ -416,22 +416,8 @@ class GaussRadau(Integrator):
                 self._stop_pairs, self._stop_params, self._mu, self._hx, self._hv, self._rh,
                 self.comp[0], self.comp[1], cxo, cvo, self._contact)
             return steps, code, a, b, row0
-        done, rows = 0, row0
-        while done < n:
-            to_next = every - (self.step + self.sample_offset + done) % every
-            chunk = min(to_next, n - done)
-            steps, code, a, b, _ = self._advance_impl(chunk)
-            done += steps
-            if code:
-                return done, code, a, b, rows
-            if (self.step + self.sample_offset + done) % every == 0:
-                saved = self.step
-                self.step += done
-                e, lx, ly, lz = self.diagnose_into(out_el[rows])
-                self.step = saved
-                out_g[rows] = (saved + self.sample_offset + done, e, lx, ly, lz)
-                rows += 1
-        return done, 0, -1, -1, rows
+        return self._advance_outputs(n, every, out_g, out_el, row0,
+                                     lambda k, _at: self._advance_impl(k)[:4])
 
     def _synchronized_state(self):
         return self.x.copy(), self.v.copy()

@@ -77,22 +77,8 @@ class Leapfrog(Integrator):
                 self._stop_params, self._mu, self._acc, self._hx, self._hv, self._rh)
             return steps, code, a, b, row0
         # Sampled: advance output by output (leapfrog is for tests; speed is secondary).
-        done, rows = 0, row0
-        while done < n:
-            to_next = every - (self.step + self.sample_offset + done) % every
-            chunk = min(to_next, n - done)
-            steps, code, a, b, _ = self._advance_impl(chunk)
-            done += steps
-            if code:
-                return done, code, a, b, rows
-            if (self.step + self.sample_offset + done) % every == 0:
-                saved = self.step
-                self.step += done
-                e, lx, ly, lz = self.diagnose_into(out_el[rows])
-                self.step = saved
-                out_g[rows] = (saved + self.sample_offset + done, e, lx, ly, lz)
-                rows += 1
-        return done, 0, -1, -1, rows
+        return self._advance_outputs(n, every, out_g, out_el, row0,
+                                     lambda k, _at: self._advance_impl(k)[:4])
 
     def _synchronized_state(self):
         x = self.x.copy()

@@ -109,23 +109,9 @@ class Switching(Integrator):
                               "backward (its switches and events depend on the direction).")
 
     def _advance_impl(self, n, every=0, out_g=None, out_el=None, row0=0):
-        done, rows = 0, row0
-        while done < n:
-            chunk = n - done
-            if every:
-                chunk = min(chunk, every - (self.step + self.sample_offset + done) % every)
-            steps, code, a, b = self._frames(chunk, self.step + done)
-            done += steps
-            if code:
-                return done, code, a, b, rows
-            if every and (self.step + self.sample_offset + done) % every == 0:
-                saved = self.step
-                self.step += done
-                e, lx, ly, lz = self.diagnose_into(out_el[rows])
-                self.step = saved
-                out_g[rows] = (saved + self.sample_offset + done, e, lx, ly, lz)
-                rows += 1
-        return done, 0, -1, -1, rows
+        if not every:
+            return self._frames(n, self.step) + (row0,)
+        return self._advance_outputs(n, every, out_g, out_el, row0, self._frames)
 
     def _frames(self, n, step0):
         """Advance n steps from step step0 through switches and events; returns (steps,

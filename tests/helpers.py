@@ -124,3 +124,32 @@ quantity = "e"
 rule = "step"
 size = 0.002
 """
+
+
+def run_with_kills(ws, led, jid, modes, rng, random_kills=8, pause=(1.0, 2.0)):
+    """Run `orbitledger work` on workspace ws until job jid is done, really killing its
+    processes: one process per entry of `modes` (a failpoint spec such as
+    "in_commit:1", or None: SIGKILL at a random moment, while fewer than `random_kills`
+    kills happened), then plain runs. Returns how many processes were SIGKILLed."""
+    import signal
+    import time
+
+    kills = 0
+    for mode in list(modes) + [None] * 20:
+        if led.job(jid)["status"] == "done":
+            break
+        env = dict(os.environ)
+        env.pop("ORBITLEDGER_FAILPOINTS", None)
+        if mode:
+            env["ORBITLEDGER_FAILPOINTS"] = mode
+        proc = subprocess.Popen([sys.executable, "-m", "orbitledger.runner.cli", "work",
+                                 "--workspace", str(ws), "--quiet", "--lease", "5"], cwd=ROOT,
+                                env=env, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
+        if mode is None and kills < random_kills:
+            time.sleep(rng.uniform(*pause))
+            if proc.poll() is None:
+                proc.send_signal(signal.SIGKILL)
+        rc = proc.wait(timeout=300)
+        kills += rc == -signal.SIGKILL
+        assert rc in (0, 3, -signal.SIGKILL), proc.stderr.read()
+    return kills

@@ -192,14 +192,9 @@ def test_a_radau_job_killed_at_random_moments_resumes_bit_for_bit(tmp_path):
     # the substep sizes, the predictor and the compensation terms are state, so the run
     # equals an uninterrupted one byte for byte, and verify passes. An invented star,
     # Pellar, with a planet on an e = 0.95 orbit (the map's weak case).
-    import os
     import random
-    import signal
-    import subprocess
-    import sys
-    import time
 
-    from helpers import ROOT, final_state, samples_bytes
+    from helpers import final_state, run_with_kills, samples_bytes
     from orbitledger.runner.analysis.integrity import verify
     from orbitledger.runner.execution.worker import Worker
     from orbitledger.runner.inputs import spec as S
@@ -212,25 +207,8 @@ def test_a_radau_job_killed_at_random_moments_resumes_bit_for_bit(tmp_path):
     Worker(ref).run()
     ws, led = init(tmp_path / "ws")
     jid = led.submit(S.load_text(text))
-    rng = random.Random(5)
-    kills = 0
-    for mode in ["mid_store_write:1", "in_commit:1", "first_step:1"] + [None] * 20:
-        if led.job(jid)["status"] == "done":
-            break
-        env = dict(os.environ)
-        env.pop("ORBITLEDGER_FAILPOINTS", None)
-        if mode:
-            env["ORBITLEDGER_FAILPOINTS"] = mode
-        proc = subprocess.Popen([sys.executable, "-m", "orbitledger.runner.cli", "work",
-                                 "--workspace", str(ws), "--quiet", "--lease", "5"], cwd=ROOT,
-                                env=env, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
-        if mode is None and kills < 6:
-            time.sleep(rng.uniform(1.0, 2.0))
-            if proc.poll() is None:
-                proc.send_signal(signal.SIGKILL)
-        rc = proc.wait(timeout=300)
-        kills += rc == -signal.SIGKILL
-        assert rc in (0, 3, -signal.SIGKILL), proc.stderr.read()
+    kills = run_with_kills(ws, led, jid, ["mid_store_write:1", "in_commit:1", "first_step:1"],
+                           random.Random(5), random_kills=6)
     assert led.job(jid)["status"] == "done"
     assert kills >= 3, kills
     assert final_state(led, jid) == final_state(ref, ref_id)

@@ -2,7 +2,6 @@
 shadow-orbit estimate written here without the project's variational code."""
 
 import math
-import time
 
 import numpy as np
 import pytest
@@ -255,13 +254,9 @@ def test_a_job_with_megno_killed_at_random_moments_resumes_bit_for_bit(tmp_path)
     # Real worker processes killed by SIGKILL (at named failpoints and at
     # random times); the tangent vector and the sums are part of the state, so
     # the result equals an uninterrupted run byte for byte, and verify passes.
-    import os
     import random
-    import signal
-    import subprocess
-    import sys
 
-    from helpers import ROOT, final_state, samples_bytes
+    from helpers import final_state, run_with_kills, samples_bytes
     from orbitledger.runner.analysis.integrity import verify
     from orbitledger.runner.execution.worker import Worker
     from orbitledger.runner.inputs import spec as S
@@ -274,26 +269,8 @@ def test_a_job_with_megno_killed_at_random_moments_resumes_bit_for_bit(tmp_path)
     Worker(ref).run()
     ws, led = init(tmp_path / "ws")
     jid = led.submit(S.load_text(text))
-    rng = random.Random(7)
-    kills = 0
     points = ["mid_store_write:1", "in_commit:1", "first_step:1", None, None, None]
-    for mode in points + [None] * 20:
-        if led.job(jid)["status"] == "done":
-            break
-        env = dict(os.environ)
-        env.pop("ORBITLEDGER_FAILPOINTS", None)
-        if mode:
-            env["ORBITLEDGER_FAILPOINTS"] = mode
-        proc = subprocess.Popen([sys.executable, "-m", "orbitledger.runner.cli", "work",
-                                 "--workspace", str(ws), "--quiet", "--lease", "5"], cwd=ROOT,
-                                env=env, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
-        if mode is None and kills < 8:
-            time.sleep(rng.uniform(1.0, 2.0))
-            if proc.poll() is None:
-                proc.send_signal(signal.SIGKILL)
-        rc = proc.wait(timeout=300)
-        kills += rc == -signal.SIGKILL
-        assert rc in (0, 3, -signal.SIGKILL), proc.stderr.read()
+    kills = run_with_kills(ws, led, jid, points, random.Random(7), random_kills=8)
     assert led.job(jid)["status"] == "done"
     assert kills >= 4, kills
     assert final_state(led, jid) == final_state(ref, ref_id)

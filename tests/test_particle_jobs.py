@@ -193,14 +193,9 @@ def test_a_job_with_particles_killed_at_random_moments_resumes_bit_for_bit(tmp_p
     # Real worker processes killed by SIGKILL (at named failpoints and at random times):
     # particles, their removals and their sampled elements equal an uninterrupted run
     # byte for byte, and verify passes.
-    import os
     import random
-    import signal
-    import subprocess
-    import sys
-    import time
 
-    from helpers import ROOT, final_state, samples_bytes
+    from helpers import final_state, run_with_kills, samples_bytes
     from orbitledger.runner.analysis.integrity import verify
     from orbitledger.runner.execution.worker import Worker
     from orbitledger.runner.ledger.operations import Ledger
@@ -212,26 +207,8 @@ def test_a_job_with_particles_killed_at_random_moments_resumes_bit_for_bit(tmp_p
     Worker(ref).run()
     ws, led = init(tmp_path / "ws")
     jid = led.submit(load(text))
-    rng = random.Random(17)
-    kills = 0
     points = ["mid_store_write:1", "in_commit:1", "first_step:1", None, None, None]
-    for mode in points + [None] * 20:
-        if led.job(jid)["status"] == "done":
-            break
-        env = dict(os.environ)
-        env.pop("ORBITLEDGER_FAILPOINTS", None)
-        if mode:
-            env["ORBITLEDGER_FAILPOINTS"] = mode
-        proc = subprocess.Popen([sys.executable, "-m", "orbitledger.runner.cli", "work",
-                                 "--workspace", str(ws), "--quiet", "--lease", "5"], cwd=ROOT,
-                                env=env, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
-        if mode is None and kills < 8:
-            time.sleep(rng.uniform(1.0, 2.0))
-            if proc.poll() is None:
-                proc.send_signal(signal.SIGKILL)
-        rc = proc.wait(timeout=300)
-        kills += rc == -signal.SIGKILL
-        assert rc in (0, 3, -signal.SIGKILL), proc.stderr.read()
+    kills = run_with_kills(ws, led, jid, points, random.Random(17), random_kills=8)
     assert led.job(jid)["status"] == "done"
     assert kills >= 4, kills
     assert final_state(led, jid) == final_state(ref, ref_id)

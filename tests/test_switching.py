@@ -119,14 +119,9 @@ def test_a_switching_job_killed_inside_its_stretches_resumes_bit_for_bit(tmp_pat
     # 13200 falls inside a Gauss-Radau stretch), then at random moments: the run, its samples and
     # its switch and merger events in the ledger equal an uninterrupted run's, and
     # verify passes.
-    import os
     import random
-    import signal
-    import subprocess
-    import sys
-    import time
 
-    from helpers import ROOT, final_state, samples_bytes
+    from helpers import final_state, run_with_kills, samples_bytes
     from orbitledger.runner.analysis.integrity import verify
     from orbitledger.runner.execution.worker import Worker
     from orbitledger.runner.ledger.operations import Ledger
@@ -138,25 +133,9 @@ def test_a_switching_job_killed_inside_its_stretches_resumes_bit_for_bit(tmp_pat
     Worker(ref).run()
     ws, led = init(tmp_path / "ws")
     jid = led.submit(load(text))
-    rng = random.Random(23)
-    kills = 0
-    for mode in ["after_commit:1"] * 25 + ["mid_store_write:2", "in_commit:3"] + [None] * 20:
-        if led.job(jid)["status"] == "done":
-            break
-        env = dict(os.environ)
-        env.pop("ORBITLEDGER_FAILPOINTS", None)
-        if mode:
-            env["ORBITLEDGER_FAILPOINTS"] = mode
-        proc = subprocess.Popen([sys.executable, "-m", "orbitledger.runner.cli", "work",
-                                 "--workspace", str(ws), "--quiet", "--lease", "5"], cwd=ROOT,
-                                env=env, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
-        if mode is None and kills < 30:
-            time.sleep(rng.uniform(0.8, 1.6))
-            if proc.poll() is None:
-                proc.send_signal(signal.SIGKILL)
-        rc = proc.wait(timeout=300)
-        kills += rc == -signal.SIGKILL
-        assert rc in (0, 3, -signal.SIGKILL), proc.stderr.read()
+    modes = ["after_commit:1"] * 25 + ["mid_store_write:2", "in_commit:3"]
+    kills = run_with_kills(ws, led, jid, modes, random.Random(23), random_kills=30,
+                           pause=(0.8, 1.6))
     assert led.job(jid)["status"] == "done"
     assert kills >= 25, kills
     # Some resumption started inside a Gauss-Radau stretch (method 1 in the state).
