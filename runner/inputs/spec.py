@@ -37,10 +37,9 @@ class StarSpec(_Strict):
     radius: str | None = None
 
 
-class BodySpec(_Strict):
-    name: str
-    mass: str
-    radius: str | None = None
+class _Orbit(_Strict):
+    """Where a body or a particle starts: orbital elements, or a state vector."""
+
     a: str | None = None
     e: float | None = None
     i: str = "0 deg"
@@ -49,6 +48,12 @@ class BodySpec(_Strict):
     mean_anomaly: str = "0 deg"
     position: list[str] | None = None
     velocity: list[str] | None = None
+
+
+class BodySpec(_Orbit):
+    name: str
+    mass: str
+    radius: str | None = None
 
 
 class EphemerisSpec(_Strict):
@@ -207,18 +212,10 @@ class EnsembleSpec(_Strict):
         return self
 
 
-class ParticleSpec(_Strict):
+class ParticleSpec(_Orbit):
     """One listed test particle: heliocentric elements about the star, or a state."""
 
     name: str | None = None
-    a: str | None = None
-    e: float | None = None
-    i: str = "0 deg"
-    node: str = "0 deg"
-    peri: str = "0 deg"
-    mean_anomaly: str = "0 deg"
-    position: list[str] | None = None
-    velocity: list[str] | None = None
 
 
 class DrawnParticlesSpec(_Strict):
