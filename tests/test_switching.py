@@ -255,3 +255,28 @@ size = "20 deg"
     assert cli("plot", str(min(merged)), "--workspace", ws, "--kind", "elements",
                "--to", tmp_path / "m.png").returncode == 0
     assert (tmp_path / "m.png").stat().st_size > 10_000
+
+
+def test_a_switching_job_extended_equals_one_run_to_the_later_end(tmp_path):
+    # Extended from 300 yr (inside the scattering) to 600 yr, the job ends in the same
+    # state, with the same samples and events, as one run straight to 600 yr.
+    from helpers import final_state, samples_bytes
+    from orbitledger.runner.execution.worker import Worker
+    from orbitledger.runner.ledger.operations import Ledger
+
+    led = Ledger(f"sqlite:///{tmp_path}/l.sqlite", tmp_path / "store")
+    short = led.submit(load(scatter_text(length="300 yr")))
+    whole = led.submit(load(scatter_text(length="600 yr")))
+    Worker(led).run()
+    led.extend(short, led.job(whole)["total_steps"])
+    Worker(led).run()
+    assert led.job(short)["status"] == led.job(whole)["status"] == "done"
+    assert final_state(led, short) == final_state(led, whole)
+    assert samples_bytes(led, short) == samples_bytes(led, whole)
+
+    def story(job_id):
+        return [(e["kind"], e["step"], e["bodies"]) for e in led.events(job_id)
+                if e["kind"] in EVENT_NAMES.values()]
+
+    assert story(short) == story(whole) and any(k == "merger" for k, _, _ in story(whole))
+    led.close()
