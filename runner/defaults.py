@@ -29,6 +29,11 @@ DEFAULT_CHUNK_OUTPUTS = 1_000
 # checkpoint writes them (refused at submit above this): keeps a worker's
 # memory bounded whatever the plan.
 MAX_CHUNK_SAMPLE_BYTES = 64_000_000
+# A chunk whose samples are at most this many bytes is committed on the
+# worker's helper thread while the kernel goes on (the next chunk, or the next
+# member of an ensemble); a larger one is committed before the kernel resumes,
+# so at most one small copy is ever in flight and memory stays bounded.
+OVERLAP_COMMIT_BYTES = 8_000_000
 # Samples per Zarr chunk along the sample dimension.
 SAMPLE_CHUNK = 1_024
 # Exit code of `work` when work remains (stopped by signal or deadline).

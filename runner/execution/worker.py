@@ -71,6 +71,7 @@ class Worker:
         self.heartbeat_seconds = float(heartbeat_seconds)
         self.slice_seconds = None if slice_seconds is None else float(slice_seconds)
         self.stop_requested = None
+        self._pending = None  # a member's hand-back committing on the helper thread
         self._use_flag = False
         self.failed = False
         self.results = []
@@ -91,16 +92,28 @@ class Worker:
     def run(self):
         """Work until nothing is claimable, a deadline, or a stop signal. Returns an exit code."""
         LOG.info("worker %s started", self.owner)
-        while not self._should_stop():
-            claim = self.ledger.claim(self.owner, now=self.clock(), job_id=self.job_id,
-                                      order=self.order, provenance=provenance.collect())
-            if claim is None:
-                LOG.info("nothing left to claim")
-                break
-            LOG.info("job %d claimed (fencing token %d)", claim.job_id, claim.fence)
-            status = self.run_claim(claim)
-            LOG.info("job %d: %s", claim.job_id, getattr(status, "value", status))
-            self.results.append((claim.job_id, status))
+        try:
+            while not self._should_stop():
+                claim = self.ledger.claim(self.owner, now=self.clock(), job_id=self.job_id,
+                                          order=self.order, provenance=provenance.collect())
+                if claim is None:
+                    if self._pending is not None:
+                        # The job being handed back may be the only one left.
+                        self._settle_pending()
+                        continue
+                    LOG.info("nothing left to claim")
+                    break
+                LOG.info("job %d claimed (fencing token %d)", claim.job_id, claim.fence)
+                status = self.run_claim(claim, overlap=True)
+                # At most one hand-back in flight: the one before this claim's
+                # has had this claim's whole chunk to finish.
+                self._settle_pending()
+                if isinstance(status, _Pending):
+                    self._pending = status
+                else:
+                    self._record(claim, status)
+        finally:
+            self._settle_pending()
         if self.stop_requested is not None:
             LOG.info("stopped by %s", self.stop_requested)
         elif self.deadline is not None and self.clock() >= self.deadline:
@@ -108,6 +121,21 @@ class Worker:
         code = self.exit_code()
         LOG.info("worker %s exits with code %d", self.owner, code)
         return code
+
+    def _record(self, claim, status):
+        LOG.info("job %d: %s", claim.job_id, getattr(status, "value", status))
+        self.results.append((claim.job_id, status))
+
+    def _settle_pending(self):
+        """Wait for the hand-back in flight, if any, and record how it ended."""
+        pending, self._pending = self._pending, None
+        if pending is None:
+            return
+        try:
+            status = pending.future.result().status
+        except Exception as err:  # noqa: BLE001 - mapped like a synchronous commit's errors
+            status = self._failed_claim(pending.claim, pending.seg, err)
+        self._record(pending.claim, status)
 
     def exit_code(self):
         """EXIT_WORK_REMAINS if stopped early with work left, EXIT_FAILED on failure, else 0."""
@@ -118,10 +146,13 @@ class Worker:
                 return defaults.EXIT_WORK_REMAINS
         return defaults.EXIT_FAILED if self.failed else 0
 
-    def run_claim(self, claim):
+    def run_claim(self, claim, overlap=False):
         """Integrate one claimed job until it ends, is interrupted or is fenced out.
 
-        Returns the job's status afterwards (or "fenced").
+        Returns the job's status afterwards (or "fenced"). With ``overlap``, a
+        member of an ensemble handed back after a chunk (breadth order) may be
+        returned as a :class:`_Pending` whose commit is still running on the
+        helper thread, so the caller can claim the next member meanwhile.
         """
         row = claim.job if claim.job is not None else self.ledger.job(claim.job_id)
         # The budget is plain numbers in the stored spec: no unit parsing (and
@@ -147,33 +178,39 @@ class Worker:
             seg = self.ledger.start_segment(claim, integ.step, provenance.collect(),
                                             now=self.clock())
         try:
-            status = self._chunks(claim, row, plan, integ, ck, seg)
-        except FencedError:
+            return self._chunks(claim, row, plan, integ, ck, seg, overlap)
+        except Exception as err:  # noqa: BLE001 - each kind is mapped below
+            return self._failed_claim(claim, seg, err)
+
+    def _failed_claim(self, claim, seg, err):
+        """What a claim that ended in an error leaves: the job's status (or "fenced").
+
+        A lost lease discards the uncommitted chunk; a numerical failure fails
+        the job with the reason (a rerun would fail the same way); store damage
+        holds it for the operator; anything else fails it and is re-raised.
+        """
+        if isinstance(err, FencedError):
             self.ledger.end_segment(seg, None, "fenced", now=self.clock())
             return "fenced"
-        except NumericalFailureError as err:
-            # Deterministic: a rerun would fail the same way, so the job is
-            # failed with the reason, never claimed again by itself.
+        if isinstance(err, NumericalFailureError):
             self.failed = True
             self.ledger.give_back(claim, now=self.clock(), status=JobStatus.FAILED,
                                   reason=str(err))
             self.ledger.end_segment(seg, None, "numerical_failure", now=self.clock())
             return JobStatus.FAILED
-        except StoreError as err:
+        if isinstance(err, StoreError):
             # Nothing beyond the last commit is lost; hold the job with the reason.
             self.ledger.give_back(claim, now=self.clock(), status=JobStatus.HELD,
                                   reason=f"checkpoint store failed: {err}")
             self.ledger.end_segment(seg, None, "store_error", now=self.clock())
             return JobStatus.HELD
-        except Exception as err:
-            self.failed = True
-            self.ledger.give_back(claim, now=self.clock(), status=JobStatus.FAILED,
-                                  reason=f"{type(err).__name__}: {err}")
-            self.ledger.end_segment(seg, None, "failed", now=self.clock())
-            raise
-        return status
+        self.failed = True
+        self.ledger.give_back(claim, now=self.clock(), status=JobStatus.FAILED,
+                              reason=f"{type(err).__name__}: {err}")
+        self.ledger.end_segment(seg, None, "failed", now=self.clock())
+        raise err
 
-    def _chunks(self, claim, row, plan, integ, ck, seg):
+    def _chunks(self, claim, row, plan, integ, ck, seg, overlap=False):
         job_id = claim.job_id
         e0 = row["energy0"]
         l0 = angmom0(row)
@@ -192,112 +229,173 @@ class Worker:
                           else min(self.max_steps_per_call, 100))
         layout = state_layout(integ.state_arrays())
         seen = len(getattr(integ, "events", ()))  # method switches and events already recorded
-        while True:
-            # Open the job's arrays and create the coming checkpoint's array
-            # on a helper thread while the kernel runs.
-            prepared = _helper().submit(self.ledger.store.prepare, job_id,
-                                        (idx + 1, claim.fence, layout))
-            chunk_end = min((integ.step // chunk + 1) * chunk, total)
-            buf.clear()
-            stop = None
-            request = None
-            interrupted = False
-            wall0 = self.clock()
-            step0 = integ.step
-            while integ.step < chunk_end:
-                n_call = min(chunk_end - integ.step, steps_per_call)
-                t_call = time.perf_counter()
-                res = buf.advance(integ, n_call, out)
-                # Kernel calls last about SLICE_SECONDS whatever the system's
-                # size, so signals and requests are seen within seconds. How
-                # the steps are sliced never changes the trajectory.
-                if self.slice_seconds is not None:
-                    per_step = (time.perf_counter() - t_call) / max(res.steps, 1)
-                    steps_per_call = max(1, min(self.max_steps_per_call, int(
-                        self.slice_seconds / max(per_step, 1e-9))))
-                failpoint("first_step")
-                if res.stopped:
-                    if res.kind == StopKind.NUMERICAL_FAILURE:
-                        raise NumericalFailureError(
-                            f"numerical failure at step {integ.step} (t = {integ.time:.6g} d): "
-                            "the state is no longer finite numbers (first seen in "
-                            f"{_body_names(integ, res.bodies)}; bodies at the same place, or a "
-                            "step far too long); nothing after the last checkpoint was kept")
-                    stop = res
-                    break
-                now = self.clock()
-                if now - last_beat >= self.heartbeat_seconds:
-                    request = self.ledger.heartbeat(claim, now=now)
-                    last_beat = now
-                    if request in ("hold", "cancel"):
+        pending = None  # the previous chunk's commit, running on the helper thread
+        try:
+            while True:
+                # Open the job's arrays and create the coming checkpoint's array
+                # on a helper thread while the kernel runs.
+                prepared = _helper().submit(self.ledger.store.prepare, job_id,
+                                            (idx + 1, claim.fence, layout))
+                chunk_end = min((integ.step // chunk + 1) * chunk, total)
+                buf.clear()
+                stop = None
+                request = None
+                interrupted = False
+                wall0 = self.clock()
+                step0 = integ.step
+                while integ.step < chunk_end:
+                    n_call = min(chunk_end - integ.step, steps_per_call)
+                    t_call = time.perf_counter()
+                    res = buf.advance(integ, n_call, out)
+                    # Kernel calls last about SLICE_SECONDS whatever the system's
+                    # size, so signals and requests are seen within seconds. How
+                    # the steps are sliced never changes the trajectory.
+                    if self.slice_seconds is not None:
+                        per_step = (time.perf_counter() - t_call) / max(res.steps, 1)
+                        steps_per_call = max(1, min(self.max_steps_per_call, int(
+                            self.slice_seconds / max(per_step, 1e-9))))
+                    failpoint("first_step")
+                    if res.stopped:
+                        if res.kind == StopKind.NUMERICAL_FAILURE:
+                            raise NumericalFailureError(
+                                f"numerical failure at step {integ.step} (t = {integ.time:.6g} d):"
+                                " the state is no longer finite numbers (first seen in "
+                                f"{_body_names(integ, res.bodies)}; bodies at the same place, or "
+                                "a step far too long); nothing after the last checkpoint was kept")
+                        stop = res
+                        break
+                    now = self.clock()
+                    if now - last_beat >= self.heartbeat_seconds:
+                        request = self.ledger.heartbeat(claim, now=now)
+                        last_beat = now
+                        if request in ("hold", "cancel"):
+                            interrupted = True
+                            break
+                    if self._should_stop():
                         interrupted = True
                         break
-                if self._should_stop():
-                    interrupted = True
-                    break
-                if self.progress is not None:
-                    self.progress(row, integ.step, _rate(integ, step0, wall0, self.clock()))
-            # Fence check right before touching the store (read only; the
-            # commit that follows renews the lease).
-            self.ledger.check_fence(claim)
-            block = buf.block()
-            here = sample_now(integ, e0, l0)
-            e_err = float(abs(here["energy_error"][0]))
-            l_err = float(here["angmom_error"][0])
-            if len(block["time"]):
-                max_e = max(max_e, float(np.abs(block["energy_error"]).max()))
-                max_l = max(max_l, float(block["angmom_error"].max()))
-            max_e, max_l = max(max_e, e_err), max(max_l, l_err)
-            prepared.result()  # re-raises a StoreError from the helper
-            failpoint("before_store_write")
-            # Samples and checkpoint in one batch ("mid_store_write" fires
-            # inside it, after the writes and before the fsyncs).
-            s_hash, st_hash = self.ledger.store.write_chunk(
-                job_id, n_samples, block, idx + 1, claim.fence, integ.state_arrays())
-            failpoint("after_store_write")
-            then, outcome, reason = "continue", None, None
-            if stop is not None:
-                then = "stopped"
-                outcome = (stop.kind.value, integ.step, integ.time, stop.bodies)
-            elif integ.step >= total:
-                then = "done"
-            elif interrupted and request is None:
-                then = "release"
-            elif self.order == "breadth" and row["ensemble_id"] is not None:
-                # Fair progress: hand the member back after each chunk so the
-                # least advanced member is always the next one worked on.
-                then = "release"
-            over = _over_budget(plan, max_e, max_l)
-            if over and then != "stopped" and plan.on_exceed != "continue":
-                if plan.on_exceed == "hold":
-                    then, reason = "held", over
-                else:
-                    then, reason = "stopped", over
-                    outcome = ("over_budget", integ.step, integ.time, ())
-            wall = self.clock() - wall0
-            new_events = _new_events(integ, seen)
-            result = self.ledger.commit_checkpoint(
-                claim, idx=idx + 1, step=integ.step, time_=integ.time, state_hash=st_hash,
-                samples_hash=s_hash, n_samples=n_samples + len(block["time"]),
-                energy_error=e_err, angmom_error=l_err, max_energy_error=max_e,
-                max_angmom_error=max_l, then=then, outcome=outcome, reason=reason,
-                segment_id=seg, wall_seconds=wall, rate=_rate(integ, step0, wall0, self.clock()),
-                now=self.clock(), events=new_events)
-            seen += len(new_events)
-            idx += 1
-            n_samples += len(block["time"])
-            total = result.total_steps
-            if LOG.isEnabledFor(logging.INFO):
-                rate = _rate(integ, step0, wall0, self.clock())
-                LOG.info("job %d checkpoint %d at step %d, t = %.6g yr (%.3g%%), %s",
-                         job_id, idx, integ.step, abs(integ.time) / 365.25,
-                         100.0 * integ.step / total if total else 100.0,
-                         "rate unknown" if rate is None else f"{rate * 3600 / 365.25e6:.3g} Myr/h")
-            if result.status != JobStatus.RUNNING:
-                if result.status in (JobStatus.DONE, JobStatus.STOPPED, JobStatus.CANCELLED):
-                    # Finished: leave exactly the committed rows for readers.
-                    self.ledger.store.trim_samples(job_id, n_samples, claim.fence)
-                return result.status
+                    if self.progress is not None:
+                        self.progress(row, integ.step, _rate(integ, step0, wall0, self.clock()))
+                if pending is not None:
+                    # The previous chunk's commit decides whether this one counts:
+                    # a hold or cancel applied there ends the claim, and this
+                    # chunk, never committed, is discarded.
+                    result, pending = pending.result(), None
+                    total = result.total_steps
+                    if result.status != JobStatus.RUNNING:
+                        return result.status
+                block = buf.block()
+                here = sample_now(integ, e0, l0)
+                e_err = float(abs(here["energy_error"][0]))
+                l_err = float(here["angmom_error"][0])
+                if len(block["time"]):
+                    max_e = max(max_e, float(np.abs(block["energy_error"]).max()))
+                    max_l = max(max_l, float(block["angmom_error"].max()))
+                max_e, max_l = max(max_e, e_err), max(max_l, l_err)
+                then, outcome, reason = "continue", None, None
+                if stop is not None:
+                    then = "stopped"
+                    outcome = (stop.kind.value, integ.step, integ.time, stop.bodies)
+                elif integ.step >= total:
+                    then = "done"
+                elif interrupted and request is None:
+                    then = "release"
+                elif self.order == "breadth" and row["ensemble_id"] is not None:
+                    # Fair progress: hand the member back after each chunk so the
+                    # least advanced member is always the next one worked on.
+                    then = "release"
+                over = _over_budget(plan, max_e, max_l)
+                if over and then != "stopped" and plan.on_exceed != "continue":
+                    if plan.on_exceed == "hold":
+                        then, reason = "held", over
+                    else:
+                        then, reason = "stopped", over
+                        outcome = ("over_budget", integ.step, integ.time, ())
+                new_events = _new_events(integ, seen)
+                # The chunk's commit may run on the helper thread while the
+                # kernel goes on, when it is small and the claim goes on: the
+                # next chunk of this job (its commit waits for this one's, and
+                # is discarded if this one fails or ends the claim), or, handing
+                # a member back, the next member. Anything else (the end, a
+                # stop, a signal, a request) is committed before going on.
+                nbytes = sum(v.nbytes for v in block.values())
+                behind = (not interrupted and nbytes <= defaults.OVERLAP_COMMIT_BYTES
+                          and (then == "continue" or (then == "release" and overlap)))
+                if behind:
+                    block = {k: v.copy() for k, v in block.items()}
+                commit = _Commit(
+                    claim, prepared, n_samples, block, integ.state_arrays(),
+                    dict(idx=idx + 1, step=integ.step, time_=integ.time,
+                         n_samples=n_samples + len(block["time"]), energy_error=e_err,
+                         angmom_error=l_err, max_energy_error=max_e, max_angmom_error=max_l,
+                         then=then, outcome=outcome, reason=reason, segment_id=seg,
+                         wall_seconds=self.clock() - wall0,
+                         rate=_rate(integ, step0, wall0, self.clock()), events=new_events))
+                seen += len(new_events)
+                idx += 1
+                n_samples += len(block["time"])
+                if behind and then == "continue":
+                    pending = _helper().submit(self._commit, commit)
+                    continue
+                if behind:
+                    return _Pending(claim, seg, _helper().submit(self._commit, commit))
+                result = self._commit(commit)
+                total = result.total_steps
+                if result.status != JobStatus.RUNNING:
+                    return result.status
+        except BaseException:
+            # Nothing of this claim may stay in flight when it ends; an error of
+            # the earlier commit came first, so it is the one reported.
+            if pending is not None:
+                pending.result()
+            raise
+
+    def _commit(self, c):
+        """Write a chunk's samples and checkpoint, then record it in the ledger under
+        the claim's fence (on the helper thread when it overlaps the kernel)."""
+        claim, job_id = c.claim, c.claim.job_id
+        # Fence check right before touching the store (read only; the commit
+        # that follows renews the lease).
+        self.ledger.check_fence(claim)
+        c.prepared.result()  # re-raises a StoreError from the helper
+        failpoint("before_store_write")
+        # Samples and checkpoint in one batch ("mid_store_write" fires inside
+        # it, after the writes and before the fsyncs).
+        s_hash, st_hash = self.ledger.store.write_chunk(
+            job_id, c.start, c.block, c.fields["idx"], claim.fence, c.state)
+        failpoint("after_store_write")
+        result = self.ledger.commit_checkpoint(claim, state_hash=st_hash, samples_hash=s_hash,
+                                               now=self.clock(), **c.fields)
+        if LOG.isEnabledFor(logging.INFO):
+            rate, step, total = c.fields["rate"], c.fields["step"], result.total_steps
+            LOG.info("job %d checkpoint %d at step %d, t = %.6g yr (%.3g%%), %s",
+                     job_id, c.fields["idx"], step, abs(c.fields["time_"]) / 365.25,
+                     100.0 * step / total if total else 100.0,
+                     "rate unknown" if rate is None else f"{rate * 3600 / 365.25e6:.3g} Myr/h")
+        if result.status in (JobStatus.DONE, JobStatus.STOPPED, JobStatus.CANCELLED):
+            # Finished: leave exactly the committed rows for readers.
+            self.ledger.store.trim_samples(job_id, c.fields["n_samples"], claim.fence)
+        return result
+
+
+class _Commit:
+    """One chunk's commit: the claim, the prepared checkpoint array (a future), the
+    first sample row, the samples block, the state arrays and the ledger fields."""
+
+    __slots__ = ("claim", "prepared", "start", "block", "state", "fields")
+
+    def __init__(self, claim, prepared, start, block, state, fields):
+        self.claim, self.prepared, self.start = claim, prepared, start
+        self.block, self.state, self.fields = block, state, fields
+
+
+class _Pending:
+    """A member handed back whose commit is still running on the helper thread."""
+
+    __slots__ = ("claim", "seg", "future")
+
+    def __init__(self, claim, seg, future):
+        self.claim, self.seg, self.future = claim, seg, future
 
 
 def _new_events(integ, seen):

@@ -22,6 +22,7 @@ import hashlib
 import json
 import os
 import shutil
+import threading
 import uuid
 from pathlib import Path
 
@@ -170,6 +171,7 @@ def samples_sha256(block):
 
 
 _POOL = None
+_POOL_LOCK = threading.Lock()
 # Write every chunk, even one equal to the fill value, so that each file a
 # commit fsyncs exists.
 _WRITE_ALL = {"write_empty_chunks": True}
@@ -185,10 +187,11 @@ def _in_pool(calls):
     global _POOL
     if not calls:
         return
-    if _POOL is None:
-        from concurrent.futures import ThreadPoolExecutor
+    with _POOL_LOCK:  # a worker's main thread and its helper may both write
+        if _POOL is None:
+            from concurrent.futures import ThreadPoolExecutor
 
-        _POOL = ThreadPoolExecutor(max_workers=4, thread_name_prefix="store-io")
+            _POOL = ThreadPoolExecutor(max_workers=4, thread_name_prefix="store-io")
     for fut in [_POOL.submit(*call) for call in calls]:
         fut.result()
 
