@@ -4,6 +4,10 @@ One worker is one process running :meth:`Worker.run`. SIGTERM, SIGINT, SIGHUP
 and SIGUSR1 ask it to checkpoint at the next safe point (between kernel calls
 of at most MAX_STEPS_PER_CALL steps), release its lease and exit with
 EXIT_WORK_REMAINS if any work is left, 0 otherwise.
+
+A chunk's commit (fence check, store write, ledger transaction, in that order)
+usually runs on the worker's helper thread while the kernel computes the next
+chunk or the next claim's job; see DEVELOPERS.md, "Commits behind the kernel".
 """
 
 import json
@@ -71,7 +75,7 @@ class Worker:
         self.heartbeat_seconds = float(heartbeat_seconds)
         self.slice_seconds = None if slice_seconds is None else float(slice_seconds)
         self.stop_requested = None
-        self._pending = None  # a member's hand-back committing on the helper thread
+        self._pending = None  # a claim's last commit, running on the helper thread
         self._use_flag = False
         self.failed = False
         self.results = []
@@ -97,16 +101,15 @@ class Worker:
                 claim = self.ledger.claim(self.owner, now=self.clock(), job_id=self.job_id,
                                           order=self.order, provenance=provenance.collect())
                 if claim is None:
-                    if self._pending is not None:
-                        # The job being handed back may be the only one left.
-                        self._settle_pending()
+                    # A member being handed back may be the only job left.
+                    if self._settle_pending() == JobStatus.QUEUED:
                         continue
                     LOG.info("nothing left to claim")
                     break
                 LOG.info("job %d claimed (fencing token %d)", claim.job_id, claim.fence)
                 status = self.run_claim(claim, overlap=True)
-                # At most one hand-back in flight: the one before this claim's
-                # has had this claim's whole chunk to finish.
+                # At most one claim's last commit in flight: the one before
+                # this claim's has had this claim's whole chunk to finish.
                 self._settle_pending()
                 if isinstance(status, _Pending):
                     self._pending = status
@@ -127,15 +130,17 @@ class Worker:
         self.results.append((claim.job_id, status))
 
     def _settle_pending(self):
-        """Wait for the hand-back in flight, if any, and record how it ended."""
+        """Wait for the last commit of a claim in flight, if any; record and return the
+        job's status after it (None if nothing was in flight)."""
         pending, self._pending = self._pending, None
         if pending is None:
-            return
+            return None
         try:
             status = pending.future.result().status
         except Exception as err:  # noqa: BLE001 - mapped like a synchronous commit's errors
             status = self._failed_claim(pending.claim, pending.seg, err)
         self._record(pending.claim, status)
+        return status
 
     def exit_code(self):
         """EXIT_WORK_REMAINS if stopped early with work left, EXIT_FAILED on failure, else 0."""
@@ -150,9 +155,10 @@ class Worker:
         """Integrate one claimed job until it ends, is interrupted or is fenced out.
 
         Returns the job's status afterwards (or "fenced"). With ``overlap``, a
-        member of an ensemble handed back after a chunk (breadth order) may be
-        returned as a :class:`_Pending` whose commit is still running on the
-        helper thread, so the caller can claim the next member meanwhile.
+        claim that ends after a chunk (the job's end or stop, a member handed
+        back in breadth order) may be returned as a :class:`_Pending` whose last
+        commit is still running on the helper thread, so the caller can claim
+        the next job meanwhile (:meth:`run` does).
         """
         row = claim.job if claim.job is not None else self.ledger.job(claim.job_id)
         # The budget is plain numbers in the stored spec: no unit parsing (and
@@ -313,14 +319,15 @@ class Worker:
                         outcome = ("over_budget", integ.step, integ.time, ())
                 new_events = _new_events(integ, seen)
                 # The chunk's commit may run on the helper thread while the
-                # kernel goes on, when it is small and the claim goes on: the
-                # next chunk of this job (its commit waits for this one's, and
-                # is discarded if this one fails or ends the claim), or, handing
-                # a member back, the next member. Anything else (the end, a
-                # stop, a signal, a request) is committed before going on.
+                # kernel goes on, when it is small: with the next chunk of this
+                # job (whose commit waits for this one's, and which is discarded
+                # if this one fails or ends the claim), or, when the claim ends
+                # here (a member handed back, the end, a stop) and the caller
+                # goes on claiming (``overlap``), with the next job. A signal or
+                # a request is answered with the commit made before going on.
                 nbytes = sum(v.nbytes for v in block.values())
                 behind = (not interrupted and nbytes <= defaults.OVERLAP_COMMIT_BYTES
-                          and (then == "continue" or (then == "release" and overlap)))
+                          and (then == "continue" or overlap))
                 if behind:
                     block = {k: v.copy() for k, v in block.items()}
                 commit = _Commit(
@@ -390,7 +397,7 @@ class _Commit:
 
 
 class _Pending:
-    """A member handed back whose commit is still running on the helper thread."""
+    """A claim whose last commit is still running on the helper thread."""
 
     __slots__ = ("claim", "seg", "future")
 
