@@ -14,6 +14,7 @@ import random
 import signal
 import subprocess
 import sys
+import time
 
 import pytest
 
@@ -122,6 +123,48 @@ def test_a_hold_applied_behind_the_kernel_discards_the_chunk_computed_meanwhile(
     Worker(led, job_id=jid).run()
     assert ledger_bytes(led, jid) == serial[0]
     led.close()
+
+
+def test_a_job_extended_while_its_last_commit_runs_behind_is_gone_on_with(tmp_path):
+    # The last chunk's commit ("done") runs behind the worker's next claim; an
+    # extension made during that chunk turns it into "continue" in the ledger.
+    # The worker has left the claim, so the job is handed back and claimed
+    # again: it ends done at the new end, with the bytes of a run made
+    # straight to the new end (the code against itself).
+    led = Ledger(f"sqlite:///{tmp_path}/l.sqlite", tmp_path / "store")
+    jid = led.submit(S.load_text(job_text()))
+    old_total = led.job(jid)["total_steps"]
+    new_total = old_total + 3 * CHUNK + 123
+    extended = []
+
+    def progress(row, step, rate):
+        if step > old_total - CHUNK // 2 and not extended:
+            # In the last chunk, once the chunk before it is committed (its
+            # commit also runs behind), so that only the last commit sees it.
+            before_last = (old_total // CHUNK) * CHUNK
+            deadline = time.time() + 60
+            while led.job(jid)["steps_done"] < before_last and time.time() < deadline:
+                time.sleep(0.005)
+            led.extend(jid, new_total)
+            extended.append(step)
+
+    w = Worker(led, progress=progress, max_steps_per_call=200)
+    assert w.run() == 0
+    assert extended
+    row = led.job(jid)
+    assert row["status"] == "done" and row["steps_done"] == new_total
+    assert [s for j, s in w.results if j == jid][-1] == JobStatus.DONE
+    events = [e["kind"] for e in led.events(jid)]
+    assert "lease_taken_over" not in events  # handed back, not left to lapse
+    ref = Ledger(f"sqlite:///{tmp_path}/ref.sqlite", tmp_path / "ref")
+    rid = ref.submit(S.load_text(job_text()))
+    ref.extend(rid, new_total)
+    Worker(ref).run()
+    assert final_state(led, jid) == final_state(ref, rid)
+    assert samples_bytes(led, jid) == samples_bytes(ref, rid)
+    assert verify(led, jid).ok, verify(led, jid).problem
+    led.close()
+    ref.close()
 
 
 def test_a_lease_lost_behind_the_kernel_discards_the_chunk(tmp_path, serial, ledger_url):

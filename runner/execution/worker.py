@@ -24,6 +24,7 @@ from orbitledger.runner.execution import signals as stopflag
 from orbitledger.integrators import StopKind
 
 from orbitledger.runner.errors import FencedError, NumericalFailureError, StoreError
+from orbitledger.runner.ledger.basics import CommitResult
 from orbitledger.runner.ledger.operations import angmom0, repair_by_replay
 from orbitledger.runner.store.sampling import SampleBuffer, sample_now
 from orbitledger.runner.store.zarr_store import state_layout
@@ -75,7 +76,7 @@ class Worker:
         self.heartbeat_seconds = float(heartbeat_seconds)
         self.slice_seconds = None if slice_seconds is None else float(slice_seconds)
         self.stop_requested = None
-        self._pending = None  # a claim's last commit, running on the helper thread
+        self._pending = None  # a claim's last commit, to run (or running) on the helper thread
         self._use_flag = False
         self.failed = False
         self.results = []
@@ -109,7 +110,8 @@ class Worker:
                 LOG.info("job %d claimed (fencing token %d)", claim.job_id, claim.fence)
                 status = self.run_claim(claim, overlap=True)
                 # At most one claim's last commit in flight: the one before
-                # this claim's has had this claim's whole chunk to finish.
+                # this claim's started when this claim's kernel did (so the
+                # claim and the load ran alone) and has had its chunk to finish.
                 self._settle_pending()
                 if isinstance(status, _Pending):
                     self._pending = status
@@ -136,7 +138,7 @@ class Worker:
         if pending is None:
             return None
         try:
-            status = pending.future.result().status
+            status = pending.result().status
         except Exception as err:  # noqa: BLE001 - mapped like a synchronous commit's errors
             status = self._failed_claim(pending.claim, pending.seg, err)
         self._record(pending.claim, status)
@@ -238,6 +240,10 @@ class Worker:
         pending = None  # the previous chunk's commit, running on the helper thread
         try:
             while True:
+                # The previous claim's last commit starts now, with the kernel:
+                # not earlier, so that it never slows this claim and its load.
+                if self._pending is not None:
+                    self._pending.start()
                 # Open the job's arrays and create the coming checkpoint's array
                 # on a helper thread while the kernel runs.
                 prepared = _helper().submit(self.ledger.store.prepare, job_id,
@@ -345,7 +351,8 @@ class Worker:
                     pending = _helper().submit(self._commit, commit)
                     continue
                 if behind:
-                    return _Pending(claim, seg, _helper().submit(self._commit, commit))
+                    commit.ends_claim = True
+                    return _Pending(claim, seg, self._commit, commit)
                 result = self._commit(commit)
                 total = result.total_steps
                 if result.status != JobStatus.RUNNING:
@@ -382,6 +389,13 @@ class Worker:
         if result.status in (JobStatus.DONE, JobStatus.STOPPED, JobStatus.CANCELLED):
             # Finished: leave exactly the committed rows for readers.
             self.ledger.store.trim_samples(job_id, c.fields["n_samples"], claim.fence)
+        elif result.status == JobStatus.RUNNING and c.ends_claim:
+            # Extended while its last chunk ran ("done" became "continue"), but
+            # this worker has gone on to its next claim: hand the job back so
+            # that a claim goes on with it at once.
+            self.ledger.give_back(claim, now=self.clock())
+            self.ledger.end_segment(c.fields["segment_id"], None, "queued", now=self.clock())
+            result = CommitResult(JobStatus.QUEUED, result.total_steps, result.requested)
         return result
 
 
@@ -389,20 +403,32 @@ class _Commit:
     """One chunk's commit: the claim, the prepared checkpoint array (a future), the
     first sample row, the samples block, the state arrays and the ledger fields."""
 
-    __slots__ = ("claim", "prepared", "start", "block", "state", "fields")
+    __slots__ = ("claim", "prepared", "start", "block", "state", "fields", "ends_claim")
 
     def __init__(self, claim, prepared, start, block, state, fields):
         self.claim, self.prepared, self.start = claim, prepared, start
         self.block, self.state, self.fields = block, state, fields
+        self.ends_claim = False  # the worker has left the claim (a _Pending)
 
 
 class _Pending:
-    """A claim whose last commit is still running on the helper thread."""
+    """A claim whose last commit runs on the helper thread: started by the next
+    claim's first kernel call (or when waited for), at most once."""
 
-    __slots__ = ("claim", "seg", "future")
+    __slots__ = ("claim", "seg", "_run", "_commit", "_future")
 
-    def __init__(self, claim, seg, future):
-        self.claim, self.seg, self.future = claim, seg, future
+    def __init__(self, claim, seg, run, commit):
+        self.claim, self.seg, self._run, self._commit = claim, seg, run, commit
+        self._future = None
+
+    def start(self):
+        if self._future is None:
+            self._future = _helper().submit(self._run, self._commit)
+
+    def result(self):
+        """The commit's CommitResult; re-raises its error."""
+        self.start()
+        return self._future.result()
 
 
 def _new_events(integ, seen):

@@ -15,7 +15,12 @@ The machine is noisy (a shared 2-core virtual machine: the same kernel
 varies by ±10 % from minute to minute), so `--rounds R` alternates the three
 measures R times and compares the best of each.
 
-Run:  .venv/bin/python tests/benchmarks/bench_ensemble.py [--workers 2] [--length "2 Myr"] [--rounds 3]
+`--inside` adds a measure the machine's drift cannot blur: one in-process
+worker on the same ensemble, with the time spent in the kernel calls
+(SampleBuffer.advance) summed; what is left of its wall time is the worker's
+own cost (claims, loads, commits, samples), from one and the same run.
+
+Run:  .venv/bin/python tests/benchmarks/bench_ensemble.py [--workers 2] [--length "2 Myr"] [--rounds 3] [--inside]
 Reports; asserts nothing.
 """
 
@@ -94,6 +99,39 @@ def work_rate(text, n):
     return steps / wall, wall, steps, done
 
 
+def inside_share(text):
+    """One in-process Worker on the ensemble: (wall s, kernel s, chunks committed),
+    kernel = time in SampleBuffer.advance (the kernel calls, in-loop samples)."""
+    from orbitledger.runner.execution.worker import Worker
+    from orbitledger.runner.inputs import spec as S
+    from orbitledger.runner.ledger.operations import Ledger
+    from orbitledger.runner.store import sampling
+
+    spent = [0.0]
+    advance = sampling.SampleBuffer.advance
+
+    def timed(self, *a, **k):
+        t = time.perf_counter()
+        try:
+            return advance(self, *a, **k)
+        finally:
+            spent[0] += time.perf_counter() - t
+
+    sampling.SampleBuffer.advance = timed
+    try:
+        with tempfile.TemporaryDirectory() as tmp:
+            led = Ledger(f"sqlite:///{tmp}/l.sqlite", os.path.join(tmp, "store"))
+            _, ids = led.submit_ensemble(S.load_text(text))
+            t0 = time.perf_counter()
+            Worker(led).run()
+            wall = time.perf_counter() - t0
+            chunks = sum(led.job(j)["n_checkpoints"] for j in ids)
+            led.close()
+    finally:
+        sampling.SampleBuffer.advance = advance
+    return wall, spent[0], chunks
+
+
 def main():
     ap = argparse.ArgumentParser()
     ap.add_argument("--workers", type=int, default=2)
@@ -103,6 +141,8 @@ def main():
     ap.add_argument("--bare-seconds", type=float, default=8.0)
     ap.add_argument("--rounds", type=int, default=1,
                     help="alternate bare kernels and `work` this many times; best of each")
+    ap.add_argument("--inside", action="store_true",
+                    help="also: one in-process worker's time outside the kernel calls")
     args = ap.parse_args()
     n = args.workers
     members = 4 * n
@@ -130,6 +170,13 @@ def main():
     print(f"| {n} bare kernels in {n} processes at once | {together:,.0f} | "
           f"{rate / together:.3f} |")
     print(f"| `work --workers {n}` on the ensemble | {rate:,.0f} | |")
+    if args.inside:
+        inside_share(ensemble_text(2, "500 kyr", args.chunk))  # compile and warm
+        for r in range(args.rounds):
+            wall, kernel, chunks = inside_share(text)
+            print(f"one in-process worker, round {r + 1}: wall {wall:.2f} s, in the kernel "
+                  f"{kernel:.2f} s, outside it {100 * (1 - kernel / wall):.2f}% "
+                  f"({1e3 * (wall - kernel) / chunks:.1f} ms per chunk, {chunks} chunks)")
 
 
 if __name__ == "__main__":
