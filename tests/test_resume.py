@@ -13,7 +13,6 @@ import subprocess
 import sys
 import time
 
-import pytest
 
 from orbitledger.runner.ledger.operations import Ledger
 from orbitledger.runner.execution.worker import Worker
@@ -99,10 +98,15 @@ def test_sigterm_checkpoints_releases_and_exits_3(tmp_path):
     terms = 0
     rng = random.Random(5)
     while led.job(jid)["status"] != "done":
+        before = led.job(jid)["steps_done"]
         proc = _spawn(ws)
-        # Signal once this worker holds the job (not during its start-up).
-        while proc.poll() is None and not str(led.job(jid)["owner"]).endswith(f":{proc.pid}"):
-            time.sleep(0.05)
+        # Signal once this worker holds the job and has committed a chunk, not
+        # during its start-up (the first kernel call loads the compiled code,
+        # about half a second here: signalled then, a worker makes 100 steps).
+        while proc.poll() is None and not (
+                str(led.job(jid)["owner"]).endswith(f":{proc.pid}")
+                and led.job(jid)["steps_done"] > before):
+            time.sleep(0.02)
         time.sleep(rng.uniform(0.1, 0.6))
         if proc.poll() is None:
             proc.send_signal([signal.SIGTERM, signal.SIGINT, signal.SIGHUP,
