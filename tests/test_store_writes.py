@@ -203,3 +203,76 @@ def test_first_writes_from_the_template_are_the_bytes_zarr_writes(tmp_path, dura
     back = Store(tmp_path / "t").read_checkpoint(3, 0, 0, expect_sha256=hashes[2][1])
     assert np.array_equal(back["xj"], state["xj"])
     assert hashes[2][1] == _packed(state)[2]
+
+
+def test_checkpoints_read_as_plain_files_equal_zarrs_reading(tmp_path):
+    # Reproducibility of two readers of the same files (not correctness):
+    # the plain-file reader of the resume path against zarr's own reader.
+    import asyncio
+
+    import zarr
+
+    from orbitledger.runner.store import zarr_store as sm
+
+    store = Store(tmp_path / "s")
+    store.create_job(1, BODIES, capacity=4)
+    state = {"x": np.random.default_rng(3).standard_normal((4, 3)), "step": np.array([5]),
+             "names": np.array(BODIES)}
+    store.prepare(1, (1, 3, state_layout(state)))
+    digest = store.write_checkpoint(1, 1, 3, state)
+    folder = store.job_path(1) / "checkpoints" / "00000001-3"
+    raw = sm._raw_checkpoint(folder)
+    assert raw is not None
+    blob, layout = asyncio.run(Store(tmp_path / "s")._read_async(1, "00000001-3"))
+    assert raw == (blob, layout)
+    assert Store(tmp_path / "s").read_checkpoint(1, 1, 3, digest)["x"].tobytes() \
+        == state["x"].tobytes()
+
+    # An array the store did not write this way (compressed) is not taken as
+    # plain bytes: it is read through zarr, and still exactly.
+    g = zarr.open_group(str(store.job_path(1) / "checkpoints"), mode="a")
+    packed, lay, digest2 = sm._packed(state)
+    arr = g.create_array("00000002-3", shape=packed.shape, dtype="u1", chunks=packed.shape,
+                         compressors=zarr.codecs.ZstdCodec(level=3), attributes={"layout": lay})
+    arr[:] = packed
+    assert sm._raw_checkpoint(folder.parent / "00000002-3") is None
+    back = Store(tmp_path / "s").read_checkpoint(1, 2, 3, digest2)
+    assert back["x"].tobytes() == state["x"].tobytes()
+
+    # A short chunk file is not taken either: zarr's reading names the damage.
+    chunk = folder / "c" / "0"
+    chunk.write_bytes(chunk.read_bytes()[:-1])
+    assert sm._raw_checkpoint(folder) is None
+    with pytest.raises(sm.StoreError, match="checkpoint 1 of job 1"):
+        Store(tmp_path / "s").read_checkpoint(1, 1, 3, digest)
+
+
+def test_resuming_a_job_does_not_import_zarr_before_the_first_kernel_call(tmp_path):
+    # The resume path reads the checkpoint as plain files; zarr (a few hundred
+    # ms to import) is first imported by the helper thread, behind the kernel.
+    import subprocess
+    import sys
+
+    from orbitledger.runner.ledger.operations import Ledger
+    from orbitledger.runner.execution.worker import Worker
+    from helpers import ROOT, small_spec
+
+    led = Ledger(f"sqlite:///{tmp_path}/l.sqlite", tmp_path / "store")
+    jid = led.submit(small_spec(length="300 yr"))
+    Worker(led).run()
+    led.extend(jid, 2 * led.job(jid)["total_steps"])  # queued again, with checkpoints
+    assert led.job(jid)["status"] == "queued" and led.last_checkpoint(jid)["idx"] >= 1
+    led.close()
+    code = f"""
+import sys, time
+from orbitledger.runner.ledger.operations import Ledger
+from orbitledger.runner.ledger import provenance
+led = Ledger("sqlite:///{tmp_path}/l.sqlite", r"{tmp_path}/store")
+c = led.claim("probe:1", now=time.time(), provenance=provenance.collect())
+integ, ck = led.load_integrator(c.job_id, row=c.checkpoint)
+print("zarr" in sys.modules, ck["idx"], integ.step)
+"""
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                         cwd=ROOT, check=True).stdout.split()
+    assert out[0] == "False"
+    assert int(out[1]) >= 1 and int(out[2]) > 0

@@ -240,14 +240,7 @@ class Worker:
         pending = None  # the previous chunk's commit, running on the helper thread
         try:
             while True:
-                # The previous claim's last commit starts now, with the kernel:
-                # not earlier, so that it never slows this claim and its load.
-                if self._pending is not None:
-                    self._pending.start()
-                # Open the job's arrays and create the coming checkpoint's array
-                # on a helper thread while the kernel runs.
-                prepared = _helper().submit(self.ledger.store.prepare, job_id,
-                                            (idx + 1, claim.fence, layout))
+                prepared = None
                 chunk_end = min((integ.step // chunk + 1) * chunk, total)
                 buf.clear()
                 stop = None
@@ -267,6 +260,8 @@ class Worker:
                         steps_per_call = max(1, min(self.max_steps_per_call, int(
                             self.slice_seconds / max(per_step, 1e-9))))
                     failpoint("first_step")
+                    if prepared is None:
+                        prepared = self._behind_first_call(job_id, idx, claim.fence, layout)
                     if res.stopped:
                         if res.kind == StopKind.NUMERICAL_FAILURE:
                             raise NumericalFailureError(
@@ -288,6 +283,8 @@ class Worker:
                         break
                     if self.progress is not None:
                         self.progress(row, integ.step, _rate(integ, step0, wall0, self.clock()))
+                if prepared is None:
+                    prepared = self._behind_first_call(job_id, idx, claim.fence, layout)
                 if pending is not None:
                     # The previous chunk's commit decides whether this one counts:
                     # a hold or cancel applied there ends the claim, and this
@@ -363,6 +360,20 @@ class Worker:
             if pending is not None:
                 pending.result()
             raise
+
+    def _behind_first_call(self, job_id, idx, fence, layout):
+        """Start the helper thread's work for a chunk once its first kernel call is done.
+
+        The previous claim's last commit starts now, and the job's arrays are
+        opened and the coming checkpoint's array created, all while the
+        kernel (which releases the GIL) goes on: not earlier, so that none of
+        it slows this claim, its load or, in a new process, the first call's
+        loading of the compiled kernel (the first prepare also imports zarr).
+        Returns the prepare's future.
+        """
+        if self._pending is not None:
+            self._pending.start()
+        return _helper().submit(self.ledger.store.prepare, job_id, (idx + 1, fence, layout))
 
     def _commit(self, c):
         """Write a chunk's samples and checkpoint, then record it in the ledger under
