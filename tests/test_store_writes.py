@@ -276,3 +276,60 @@ print("zarr" in sys.modules, ck["idx"], integ.step)
                          cwd=ROOT, check=True).stdout.split()
     assert out[0] == "False"
     assert int(out[1]) >= 1 and int(out[2]) > 0
+
+
+def test_checkpoint_metadata_written_by_prepare_is_the_file_zarr_writes(tmp_path):
+    # Reproducibility against zarr itself: prepare writes a checkpoint array's
+    # zarr.json as plain bytes; zarr's create_array for the same array must
+    # give the same file, so that zarr (and xarray) read it as before.
+    import zarr
+
+    store = Store(tmp_path / "s")
+    store.create_job(1, BODIES, capacity=4)
+    state = {"x": np.arange(12.0).reshape(4, 3), "step": np.array([5]),
+             "names": np.array(BODIES)}
+    layout = state_layout(state)
+    store.prepare(1, (1, 3, layout))
+    ours = (store.job_path(1) / "checkpoints" / "00000001-3" / "zarr.json").read_bytes()
+    nbytes = sum(e[4] for e in layout)
+    g = zarr.open_group(str(tmp_path / "z"), mode="w")
+    g.create_array("00000001-3", shape=(nbytes,), dtype="u1", chunks=(nbytes,),
+                   compressors=None, dimension_names=["bytes_00000001-3"],
+                   attributes={"layout": layout, "long_name": "exact integrator state, packed "
+                               "bytes (arrays listed in layout)"})
+    assert ours == (tmp_path / "z" / "00000001-3" / "zarr.json").read_bytes()
+    digest = store.write_checkpoint(1, 1, 3, state)
+    arr = zarr.open_array(str(store.job_path(1) / "checkpoints" / "00000001-3"), mode="r")
+    assert arr.attrs["layout"] == layout and arr.shape == (nbytes,)
+    assert Store(tmp_path / "s").read_checkpoint(1, 1, 3, digest)["x"].tobytes() \
+        == state["x"].tobytes()
+
+
+def test_arrays_kept_across_tokens_only_while_their_metadata_is_unchanged(tmp_path):
+    # A member changes hands: this store writes under token 1, another store
+    # (another worker) grows the arrays under token 2, this store writes
+    # again under token 3. It must see the growth, and every row must land.
+    rng = np.random.default_rng(11)
+    mine = Store(tmp_path / "s")
+    mine.create_job(1, BODIES, capacity=100)
+    first = _block(rng, 0, 50)
+    mine.write_samples(1, 0, first, fence=1)
+    opened = mine._handles(1, 1)["samples"]["time"]
+    mine.write_samples(1, 50, _block(rng, 50, 0), fence=2)  # nothing changed: kept
+    assert mine._handles(1, 2)["samples"]["time"] is opened
+    other = Store(tmp_path / "s")
+    big = _block(rng, 50, 3 * defaults.SAMPLE_CHUNK)  # grows the arrays
+    other.write_samples(1, 50, big, fence=3)
+    last = _block(rng, 50 + len(big["time"]), 7)
+    mine.write_samples(1, 50 + len(big["time"]), last, fence=4)
+    assert mine._handles(1, 4)["samples"]["time"] is not opened
+    n = 50 + len(big["time"]) + 7
+    got = Store(tmp_path / "s").read_samples(1, n=n)
+    want = _expected([first, big, last])
+    for k in want:
+        assert got[k].tobytes() == want[k].tobytes(), k
+    # The store keeps at most KEPT_JOBS jobs' arrays.
+    for j in range(2, Store.KEPT_JOBS + 5):
+        mine.create_job(j, BODIES, capacity=10)
+        mine.write_samples(j, 0, _block(rng, 0, 3), fence=1)
+    assert len(mine._open) <= Store.KEPT_JOBS

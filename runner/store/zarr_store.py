@@ -24,6 +24,7 @@ import os
 import shutil
 import threading
 import uuid
+from collections import OrderedDict
 from pathlib import Path
 
 import numpy as np
@@ -248,6 +249,40 @@ def _raw_chunks(arr):
     return tuple(m.chunk_grid.chunk_shape), dtype.newbyteorder("<")
 
 
+def _ck_metadata(name, nbytes, layout):
+    """The zarr.json of a checkpoint array (uint8, one chunk, no compressor), as the
+    bytes zarr 3 writes for it (its json.dumps with indent 2, keys in its order)."""
+    meta = {
+        "shape": [nbytes],
+        "data_type": "uint8",
+        "chunk_grid": {"name": "regular", "configuration": {"chunk_shape": [nbytes]}},
+        "chunk_key_encoding": {"name": "default", "configuration": {"separator": "/"}},
+        "fill_value": 0,
+        "codecs": [{"name": "bytes"}],
+        "attributes": _ck_attrs(layout),
+        "dimension_names": [_ck_dim(name)],
+        "zarr_format": 3,
+        "node_type": "array",
+        "storage_transformers": [],
+    }
+    return json.dumps(meta, allow_nan=True, indent=2).encode()
+
+
+def _metadata_bytes(base, names):
+    """The bytes of every metadata file a job's writer opens (see Store._handles), or
+    None if one cannot be read."""
+    rels = ["zarr.json", "checkpoints/zarr.json", "samples/zarr.json"] + [
+        f"samples/{k}/zarr.json" for k in names]
+    out = []
+    try:
+        for rel in rels:
+            with open(base / rel, "rb") as fh:
+                out.append(fh.read())
+    except OSError:
+        return None
+    return tuple(out)
+
+
 def _raw_checkpoint(folder):
     """(bytes, layout) of a checkpoint array read as plain files, or None.
 
@@ -378,8 +413,8 @@ def _plan(h, base, samples, ck):
         name, blob, layout, _digest = ck
         d = base / "checkpoints" / name
         ready = h["ready"].pop(name, None)
-        if ready is not None and ready[1] == layout and _raw_chunks(ready[0]) is not None:
-            puts.append((str(d / ready[0].metadata.encode_chunk_key((0,))), blob.tobytes()))
+        if ready is not None and ready == (blob.nbytes, layout):
+            puts.append((str(d / "c" / "0"), blob.tobytes()))
         else:
             coros.append(h["checkpoints"].create_array(
                 name, data=blob, chunks=blob.shape, compressors=None, overwrite=True,
@@ -515,9 +550,12 @@ class Store:
         The store folder (created if missing).
     """
 
+    KEPT_JOBS = 64  # jobs whose opened arrays are kept (see _handles)
+
     def __init__(self, root):
         self.root = Path(root)
-        self._open = {}
+        self._open = OrderedDict()  # ("async", job id) -> opened arrays, least recent first
+        self._lock = threading.Lock()  # a worker's main thread and helper share the store
         self._templates = {}  # (body names, first size) -> bytes of a fresh group
         self._made = {}  # job id -> its template key, from create_job until write_first
         self._firsts = {}  # (template key, checkpoint layout) -> how a first write lays out
@@ -539,11 +577,15 @@ class Store:
                 raise _store_error(job_id, path, "the job's group", err) from None
         # Writers reuse their handle: opening a group re-reads its metadata.
         key = int(job_id)
-        if key not in self._open:
+        with self._lock:
+            g = self._open.get(key)
+        if g is None:
             import zarr
 
-            self._open[key] = zarr.open_group(str(path), mode="a")
-        return self._open[key]
+            g = zarr.open_group(str(path), mode="a")
+            with self._lock:
+                self._open[key] = g
+        return g
 
     # -- creation -------------------------------------------------------------
     def create_job(self, job_id, body_names, capacity=0, durable=True, indicator=False,
@@ -597,8 +639,9 @@ class Store:
             raise StoreError(f"could not create the store for job {job_id}: {err}") from err
 
     def _forget(self, job_id):
-        for key in (int(job_id), ("async", int(job_id))):
-            self._open.pop(key, None)
+        with self._lock:
+            for key in (int(job_id), ("async", int(job_id))):
+                self._open.pop(key, None)
 
     def prepare(self, job_id, checkpoint=None, fence=None):
         """Open a job's arrays and create the next checkpoint's array ahead of time.
@@ -617,36 +660,57 @@ class Store:
                 idx, fence, layout = checkpoint
                 name = self._ck_name(idx, fence)
                 nbytes = sum(entry[4] for entry in layout)
-                arr = _run(h["checkpoints"].create_array(
-                    name, shape=(nbytes,), dtype="u1", chunks=(nbytes,), compressors=None,
-                    overwrite=True, dimension_names=[_ck_dim(name)],
-                    attributes=_ck_attrs(layout), config=_WRITE_ALL))
-                h["ready"][name] = (arr, layout)
+                # The array's metadata, written as the file zarr would write
+                # (tested byte for byte); its one chunk is written by the
+                # commit, which also makes both durable.
+                d = self.job_path(job_id) / "checkpoints" / name
+                _put(str(d / "zarr.json"), _ck_metadata(name, nbytes, layout), durable=False)
+                h["ready"][name] = (nbytes, layout)
         except OSError as err:
             raise StoreError(f"could not prepare the store of job {job_id}: {err}") from err
 
     def _handles(self, job_id, fence=None):
         """A job's checkpoints group and sample arrays, asynchronous, for one fencing token.
 
-        Handles (array shapes, the last chunk written, prepared checkpoint
-        arrays) are kept only while the same token writes: a job that moved
-        to another worker and back has a new token, so everything is read
-        again from the disk. With ``fence=None`` nothing is kept.
+        What a token's writes learn (the last chunk written, prepared
+        checkpoint arrays) is kept only while the same token writes: a job
+        that moved to another worker and back has a new token, so none of it
+        is trusted. The opened arrays themselves are kept across tokens when
+        every metadata file they were opened from still holds the same bytes
+        (read again and compared, a fraction of parsing them: an ensemble's
+        members change token at every chunk); the store keeps them for its
+        last KEPT_JOBS jobs. With ``fence=None`` nothing is kept.
         """
         key = ("async", int(job_id))
-        h = self._open.get(key)
-        if h is None or fence is None or h["fence"] != fence:
+        with self._lock:
+            h = self._open.get(key)
+            if h is not None:
+                self._open.move_to_end(key)
+        if h is not None and fence is not None and h["fence"] == fence:
+            return h
+        base = self.job_path(job_id)
+        if not base.exists():
+            raise StoreError(f"job {job_id} has no Zarr group at {base}.")
+        names = self._sample_keys(job_id)
+        snap = _metadata_bytes(base, names)
+        if (h is not None and fence is not None and h["snap"] is not None
+                and h["snap"] == snap):
+            h.update(fence=fence, tail={}, ready={})
+            return h
+        with self._lock:
             self._open.pop(key, None)
-            if not self.job_path(job_id).exists():
-                raise StoreError(f"job {job_id} has no Zarr group at {self.job_path(job_id)}.")
-            try:
-                h = _run(self._open_async(job_id))
-            except Exception as err:  # noqa: BLE001 - zarr raises many types on bad metadata
-                raise _store_error(job_id, self.job_path(job_id), "the sample arrays",
-                                   err) from None
-            h["fence"] = fence
-            if fence is not None:
+        try:
+            h = _run(self._open_async(job_id, names))
+        except Exception as err:  # noqa: BLE001 - zarr raises many types on bad metadata
+            raise _store_error(job_id, base, "the sample arrays", err) from None
+        h["fence"] = fence
+        # Kept across tokens only if nothing changed while zarr read the files.
+        h["snap"] = snap if snap is not None and _metadata_bytes(base, names) == snap else None
+        if fence is not None:
+            with self._lock:
                 self._open[key] = h
+                while len(self._open) > self.KEPT_JOBS:
+                    self._open.popitem(last=False)
         return h
 
     def _sample_keys(self, job_id):
@@ -655,12 +719,11 @@ class Store:
         return [k for k in list(_SERIES) + ["elements"] + list(_OPTIONAL)
                 if k not in ("time_yr",) + _OPTIONAL or (base / k / "zarr.json").exists()]
 
-    async def _open_async(self, job_id):
+    async def _open_async(self, job_id, names):
         from zarr.api import asynchronous as za
         from zarr.storage import LocalStore
 
         root = LocalStore(str(self.job_path(job_id)))
-        names = self._sample_keys(job_id)
         # The job's and the samples' group metadata are read too, so a damaged
         # one stops the writer here (with the file named) rather than later
         # in a reader's hands.
@@ -812,6 +875,8 @@ class Store:
             if samples is not None and "time_yr" not in samples[1]:
                 samples = (samples[0], dict(samples[1], time_yr=samples[1]["time"] / YEAR_D))
             puts, grow, coros, files, dirs = _plan(h, self.job_path(job_id), samples, ck)
+            if grow:
+                h["snap"] = None  # the arrays' metadata changes: open them afresh next token
             for batch in (grow, coros):
                 if batch:
                     _run(_gather(batch))
@@ -823,6 +888,7 @@ class Store:
         except OSError as err:
             if h is not None:
                 h["tail"].clear()  # the cached chunk may not be what the disk holds
+                h["snap"] = None
             what = "samples" if checkpoint is None else f"checkpoint {checkpoint[0]}"
             raise StoreError(f"could not write {what} of job {job_id}: {err}") from err
         return (None if samples is None else samples_sha256(samples[1]),
@@ -872,6 +938,7 @@ class Store:
             arrs = h["samples"]
             todo = [a for a in arrs.values() if a.shape[0] != n]
             if todo:
+                h["snap"] = None
                 _run(_gather([a.resize((n,) + tuple(a.shape[1:])) for a in todo]))
                 base = self.job_path(job_id) / "samples"
                 _fsync_paths([str(base / k / "zarr.json") for k in arrs], [])
