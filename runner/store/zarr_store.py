@@ -320,10 +320,13 @@ def _raw_checkpoint(folder):
 
 def _put(path, data, durable):
     """Write bytes to a file atomically (temporary file, fsync, rename), as zarr does."""
-    os.makedirs(os.path.dirname(path), exist_ok=True)
     tmp = f"{path}.{uuid.uuid4().hex}.partial"
     try:
-        fd = os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_TRUNC, 0o644)
+        try:
+            fd = os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_TRUNC, 0o644)
+        except FileNotFoundError:  # a new chunk's folder (a syscall spared on every other write)
+            os.makedirs(os.path.dirname(path), exist_ok=True)
+            fd = os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_TRUNC, 0o644)
         try:
             view = memoryview(data)
             while view:
