@@ -10,13 +10,14 @@ A crash anywhere leaves the last committed checkpoint intact.
 
 __all__ = ["GENESIS", "Claim", "CommitResult", "Ledger", "angmom0", "repair_by_replay"]
 
-from sqlalchemy import and_, select, update
+from sqlalchemy import update
 
 from orbitledger.runner import defaults
 from orbitledger.runner.errors import FencedError, LedgerError, NotFoundError
 from orbitledger.runner.inputs.text import format_time
 # GENESIS, Claim, CommitResult, angmom0 and repair_by_replay are imported from here.
 from orbitledger.runner.ledger.basics import GENESIS, Claim, CommitResult, _now  # noqa: F401
+from orbitledger.runner.ledger import statements
 from orbitledger.runner.ledger.db import create_schema, is_sqlite, jobs, make_engine
 from orbitledger.runner.ledger.reading import Reading, angmom0, repair_by_replay  # noqa: F401
 from orbitledger.runner.ledger.status import JobStatus, check_transition
@@ -74,26 +75,26 @@ class Ledger(Submitting, WorkerSide, Reading):
 
     # -- the one place status changes ------------------------------------------
 
-    def _transition(self, conn, job_id, old, new, op, where=(), **fields):
+    def _transition(self, conn, job_id, old, new, op, if_fence=None, **fields):
         """Change status old -> new by operation `op` (checked against the table).
 
         Raises TransitionError if the table does not allow it, FencedError if
-        the row no longer matches (status changed or, with a fence in
-        ``where``, the lease was taken over).
+        the row no longer matches (status changed or, with ``if_fence``, the
+        lease was taken over).
         """
         check_transition(job_id, old, new, op)
-        cond = [jobs.c.id == job_id, jobs.c.status == JobStatus(old).value, *where]
-        res = conn.execute(update(jobs).where(and_(*cond)).values(
-            status=JobStatus(new).value, **fields))
+        fields["status"] = JobStatus(new).value
+        names = tuple(sorted(fields))
+        params = {f"v_{n}": fields[n] for n in names}
+        params.update(w_id=job_id, w_status=JobStatus(old).value, w_fence=if_fence)
+        res = conn.execute(statements.transition(if_fence is not None, names), params)
         if res.rowcount != 1:
             raise FencedError(f"job {job_id} changed under this operation "
                               f"(expected {JobStatus(old).value}); nothing was written.")
 
     def _row(self, conn, job_id, lock=False):
-        q = select(jobs).where(jobs.c.id == job_id)
-        if lock and not is_sqlite(self.engine):
-            q = q.with_for_update()
-        row = conn.execute(q).mappings().first()
+        q = statements.job_row(lock and not is_sqlite(self.engine))
+        row = conn.execute(q, {"job_id": job_id}).mappings().first()
         if row is None:
             raise NotFoundError(f"no job {job_id} in this ledger.")
         return row

@@ -4,10 +4,11 @@ giving work back, segments of work and events (part of
 
 import json
 
-from sqlalchemy import and_, func, insert, or_, select, update
+from sqlalchemy import and_, func, insert, select, update
 
 from orbitledger.runner.errors import FencedError, LedgerError
 from orbitledger.runner.execution.failpoints import failpoint
+from orbitledger.runner.ledger import statements
 from orbitledger.runner.ledger.db import (checkpoints, events, is_sqlite, jobs, segments)
 from orbitledger.runner.ledger.status import JobStatus
 from orbitledger.runner.store.zarr_store import chain_sha256
@@ -30,30 +31,26 @@ class WorkerSide:
         """
         now = _now(now)
         with self.engine.begin() as conn:
-            dead = _dead_local_owners(conn)
-            lapsed = and_(jobs.c.status == JobStatus.RUNNING.value,
-                          or_(jobs.c.lease_expires < now, jobs.c.id.in_(dead)))
+            # Lapsed: running, and the lease has expired or the owner is a
+            # dead process of this host.
+            lapsed = {"now": now, "dead": _dead_local_owners(conn)}
             self._apply_lapsed_requests(conn, lapsed, now)
             # The best queued job and the best lapsed one, each read in claim
             # order (queued ones through an index), then the better of the two
             # by the same order: as one query over both, without sorting every
             # queued row.
             if order == "breadth":
-                keys = (jobs.c.priority.desc(), jobs.c.steps_done, jobs.c.id)
                 rank = lambda r: (-r["priority"], r["steps_done"], r["id"])  # noqa: E731
             else:
-                keys = (jobs.c.priority.desc(), jobs.c.steps_done.desc(), jobs.c.id)
+                order = "depth"
                 rank = lambda r: (-r["priority"], -r["steps_done"], r["id"])  # noqa: E731
             found = []
-            for where in (jobs.c.status == JobStatus.QUEUED.value, lapsed):
-                q = select(jobs.c.id, jobs.c.status, jobs.c.fence, jobs.c.priority,
-                           jobs.c.steps_done).where(where)
+            for which, params in (("queued", {}), ("lapsed", lapsed)):
+                q = statements.candidate(which, order, job_id is not None,
+                                         not is_sqlite(self.engine))
                 if job_id is not None:
-                    q = q.where(jobs.c.id == job_id)
-                q = q.order_by(*keys).limit(1)
-                if not is_sqlite(self.engine):
-                    q = q.with_for_update(skip_locked=True)
-                r = conn.execute(q).mappings().first()
+                    params = dict(params, job_id=job_id)
+                r = conn.execute(q, params).mappings().first()
                 if r is not None:
                     found.append(dict(r))
             if not found:
@@ -62,7 +59,7 @@ class WorkerSide:
             fence = int(row["fence"]) + 1
             expires = now + self.lease_seconds
             self._transition(conn, row["id"], row["status"], JobStatus.RUNNING, "claim",
-                             where=(jobs.c.fence == row["fence"],),
+                             if_fence=row["fence"],
                              owner=owner, lease_expires=expires, fence=fence, updated_at=now)
             # Everything the worker needs to start, read in the same transaction.
             job = dict(self._row(conn, row["id"]))
@@ -70,9 +67,8 @@ class WorkerSide:
                 self._event(conn, row["id"], "lease_taken_over", job["steps_done"], None, None,
                             {"new_owner": owner, "fence": fence}, now)
                 self._close_lapsed_segments(conn, row["id"], job["steps_done"], now)
-            ck = conn.execute(select(checkpoints).where(and_(
-                checkpoints.c.job_id == row["id"],
-                checkpoints.c.idx == job["n_checkpoints"]))).mappings().first()
+            ck = conn.execute(statements.checkpoint_row(), {
+                "job_id": row["id"], "idx": job["n_checkpoints"]}).mappings().first()
             seg = None
             if provenance is not None:
                 seg = self._insert_segment(conn, row["id"], fence, owner, job["steps_done"],
@@ -83,14 +79,12 @@ class WorkerSide:
     def _apply_lapsed_requests(self, conn, lapsed, now):
         """Running jobs whose worker is gone and which carry a hold or cancel request:
         apply the request now (their worker cannot), closing its open segment."""
-        rows = conn.execute(select(jobs.c.id, jobs.c.fence, jobs.c.requested,
-                                   jobs.c.steps_done).where(
-            and_(lapsed, jobs.c.requested.is_not(None)))).mappings().all()
+        rows = conn.execute(statements.lapsed_requests(), lapsed).mappings().all()
         for r in rows:
             new = JobStatus.HELD if r["requested"] == "hold" else JobStatus.CANCELLED
             reason = "held on request" if new == JobStatus.HELD else "cancelled on request"
             self._transition(conn, r["id"], JobStatus.RUNNING, new, "give_back",
-                             where=(jobs.c.fence == r["fence"],), owner=None,
+                             if_fence=r["fence"], owner=None,
                              lease_expires=None, requested=None, reason=reason, updated_at=now)
             self._close_lapsed_segments(conn, r["id"], r["steps_done"], now)
             if new == JobStatus.CANCELLED:
@@ -107,8 +101,7 @@ class WorkerSide:
     def check_fence(self, claim):
         """Raise FencedError unless the claim's fencing token is still current (read only)."""
         with self.engine.connect() as conn:
-            row = conn.execute(select(jobs.c.fence, jobs.c.status).where(
-                jobs.c.id == claim.job_id)).first()
+            row = conn.execute(statements.fence_of(), {"job_id": claim.job_id}).first()
         if row is None or row[0] != claim.fence or row[1] != JobStatus.RUNNING.value:
             raise FencedError(f"job {claim.job_id}: lease with token {claim.fence} "
                               "is no longer held; discarding uncommitted work.")
@@ -161,9 +154,8 @@ class WorkerSide:
                 raise LedgerError(f"job {claim.job_id}: checkpoint {idx} at step {step} does not "
                                   f"follow checkpoint {row['n_checkpoints']} at step "
                                   f"{row['steps_done']}.")
-            prev = conn.execute(select(checkpoints.c.chain_sha256).where(and_(
-                checkpoints.c.job_id == claim.job_id,
-                checkpoints.c.idx == row["n_checkpoints"]))).scalar()
+            prev = conn.execute(statements.chain_of(), {
+                "job_id": claim.job_id, "idx": row["n_checkpoints"]}).scalar()
             total = int(row["total_steps"])
             requested = row["requested"]
             fields = dict(steps_done=step, n_checkpoints=idx, n_samples=n_samples,
@@ -196,9 +188,9 @@ class WorkerSide:
             if new != JobStatus.RUNNING:
                 fields.update(owner=None, lease_expires=None, requested=None)
             self._transition(conn, claim.job_id, JobStatus.RUNNING, new, "commit",
-                             where=(jobs.c.fence == claim.fence,), **fields)
+                             if_fence=claim.fence, **fields)
             failpoint("in_commit")  # inside the open transaction: a kill here rolls back
-            conn.execute(insert(checkpoints).values(
+            conn.execute(statements.insert_into(checkpoints), dict(
                 job_id=claim.job_id, idx=idx, step=step, time=time_, fence=claim.fence,
                 state_sha256=state_hash, chain_sha256=chain_sha256(prev, state_hash, samples_hash),
                 samples_sha256=samples_hash, n_samples=n_samples, energy_error=energy_error,
@@ -211,8 +203,9 @@ class WorkerSide:
             if then == "held" and reason:
                 self._event(conn, claim.job_id, "held", step, time_, (), {"reason": reason}, now)
             if segment_id is not None and new != JobStatus.RUNNING:
-                conn.execute(update(segments).where(segments.c.id == segment_id).values(
-                    end_step=step, ended_at=now, end_reason=end_reason or new.value))
+                conn.execute(statements.end_segment_at_commit(), {
+                    "seg_id": segment_id, "end_step": step, "ended_at": now,
+                    "end_reason": end_reason or new.value})
             failpoint("before_commit")
         failpoint("after_commit")
         return CommitResult(new, total, requested)
@@ -232,7 +225,7 @@ class WorkerSide:
             elif req == "cancel":
                 status, reason = JobStatus.CANCELLED, "cancelled on request"
             self._transition(conn, claim.job_id, JobStatus.RUNNING, status, "give_back",
-                             where=(jobs.c.fence == claim.fence,), owner=None,
+                             if_fence=claim.fence, owner=None,
                              lease_expires=None, requested=None, updated_at=now,
                              **({"reason": reason} if reason else {}))
             if status in (JobStatus.HELD, JobStatus.FAILED) and reason:
@@ -262,7 +255,7 @@ class WorkerSide:
 
     @staticmethod
     def _insert_segment(conn, job_id, fence, owner, start_step, prov, now):
-        return int(conn.execute(insert(segments).values(
+        return int(conn.execute(statements.insert_into(segments), dict(
             job_id=job_id, fence=fence, worker=owner, host=prov["host"],
             pid=prov["pid"], user=prov.get("user"), argv=prov.get("argv"),
             versions=json.dumps(prov.get("versions", {}), sort_keys=True),
@@ -308,8 +301,7 @@ def _dead_local_owners(conn):
 
     prefix = socket.gethostname() + ":"
     dead = []
-    for job_id, owner in conn.execute(select(jobs.c.id, jobs.c.owner).where(and_(
-            jobs.c.status == JobStatus.RUNNING.value, jobs.c.owner.like(prefix + "%")))):
+    for job_id, owner in conn.execute(statements.running_local(), {"prefix": prefix + "%"}):
         pid_text = owner[len(prefix):]
         if not pid_text.isdigit():
             continue
