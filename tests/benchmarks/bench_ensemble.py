@@ -18,7 +18,9 @@ measures R times and compares the best of each.
 `--inside` adds a measure the machine's drift cannot blur: one in-process
 worker on the same ensemble, with the time spent in the kernel calls
 (SampleBuffer.advance) summed; what is left of its wall time is the worker's
-own cost (claims, loads, commits, samples), from one and the same run.
+own cost (claims, loads, commits, samples), from one and the same run; and
+its CPU time outside the kernel on every thread (what a worker takes from
+the other workers' kernels when there are as many workers as cores).
 
 Run:  .venv/bin/python tests/benchmarks/bench_ensemble.py [--workers 2] [--length "2 Myr"] [--rounds 3] [--inside]
 Reports; asserts nothing.
@@ -100,36 +102,40 @@ def work_rate(text, n):
 
 
 def inside_share(text):
-    """One in-process Worker on the ensemble: (wall s, kernel s, chunks committed),
-    kernel = time in SampleBuffer.advance (the kernel calls, in-loop samples)."""
+    """One in-process Worker on the ensemble: (wall s, kernel s, chunks committed,
+    CPU s outside the kernel), kernel = time in SampleBuffer.advance (the kernel
+    calls, in-loop samples); the CPU is the process's, every thread's (the
+    helper's commits, the store's writes), less the kernel calls' own."""
     from orbitledger.runner.execution.worker import Worker
     from orbitledger.runner.inputs import spec as S
     from orbitledger.runner.ledger.operations import Ledger
     from orbitledger.runner.store import sampling
 
-    spent = [0.0]
+    spent = [0.0, 0.0]
     advance = sampling.SampleBuffer.advance
 
     def timed(self, *a, **k):
-        t = time.perf_counter()
+        t, c = time.perf_counter(), time.thread_time()
         try:
             return advance(self, *a, **k)
         finally:
             spent[0] += time.perf_counter() - t
+            spent[1] += time.thread_time() - c
 
     sampling.SampleBuffer.advance = timed
     try:
         with tempfile.TemporaryDirectory() as tmp:
             led = Ledger(f"sqlite:///{tmp}/l.sqlite", os.path.join(tmp, "store"))
             _, ids = led.submit_ensemble(S.load_text(text))
-            t0 = time.perf_counter()
+            t0, c0 = time.perf_counter(), time.process_time()
             Worker(led).run()
             wall = time.perf_counter() - t0
+            cpu = time.process_time() - c0 - spent[1]
             chunks = sum(led.job(j)["n_checkpoints"] for j in ids)
             led.close()
     finally:
         sampling.SampleBuffer.advance = advance
-    return wall, spent[0], chunks
+    return wall, spent[0], chunks, cpu
 
 
 def main():
@@ -173,10 +179,11 @@ def main():
     if args.inside:
         inside_share(ensemble_text(2, "500 kyr", args.chunk))  # compile and warm
         for r in range(args.rounds):
-            wall, kernel, chunks = inside_share(text)
+            wall, kernel, chunks, cpu = inside_share(text)
             print(f"one in-process worker, round {r + 1}: wall {wall:.2f} s, in the kernel "
                   f"{kernel:.2f} s, outside it {100 * (1 - kernel / wall):.2f}% "
-                  f"({1e3 * (wall - kernel) / chunks:.1f} ms per chunk, {chunks} chunks)")
+                  f"({1e3 * (wall - kernel) / chunks:.1f} ms per chunk, {chunks} chunks); "
+                  f"CPU outside the kernel, all threads: {1e3 * cpu / chunks:.1f} ms per chunk")
 
 
 if __name__ == "__main__":

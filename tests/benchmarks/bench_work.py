@@ -11,7 +11,11 @@
 2. A campaign: CAMPAIGN jobs of 10^6 steps submitted at once and taken one
    after another by one Worker.run(), against CAMPAIGN times the bare kernel
    (a job's last commit overlaps the next job's claim and kernel).
-3. Resume latency: from starting `orbitledger work` on a job with committed
+3. The worker's own time per job, in one process: wall time minus the
+   time in the kernel calls, min / median / max over 8 jobs (the figure to
+   compare between versions of the code; the ratios above move with the
+   machine's drift).
+4. Resume latency: from starting `orbitledger work` on a job with committed
    checkpoints to its first kernel step (the process is killed there by the
    `first_step` failpoint).
 
@@ -104,6 +108,42 @@ def resume_latency(spec, tmp, repeats=5):
     return min(times), max(times)
 
 
+def fixed_cost(spec, tmp, jobs=8):
+    """The worker's own time per job in one process, which the machine's drift cannot
+    blur: wall time of Worker.run minus the time in the kernel calls
+    (SampleBuffer.advance, in-loop samples included), over `jobs` jobs taken one
+    at a time by a running worker (the first, warming, not counted). Returns
+    (min, median, max) in ms."""
+    from orbitledger.runner.store import sampling
+
+    spent = [0.0]
+    advance = sampling.SampleBuffer.advance
+
+    def timed(self, *a, **k):
+        t = time.perf_counter()
+        try:
+            return advance(self, *a, **k)
+        finally:
+            spent[0] += time.perf_counter() - t
+
+    sampling.SampleBuffer.advance = timed
+    out = []
+    try:
+        led = Ledger(f"sqlite:///{tmp}.sqlite", tmp)
+        for i in range(jobs + 1):
+            led.submit(spec)
+            spent[0] = 0.0
+            t = time.perf_counter()
+            Worker(led).run()
+            if i:
+                out.append(1e3 * (time.perf_counter() - t - spent[0]))
+        led.close()
+    finally:
+        sampling.SampleBuffer.advance = advance
+    out.sort()
+    return out[0], out[len(out) // 2], out[-1]
+
+
 def main():
     tmp = tempfile.mkdtemp()
     print(f"# {time.strftime('%Y-%m-%d')} {platform.node()} python {platform.python_version()}")
@@ -111,6 +151,7 @@ def main():
              ("eight planets, dt 4 d", job_spec("veyra-full.toml", "4000000 d"))]
     print("| job (10^6 steps) | worker | bare kernel | work | overhead | samples | checkpoints |")
     print("|---|---|---|---|---|---|---|")
+    fixed = []
     for label, spec in cases:
         bare(spec)  # compile and warm
         worker(spec, os.path.join(tmp, "w"))
@@ -129,6 +170,12 @@ def main():
                         (f"campaign of {CAMPAIGN} jobs, per job", many)):
             print(f"| {label} | {kind} | {min(b):.3f} s | {min(w):.3f} s "
                   f"| {100 * (min(w) / min(b) - 1):+.1f}% | {ns} | {nc + 1} |")
+        fixed.append((label, min(b), fixed_cost(spec, os.path.join(tmp, "f"))))
+    print("\nThe worker's own time per job, outside the kernel calls (one running worker, "
+          "8 jobs, in-process; not blurred by the machine's drift):")
+    for label, kernel, (lo, mid, hi) in fixed:
+        print(f"- {label}: {lo:.1f} / {mid:.1f} / {hi:.1f} ms (min / median / max), "
+              f"median {100 * mid / 1e3 / kernel:.1f} % of the bare kernel's {kernel:.3f} s")
     # Ten times longer, so the job is still part-way after the half second
     # the first worker is given (a 10^6-step job can end within it).
     lo, hi = resume_latency(job_spec("veyra-giants.toml", "5000000 yr"),
