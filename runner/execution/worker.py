@@ -80,6 +80,7 @@ class Worker:
         self._use_flag = False
         self.failed = False
         self.results = []
+        self.kernel_seconds = 0.0  # wall time in the kernel calls (in-loop samples included)
 
     # -- signals ------------------------------------------------------------------
     def install_signal_handlers(self):
@@ -97,6 +98,7 @@ class Worker:
     def run(self):
         """Work until nothing is claimable, a deadline, or a stop signal. Returns an exit code."""
         LOG.info("worker %s started", self.owner)
+        t_run = time.perf_counter()
         try:
             while not self._should_stop():
                 claim = self.ledger.claim(self.owner, now=self.clock(), job_id=self.job_id,
@@ -124,6 +126,12 @@ class Worker:
         elif self.deadline is not None and self.clock() >= self.deadline:
             LOG.info("deadline reached")
         code = self.exit_code()
+        run_s = time.perf_counter() - t_run
+        up = _process_seconds()
+        LOG.info("worker %s spent %.2f s in kernel calls of its %.2f s of work (%.1f %%)%s",
+                 self.owner, self.kernel_seconds, run_s,
+                 100.0 * self.kernel_seconds / run_s if run_s > 0 else 0.0,
+                 "" if up is None else f"; {up - run_s:.2f} s of start-up before it")
         LOG.info("worker %s exits with code %d", self.owner, code)
         return code
 
@@ -252,6 +260,7 @@ class Worker:
                     n_call = min(chunk_end - integ.step, steps_per_call)
                     t_call = time.perf_counter()
                     res = buf.advance(integ, n_call, out)
+                    self.kernel_seconds += time.perf_counter() - t_call
                     # Kernel calls last about SLICE_SECONDS whatever the system's
                     # size, so signals and requests are seen within seconds. How
                     # the steps are sliced never changes the trajectory.
@@ -440,6 +449,18 @@ class _Pending:
         """The commit's CommitResult; re-raises its error."""
         self.start()
         return self._future.result()
+
+
+def _process_seconds():
+    """Wall seconds since this process started (Linux /proc), or None."""
+    try:
+        with open("/proc/self/stat", "rb") as fh:
+            start_ticks = int(fh.read().rsplit(b")", 1)[1].split()[19])
+        with open("/proc/uptime", "rb") as fh:
+            uptime = float(fh.read().split()[0])
+        return uptime - start_ticks / os.sysconf("SC_CLK_TCK")
+    except (OSError, ValueError, IndexError):
+        return None
 
 
 def _new_events(integ, seen):

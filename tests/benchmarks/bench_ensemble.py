@@ -89,10 +89,15 @@ def work_rate(text, n):
         subprocess.run(exe + ["init", "--workspace", ws], check=True, capture_output=True)
         subprocess.run(exe + ["submit", spec_path, "--workspace", ws], check=True,
                        capture_output=True)
+        log = os.path.join(tmp, "work.log")
         t0 = time.perf_counter()
         subprocess.run(exe + ["work", "--workers", str(n), "--workspace", ws, "--quiet",
-                              "--log-level", "warning"], check=True)
+                              "--log-level", "info", "--log-file", log], check=True)
         wall = time.perf_counter() - t0
+        # Each worker's last words: time in kernel calls, time worked, start-up.
+        for line in open(log, encoding="utf-8"):
+            if " in kernel calls of its " in line:
+                print("  " + line.split(" INFO ", 1)[-1].strip())
         status = subprocess.run(exe + ["status", "--json", "--all", "--workspace", ws],
                                 check=True, capture_output=True, text=True).stdout
     jobs = json.loads(status)["jobs"]
