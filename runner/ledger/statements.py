@@ -96,13 +96,6 @@ def checkpoint_row():
         checkpoints.c.idx == _p("idx", checkpoints.c.idx))))
 
 
-def chain_of():
-    """A checkpoint's chain hash; parameters job_id, idx."""
-    return _cached("chain_of", lambda: select(checkpoints.c.chain_sha256).where(and_(
-        checkpoints.c.job_id == _p("job_id", checkpoints.c.job_id),
-        checkpoints.c.idx == _p("idx", checkpoints.c.idx))))
-
-
 def fence_of():
     """A job's fence and status; parameter job_id."""
     return _cached("fence_of", lambda: select(jobs.c.fence, jobs.c.status).where(

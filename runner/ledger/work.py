@@ -154,8 +154,9 @@ class WorkerSide:
                 raise LedgerError(f"job {claim.job_id}: checkpoint {idx} at step {step} does not "
                                   f"follow checkpoint {row['n_checkpoints']} at step "
                                   f"{row['steps_done']}.")
-            prev = conn.execute(statements.chain_of(), {
-                "job_id": claim.job_id, "idx": row["n_checkpoints"]}).scalar()
+            prev = conn.execute(statements.checkpoint_row(), {
+                "job_id": claim.job_id, "idx": row["n_checkpoints"]}).mappings().first()
+            prev = None if prev is None else prev["chain_sha256"]
             total = int(row["total_steps"])
             requested = row["requested"]
             fields = dict(steps_done=step, n_checkpoints=idx, n_samples=n_samples,
