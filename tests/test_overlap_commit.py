@@ -167,6 +167,45 @@ def test_a_job_extended_while_its_last_commit_runs_behind_is_gone_on_with(tmp_pa
     ref.close()
 
 
+def test_a_hold_asked_for_between_that_commit_and_the_hand_back_is_what_is_recorded(tmp_path):
+    # As above, but a hold is asked for after the extended last commit lands
+    # and before the worker hands the job back: the hand-back applies it, and
+    # the worker's result and the segment's end say "held", not "queued".
+    led = Ledger(f"sqlite:///{tmp_path}/l.sqlite", tmp_path / "store")
+    jid = led.submit(S.load_text(job_text()))
+    old_total = led.job(jid)["total_steps"]
+    new_total = old_total + 3 * CHUNK
+    extended = []
+    commit = led.commit_checkpoint
+
+    def commit_then_hold(claim, **fields):
+        result = commit(claim, **fields)
+        if fields["then"] == "done" and extended and result.status == JobStatus.RUNNING:
+            led.hold(jid, reason="operator")
+        return result
+
+    def progress(row, step, rate):
+        if step > old_total - CHUNK // 2 and not extended:
+            before_last = (old_total // CHUNK) * CHUNK
+            deadline = time.time() + 60
+            while led.job(jid)["steps_done"] < before_last and time.time() < deadline:
+                time.sleep(0.005)
+            led.extend(jid, new_total)
+            extended.append(step)
+
+    led.commit_checkpoint = commit_then_hold
+    w = Worker(led, progress=progress, max_steps_per_call=200)
+    assert w.run() == 0
+    assert extended
+    row = led.job(jid)
+    assert row["status"] == "held" and row["steps_done"] == old_total
+    assert [s for j, s in w.results if j == jid][-1] == JobStatus.HELD
+    seg = led.segments(jid)[-1]
+    assert seg["end_reason"] == "held" and seg["end_step"] == old_total
+    assert verify(led, jid).ok, verify(led, jid).problem
+    led.close()
+
+
 def test_a_lease_lost_behind_the_kernel_discards_the_chunk(tmp_path, serial, ledger_url):
     # The lease is taken over while the first chunk's commit may still be
     # running behind the kernel: whichever lands first, the old worker writes

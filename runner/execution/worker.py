@@ -413,9 +413,11 @@ class Worker:
             # Extended while its last chunk ran ("done" became "continue"), but
             # this worker has gone on to its next claim: hand the job back so
             # that a claim goes on with it at once.
-            self.ledger.give_back(claim, now=self.clock())
-            self.ledger.end_segment(c.fields["segment_id"], None, "queued", now=self.clock())
-            result = CommitResult(JobStatus.QUEUED, result.total_steps, result.requested)
+            # A hold or cancel requested since the commit is applied here, and
+            # is what the job's result and its segment record.
+            left = self.ledger.give_back(claim, now=self.clock()) or JobStatus.QUEUED
+            self.ledger.end_segment(c.fields["segment_id"], None, left.value, now=self.clock())
+            result = CommitResult(left, result.total_steps, result.requested)
         return result
 
 

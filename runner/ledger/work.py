@@ -213,13 +213,13 @@ class WorkerSide:
 
     def give_back(self, claim, now=None, status=JobStatus.QUEUED, reason=None):
         """A worker gives up its claim without committing (work remains from the last
-        checkpoint); a pending hold or cancel request is applied. Returns False if
-        the claim was no longer current."""
+        checkpoint); a pending hold or cancel request is applied. Returns the
+        status the job was left in, or None if the claim was no longer current."""
         now = _now(now)
         with self.engine.begin() as conn:
             row = self._row(conn, claim.job_id, lock=True)
             if row["fence"] != claim.fence or row["status"] != JobStatus.RUNNING.value:
-                return False
+                return None
             req = row["requested"]
             if req == "hold":
                 status, reason = JobStatus.HELD, reason or "held on request"
@@ -234,7 +234,7 @@ class WorkerSide:
                             {"reason": reason}, now)
         if status == JobStatus.CANCELLED:
             self._trim_finished(claim.job_id, row["n_samples"])
-        return True
+        return status
 
     def _trim_finished(self, job_id, n_samples):
         """Leave exactly the committed sample rows of a job that will never run again."""
