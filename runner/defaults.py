@@ -36,6 +36,11 @@ MAX_CHUNK_SAMPLE_BYTES = 64_000_000
 OVERLAP_COMMIT_BYTES = 8_000_000
 # Samples per Zarr chunk along the sample dimension.
 SAMPLE_CHUNK = 1_024
+# A worker is one thread of compute (the kernel takes no threads), so the
+# numerical libraries' thread pools are kept to one thread in `work` and its
+# pool's workers unless the user sets these: a BLAS thread spinning after a
+# small matrix operation takes CPU from the other workers' kernels.
+ONE_THREAD_ENV = ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS")
 # Exit code of `work` when work remains (stopped by signal or deadline).
 EXIT_WORK_REMAINS = 3
 # Exit code of `work` when a worker failed.

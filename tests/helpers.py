@@ -153,3 +153,18 @@ def run_with_kills(ws, led, jid, modes, rng, random_kills=8, pause=(1.0, 2.0)):
         kills += rc == -signal.SIGKILL
         assert rc in (0, 3, -signal.SIGKILL), proc.stderr.read()
     return kills
+
+
+def spawn_work(ws, db=None, failpoints=None, lease=5, extra=(), **popen):
+    """Start a real `orbitledger work` process on workspace ws (optionally another
+    database URL), with the given failpoints (and no inherited ones); its
+    stderr is a pipe, its stdout discarded."""
+    env = {k: v for k, v in os.environ.items() if k != "ORBITLEDGER_FAILPOINTS"}
+    if failpoints:
+        env["ORBITLEDGER_FAILPOINTS"] = failpoints
+    argv = [sys.executable, "-m", "orbitledger.runner.cli", "work", "--workspace", str(ws),
+            "--quiet", "--lease", str(lease), *extra]
+    if db:
+        argv += ["--db", db]
+    return subprocess.Popen(argv, cwd=ROOT, env=env, stdout=subprocess.DEVNULL,
+                            stderr=subprocess.PIPE, **popen)

@@ -4,11 +4,8 @@ reference, no stretch may be committed twice, and no lease may outlive its
 expiry. A summary line per backend is printed (recorded in docs/reliability.md).
 """
 
-import os
 import random
 import signal
-import subprocess
-import sys
 import time
 
 import pytest
@@ -17,7 +14,8 @@ from orbitledger.runner.inputs import spec as S
 from orbitledger.runner.ledger.operations import Ledger
 from orbitledger.runner.execution.worker import Worker
 from orbitledger.runner.ledger.workspace import init
-from helpers import ROOT, assert_no_double_commit, final_state, samples_bytes, small_spec_text
+from helpers import (assert_no_double_commit, final_state, samples_bytes, small_spec_text,
+                     spawn_work)
 
 POINTS = ["mid_store_write", "in_commit", "before_commit", "before_store_write",
           "after_store_write", "after_commit", "first_step"]
@@ -40,18 +38,6 @@ def references(tmp_path_factory):
     return out
 
 
-def _spawn(ws, db, failpoint=None):
-    env = {k: v for k, v in os.environ.items() if k != "ORBITLEDGER_FAILPOINTS"}
-    if failpoint:
-        env["ORBITLEDGER_FAILPOINTS"] = failpoint
-    argv = [sys.executable, "-m", "orbitledger.runner.cli", "work", "--workspace", str(ws), "--quiet",
-            "--lease", str(LEASE)]
-    if db:
-        argv += ["--db", db]
-    return subprocess.Popen(argv, cwd=ROOT, env=env, stdout=subprocess.DEVNULL,
-                            stderr=subprocess.PIPE)
-
-
 @pytest.mark.parametrize("backend", ["sqlite", "postgresql"])
 def test_random_sigkills_lose_nothing(backend, references, tmp_path, request):
     db = None
@@ -71,9 +57,9 @@ def test_random_sigkills_lose_nothing(backend, references, tmp_path, request):
             if rng.random() < 0.5:
                 fp = POINTS[armed % len(POINTS)]  # cycle: every point gets its turn
                 armed += 1
-                procs.append((_spawn(ws, db, f"{fp}:1"), fp))
+                procs.append((spawn_work(ws, db, f"{fp}:1", lease=LEASE), fp))
             else:
-                procs.append((_spawn(ws, db), None))
+                procs.append((spawn_work(ws, db, lease=LEASE), None))
         time.sleep(rng.uniform(1.2, 2.2))
         # Kill every worker still alive, at staggered moments.
         for p, _ in procs:
@@ -96,7 +82,7 @@ def test_random_sigkills_lose_nothing(backend, references, tmp_path, request):
                 assert row["lease_expires"] <= now + LEASE + 1.0
         if all(led.job(j)["status"] == "done" for j in ids):
             break
-    final = _spawn(ws, db)
+    final = spawn_work(ws, db, lease=LEASE)
     assert final.wait(timeout=600) == 0, final.stderr.read().decode()
     assert kills >= 30, (kills, rounds)
     assert {"mid_store_write", "in_commit", "before_commit"} <= points, points

@@ -345,7 +345,7 @@ def test_work_logs_a_plain_line_per_event(tmp_path):
     assert res.returncode == 0, res.stderr
     text = log.read_text()
     for part in ("started", "job 1 claimed (fencing token 1)", "job 1 checkpoint 1 at step 5000",
-                 "Myr/h", "job 1: done", "nothing left to claim", "in kernel calls of its",
+                 "Myr/h", "job 1: done", "nothing left to claim", "s of CPU) of its",
                  "exits with code 0"):
         assert part in text, (part, text)
     # In a pool, a worker's death is logged with its signal.

@@ -261,3 +261,44 @@ def test_killed_pool_takes_its_workers_with_it(tmp_path):
     for j in ids:
         assert led.job(j)["owner"] is None  # each worker checkpointed and let go
     led.close()
+
+
+def test_workers_keep_numpys_blas_to_one_thread_unless_the_user_chose(tmp_path):
+    # A worker is one thread of compute: a BLAS thread spinning after a small
+    # matrix operation would take CPU from the other workers' kernels. The
+    # variables must be set before numpy is imported, in `work` itself and
+    # in the pool's workers; a value the user set is kept.
+    probe = ("import os, sys\n"
+             "assert 'numpy' not in sys.modules\n"
+             "sys.argv = ['orbitledger', 'work', '--help']\n"
+             "from orbitledger.runner.entry import main\n"
+             "try:\n    main()\nexcept SystemExit:\n    pass\n"
+             "print(os.environ['OPENBLAS_NUM_THREADS'], os.environ['OMP_NUM_THREADS'])\n")
+    env = {k: v for k, v in os.environ.items()
+           if k not in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS")}
+    out = subprocess.run([sys.executable, "-c", probe], cwd=ROOT, env=env, capture_output=True,
+                         text=True, check=True).stdout.split()
+    assert out[-2:] == ["1", "1"]
+    out = subprocess.run([sys.executable, "-c", probe], cwd=ROOT, capture_output=True, text=True,
+                         env=dict(env, OPENBLAS_NUM_THREADS="3"), check=True).stdout.split()
+    assert out[-2:] == ["3", "1"]
+    ws, led = init(tmp_path / "ws")
+    led.submit(small_spec(name="p", length="200000 yr"))
+    pool = subprocess.Popen([sys.executable, "-m", "orbitledger.runner.cli", "work",
+                             "--workspace", str(ws), "--workers", "2", "--quiet"],
+                            cwd=ROOT, env=env, stdout=subprocess.DEVNULL,
+                            stderr=subprocess.PIPE, start_new_session=True)
+    try:
+        deadline = time.time() + 30
+        while len(_workers_of(ws)) < 2 and time.time() < deadline:
+            time.sleep(0.01)
+        workers = _workers_of(ws)
+        assert len(workers) == 2
+        for pid in workers:
+            with open(f"/proc/{pid}/environ", "rb") as fh:
+                seen = dict(v.split(b"=", 1) for v in fh.read().split(b"\0") if b"=" in v)
+            assert seen[b"OPENBLAS_NUM_THREADS"] == b"1" and seen[b"MKL_NUM_THREADS"] == b"1"
+    finally:
+        pool.send_signal(signal.SIGTERM)
+        pool.wait(timeout=120)
+    led.close()

@@ -9,11 +9,8 @@ discards it too and never lets the old worker write after the new one.
 """
 
 import logging
-import os
 import random
 import signal
-import subprocess
-import sys
 import time
 
 import pytest
@@ -25,8 +22,8 @@ from orbitledger.runner.ledger.operations import Ledger
 from orbitledger.runner.ledger.status import JobStatus
 from orbitledger.runner.ledger.workspace import init
 from orbitledger.runner.execution.worker import Worker
-from helpers import (ROOT, assert_no_double_commit, ejecting_ensemble_text, final_state,
-                     samples_bytes, small_spec_text)
+from helpers import (assert_no_double_commit, ejecting_ensemble_text, final_state,
+                     samples_bytes, small_spec_text, spawn_work)
 
 CHUNK = 2000
 
@@ -239,18 +236,6 @@ POINTS = ["before_store_write", "mid_store_write", "after_store_write", "in_comm
           "before_commit", "after_commit"]
 
 
-def _work(ws, db, failpoint=None):
-    env = {k: v for k, v in os.environ.items() if k != "ORBITLEDGER_FAILPOINTS"}
-    if failpoint:
-        env["ORBITLEDGER_FAILPOINTS"] = failpoint
-    argv = [sys.executable, "-m", "orbitledger.runner.cli", "work", "--workspace", str(ws),
-            "--quiet", "--lease", "5"]
-    if db:
-        argv += ["--db", db]
-    return subprocess.Popen(argv, cwd=ROOT, env=env, stdout=subprocess.DEVNULL,
-                            stderr=subprocess.PIPE)
-
-
 @pytest.mark.parametrize("backend", ["sqlite", "postgresql"])
 def test_kills_inside_commits_behind_the_kernel_lose_nothing(backend, tmp_path, serial, request):
     db = None
@@ -269,7 +254,7 @@ def test_kills_inside_commits_behind_the_kernel_lose_nothing(backend, tmp_path, 
     for mode in modes + [None] * 10:
         if all(led.job(j)["status"] in ("done", "stopped") for j in ids):
             break
-        procs = [_work(ws, db, mode)] if mode else [_work(ws, db), _work(ws, db)]
+        procs = [spawn_work(ws, db, mode)] if mode else [spawn_work(ws, db), spawn_work(ws, db)]
         for p in procs:
             rc = p.wait(timeout=300)
             kills += rc == -signal.SIGKILL

@@ -6,33 +6,20 @@ a new worker resumes; at the end the job must equal an uninterrupted run:
 identical state bytes and identical time series.
 """
 
-import os
 import random
 import signal
-import subprocess
-import sys
 import time
 
 
 from orbitledger.runner.ledger.operations import Ledger
 from orbitledger.runner.execution.worker import Worker
 from orbitledger.runner.ledger.workspace import init
-from helpers import (ROOT, assert_no_double_commit, final_state, samples_bytes,
-                     small_spec, small_spec_text)
+from helpers import (assert_no_double_commit, final_state, samples_bytes,
+                     small_spec, small_spec_text, spawn_work)
 
 KILL_POINTS = ["mid_store_write", "in_commit", "before_commit", "before_store_write",
                "after_store_write", "after_commit", "first_step"]
 LONG = dict(length="400000 yr", chunk="100000 steps", output="2000 steps")
-
-
-def _spawn(ws, failpoints=None):
-    env = dict(os.environ)
-    env.pop("ORBITLEDGER_FAILPOINTS", None)
-    if failpoints:
-        env["ORBITLEDGER_FAILPOINTS"] = failpoints
-    return subprocess.Popen([sys.executable, "-m", "orbitledger.runner.cli", "work", "--workspace", str(ws),
-                             "--quiet", "--lease", "5"], cwd=ROOT, env=env,
-                            stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
 
 
 def _reference(tmp_path, **kw):
@@ -61,13 +48,13 @@ def test_sigkill_at_random_moments_resumes_bit_for_bit(tmp_path):
             # A point not hit yet is armed at its first occurrence, so every
             # kind of moment is certainly exercised; later ones vary.
             count = 1 if mode not in points_hit else rng.randint(1, 3)
-            proc = _spawn(ws, f"{mode}:{count}")
+            proc = spawn_work(ws, failpoints=f"{mode}:{count}")
             rc = proc.wait(timeout=120)
             if rc == -signal.SIGKILL:
                 kills += 1
                 points_hit.add(mode)
         else:
-            proc = _spawn(ws)
+            proc = spawn_work(ws)
             time.sleep(rng.uniform(1.2, 2.2))  # start-up is about 1 s: mostly mid-chunk
             if proc.poll() is None:
                 proc.send_signal(signal.SIGKILL)
@@ -76,7 +63,7 @@ def test_sigkill_at_random_moments_resumes_bit_for_bit(tmp_path):
         assert proc.returncode in (0, 3, -signal.SIGKILL), proc.stderr.read()
         assert_no_double_commit(led, jid)
     # Finish without interruption.
-    proc = _spawn(ws)
+    proc = spawn_work(ws)
     assert proc.wait(timeout=300) == 0, proc.stderr.read()
     assert kills >= 10, kills
     assert {"mid_store_write", "in_commit", "before_commit"} <= points_hit, points_hit
@@ -99,7 +86,7 @@ def test_sigterm_checkpoints_releases_and_exits_3(tmp_path):
     rng = random.Random(5)
     while led.job(jid)["status"] != "done":
         before = led.job(jid)["steps_done"]
-        proc = _spawn(ws)
+        proc = spawn_work(ws)
         # Signal once this worker holds the job and has committed a chunk, not
         # during its start-up (the first kernel call loads the compiled code,
         # about half a second here: signalled then, a worker makes 100 steps).
@@ -130,7 +117,7 @@ def test_two_workers_never_commit_the_same_stretch(tmp_path):
     ws, led = init(tmp_path / "ws")
     ids = [led.submit(small_spec(name=f"j{k}", length="3000 yr", chunk="2000 steps"))
            for k in range(4)]
-    procs = [_spawn(ws) for _ in range(2)]
+    procs = [spawn_work(ws) for _ in range(2)]
     for p in procs:
         assert p.wait(timeout=300) == 0, p.stderr.read()
     owners = set()

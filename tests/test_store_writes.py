@@ -329,7 +329,23 @@ def test_arrays_kept_across_tokens_only_while_their_metadata_is_unchanged(tmp_pa
     for k in want:
         assert got[k].tobytes() == want[k].tobytes(), k
     # The store keeps at most KEPT_JOBS jobs' arrays.
+    written = {}
     for j in range(2, Store.KEPT_JOBS + 5):
         mine.create_job(j, BODIES, capacity=10)
-        mine.write_samples(j, 0, _block(rng, 0, 3), fence=1)
+        written[j] = _block(rng, 0, 3)
+        mine.write_samples(j, 0, written[j], fence=1)
     assert len(mine._open) <= Store.KEPT_JOBS
+    # ...but the last chunks it wrote (each up to PARTICLE_CHUNK_BYTES) only for
+    # the two jobs used last: memory does not grow with the members visited.
+    tails = [h for k, h in mine._open.items() if isinstance(k, tuple) and h["tail"]]
+    assert len(tails) == 2 and mine._handles(Store.KEPT_JOBS + 4, 1)["tail"]
+    # A job whose cached chunk was dropped, written again under the same
+    # token, reads its chunk back from the disk: every row lands.
+    j = Store.KEPT_JOBS + 2
+    assert not mine._open[("async", j)]["tail"]
+    more = _block(rng, 3, 4)
+    mine.write_samples(j, 3, more, fence=1)
+    got = Store(tmp_path / "s").read_samples(j, n=7)
+    want = _expected([written[j], more])
+    for k in want:
+        assert got[k].tobytes() == want[k].tobytes(), k

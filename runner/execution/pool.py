@@ -5,11 +5,13 @@ anything heavy (numba, zarr, the database layer), so the pool's own start-up
 does not delay theirs.
 """
 
+import os
 import signal
 import subprocess
 import sys
 
 from orbitledger.runner import defaults
+from orbitledger.runner.entry import one_thread_libraries
 from orbitledger.runner.execution import signals as stopflag
 from orbitledger.runner.execution.signals import STOP_SIGNALS
 from orbitledger.runner.execution.worklog import LOG
@@ -22,11 +24,13 @@ def run_pool(argv_one, n_workers):
     life, including one that arrived while the pool itself was starting
     (recorded by :mod:`stopflag`, installed first thing by `work`). Workers
     start with the stop signals blocked until their handlers are in place
-    and get SIGTERM if the pool dies. Returns the most telling exit code:
+    and get SIGTERM if the pool dies, and with numpy's BLAS kept to one
+    thread unless the user set its variables. Returns the most telling exit code:
     EXIT_FAILED if any failed, else EXIT_WORK_REMAINS if any says work
     remains, else 0.
     """
     procs = []
+    env = one_thread_libraries(dict(os.environ))
 
     def forward(signum, frame):
         stopflag._handler(signum, frame)
@@ -37,7 +41,7 @@ def run_pool(argv_one, n_workers):
     old = {sig: signal.signal(sig, forward) for sig in STOP_SIGNALS}
     try:
         for _ in range(n_workers):
-            procs.append(subprocess.Popen(argv_one, preexec_fn=stopflag.child_setup))
+            procs.append(subprocess.Popen(argv_one, preexec_fn=stopflag.child_setup, env=env))
             pending = stopflag.requested()
             if pending is not None:
                 # Asked to stop before or while this worker started: it gets

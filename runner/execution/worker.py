@@ -81,6 +81,7 @@ class Worker:
         self.failed = False
         self.results = []
         self.kernel_seconds = 0.0  # wall time in the kernel calls (in-loop samples included)
+        self.kernel_cpu_seconds = 0.0  # the CPU time this thread got during them
 
     # -- signals ------------------------------------------------------------------
     def install_signal_handlers(self):
@@ -128,8 +129,8 @@ class Worker:
         code = self.exit_code()
         run_s = time.perf_counter() - t_run
         up = _process_seconds()
-        LOG.info("worker %s spent %.2f s in kernel calls of its %.2f s of work (%.1f %%)%s",
-                 self.owner, self.kernel_seconds, run_s,
+        LOG.info("worker %s spent %.2f s in kernel calls (%.2f s of CPU) of its %.2f s of work "
+                 "(%.1f %%)%s", self.owner, self.kernel_seconds, self.kernel_cpu_seconds, run_s,
                  100.0 * self.kernel_seconds / run_s if run_s > 0 else 0.0,
                  "" if up is None else f"; {up - run_s:.2f} s of start-up before it")
         LOG.info("worker %s exits with code %d", self.owner, code)
@@ -258,9 +259,10 @@ class Worker:
                 step0 = integ.step
                 while integ.step < chunk_end:
                     n_call = min(chunk_end - integ.step, steps_per_call)
-                    t_call = time.perf_counter()
+                    t_call, c_call = time.perf_counter(), time.thread_time()
                     res = buf.advance(integ, n_call, out)
                     self.kernel_seconds += time.perf_counter() - t_call
+                    self.kernel_cpu_seconds += time.thread_time() - c_call
                     # Kernel calls last about SLICE_SECONDS whatever the system's
                     # size, so signals and requests are seen within seconds. How
                     # the steps are sliced never changes the trajectory.

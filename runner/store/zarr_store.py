@@ -689,6 +689,7 @@ class Store:
             h = self._open.get(key)
             if h is not None:
                 self._open.move_to_end(key)
+            self._drop_old_tails()
         if h is not None and fence is not None and h["fence"] == fence:
             return h
         base = self.job_path(job_id)
@@ -714,7 +715,20 @@ class Store:
                 self._open[key] = h
                 while len(self._open) > self.KEPT_JOBS:
                     self._open.popitem(last=False)
+                self._drop_old_tails()
         return h
+
+    def _drop_old_tails(self):
+        """Keep the cached last chunks (up to PARTICLE_CHUNK_BYTES each) of the two
+        jobs used last only: the one being worked and the one whose last commit
+        may still run behind it. Another job's are never used again before its
+        next claim, whose new token starts from the disk; so a worker going
+        through an ensemble holds two jobs' chunks, not KEPT_JOBS'. (Caller
+        holds self._lock.)"""
+        handles = [h for k, h in self._open.items() if isinstance(k, tuple)]
+        for h in handles[:-2]:
+            if h["tail"]:
+                h["tail"] = {}
 
     def _sample_keys(self, job_id):
         """The sample arrays a job's store has (stores made before ``time_yr`` lack it)."""

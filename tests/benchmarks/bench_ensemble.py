@@ -109,7 +109,7 @@ def work_rate(text, n):
         wall = time.perf_counter() - t0
         # Each worker's last words: time in kernel calls, time worked, start-up.
         for line in open(log, encoding="utf-8"):
-            if " in kernel calls of its " in line:
+            if " in kernel calls (" in line:
                 print("  " + line.split(" INFO ", 1)[-1].strip())
         status = subprocess.run(exe + ["status", "--json", "--all", "--workspace", ws],
                                 check=True, capture_output=True, text=True).stdout
