@@ -122,6 +122,23 @@ def test_a_hold_applied_behind_the_kernel_discards_the_chunk_computed_meanwhile(
     led.close()
 
 
+def _extend_in_last_chunk(led, jid, old_total, new_total, extended):
+    """A progress callback that extends job jid to new_total during its last
+    chunk, once the chunk before it is committed (its commit also runs
+    behind), so that only the last commit sees it; appends the step."""
+
+    def progress(row, step, rate):
+        if step > old_total - CHUNK // 2 and not extended:
+            before_last = (old_total // CHUNK) * CHUNK
+            deadline = time.time() + 60
+            while led.job(jid)["steps_done"] < before_last and time.time() < deadline:
+                time.sleep(0.005)
+            led.extend(jid, new_total)
+            extended.append(step)
+
+    return progress
+
+
 def test_a_job_extended_while_its_last_commit_runs_behind_is_gone_on_with(tmp_path):
     # The last chunk's commit ("done") runs behind the worker's next claim; an
     # extension made during that chunk turns it into "continue" in the ledger.
@@ -133,18 +150,7 @@ def test_a_job_extended_while_its_last_commit_runs_behind_is_gone_on_with(tmp_pa
     old_total = led.job(jid)["total_steps"]
     new_total = old_total + 3 * CHUNK + 123
     extended = []
-
-    def progress(row, step, rate):
-        if step > old_total - CHUNK // 2 and not extended:
-            # In the last chunk, once the chunk before it is committed (its
-            # commit also runs behind), so that only the last commit sees it.
-            before_last = (old_total // CHUNK) * CHUNK
-            deadline = time.time() + 60
-            while led.job(jid)["steps_done"] < before_last and time.time() < deadline:
-                time.sleep(0.005)
-            led.extend(jid, new_total)
-            extended.append(step)
-
+    progress = _extend_in_last_chunk(led, jid, old_total, new_total, extended)
     w = Worker(led, progress=progress, max_steps_per_call=200)
     assert w.run() == 0
     assert extended
@@ -181,16 +187,8 @@ def test_a_hold_asked_for_between_that_commit_and_the_hand_back_is_what_is_recor
             led.hold(jid, reason="operator")
         return result
 
-    def progress(row, step, rate):
-        if step > old_total - CHUNK // 2 and not extended:
-            before_last = (old_total // CHUNK) * CHUNK
-            deadline = time.time() + 60
-            while led.job(jid)["steps_done"] < before_last and time.time() < deadline:
-                time.sleep(0.005)
-            led.extend(jid, new_total)
-            extended.append(step)
-
     led.commit_checkpoint = commit_then_hold
+    progress = _extend_in_last_chunk(led, jid, old_total, new_total, extended)
     w = Worker(led, progress=progress, max_steps_per_call=200)
     assert w.run() == 0
     assert extended
