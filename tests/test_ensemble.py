@@ -148,10 +148,16 @@ def test_depth_first_on_request(tmp_path):
 
 
 def test_breadth_first_holds_with_several_workers(tmp_path):
+    # Chunks of about half a second of compute each: longer than the two
+    # workers' difference in start-up (a worker holds its first member while
+    # it loads the compiled kernel, about 0.4 s, and the other one may work
+    # through the rest meanwhile), so that what is measured is the claim
+    # order, not which process started first. With 2000-step chunks (a few
+    # ms) a start 0.2 s late put the others 4 chunks ahead in 1 run of 4.
     ws, led = init(tmp_path / "ws")
-    chunk = 2000
+    chunk = 1_000_000
     _, ids = led.submit_ensemble(S.load_text(ensemble_text(
-        members=6, length="3000 yr", chunk=f"{chunk} steps")))
+        members=6, length="160000 yr", chunk=f"{chunk} steps", output="10000 steps")))
     procs = [subprocess.Popen([sys.executable, "-m", "orbitledger.runner.cli", "work", "--workspace", str(ws),
                                "--quiet"], cwd=ROOT) for _ in range(2)]
     assert [p.wait(timeout=300) for p in procs] == [0, 0]
