@@ -13,7 +13,12 @@ the same run, with
 
 The machine is noisy (a shared 2-core virtual machine: the same kernel
 varies by ±10 % from minute to minute), so `--rounds R` alternates the three
-measures R times and compares the best of each.
+measures R times and compares the best of each; and, since the best of
+short bare runs favours them against a long `work` run, the N bare kernels
+at once also run for as long as each round's `work` (the first round's
+first run: --bare-seconds), and each round's `work` is set against the mean
+of the bare runs just before and just after it. The CPU the host took from
+this virtual machine during each `work` run (steal time) is printed too.
 
 `--inside` adds a measure the machine's drift cannot blur: one in-process
 worker on the same ensemble, with the time spent in the kernel calls
