@@ -1,8 +1,10 @@
 """Ensembles use every core: `work --workers N` against N times the bare kernel.
 
 An ensemble of 4 x N stable members (the invented Veyra giants, clones that
-differ by 1e-12 au in one semi-major axis) is run by `orbitledger work
---workers N` in a fresh workspace; its rate is the member steps committed
+differ by 1e-12 au in one semi-major axis; checkpoints at the spec's default
+interval, 1000 outputs = 5 Myr here, or every --chunk, e.g. the job file's
+"500 kyr", ten times as often) is run by `orbitledger work --workers N` in a
+fresh workspace; its rate is the member steps committed
 per wall-clock second, from the start of the command to its exit (process
 start, imports, claims, commits and samples included). It is compared, in
 the same run, with
@@ -19,6 +21,9 @@ at once also run for as long as each round's `work` (the first round's
 first run: --bare-seconds), and each round's `work` is set against the mean
 of the bare runs just before and just after it. The CPU the host took from
 this virtual machine during each `work` run (steal time) is printed too.
+`--also-chunk X` runs, in each round, `work` on the same ensemble with
+checkpoints every X as well (the two plans in alternating order), and gives
+the ratio of the two rates per round: what the checkpoints cost, side by side.
 
 `--inside` adds a measure the machine's drift cannot blur: one in-process
 worker on the same ensemble, with the time spent in the kernel calls
@@ -27,7 +32,8 @@ own cost (claims, loads, commits, samples), from one and the same run; and
 its CPU time outside the kernel on every thread (what a worker takes from
 the other workers' kernels when there are as many workers as cores).
 
-Run:  .venv/bin/python tests/benchmarks/bench_ensemble.py [--workers 2] [--length "2 Myr"] [--rounds 3] [--inside]
+Run:  .venv/bin/python tests/benchmarks/bench_ensemble.py [--workers 2] [--length "2 Myr"]
+          [--chunk "500 kyr"] [--also-chunk "500 kyr"] [--rounds 3] [--inside]
 Reports; asserts nothing.
 """
 
@@ -46,10 +52,12 @@ SPEC = os.path.join(ROOT, "jobs", "veyra-giants.toml")
 
 
 def ensemble_text(members, length, chunk=None):
+    """The job file with this span, as an ensemble of ``members``; checkpoints every
+    ``chunk``, or, None, at the spec's default interval (1000 outputs: 5 Myr here;
+    the job file's own 500 kyr is `chunk="500 kyr"`)."""
     base = open(SPEC, encoding="utf-8").read()
     base = base.replace('length = "10 Myr"', f'length = "{length}"')
-    if chunk is not None:
-        base = base.replace('chunk = "500 kyr"', f'chunk = "{chunk}"')
+    base = base.replace('chunk = "500 kyr"\n', "" if chunk is None else f'chunk = "{chunk}"\n')
     return base + f"""
 [ensemble]
 members = {members}
@@ -166,7 +174,11 @@ def main():
     ap.add_argument("--workers", type=int, default=2)
     ap.add_argument("--length", default="2 Myr", help="span of each member")
     ap.add_argument("--chunk", default=None,
-                    help="checkpoint interval (default: the job file's 500 kyr)")
+                    help="checkpoint interval (default: the spec's, 1000 outputs = 5 Myr; "
+                         "the job file's is 500 kyr)")
+    ap.add_argument("--also-chunk", default=None,
+                    help="each round also runs `work` with checkpoints this often (the two "
+                         "plans in alternating order), to set their rates side by side")
     ap.add_argument("--bare-seconds", type=float, default=8.0)
     ap.add_argument("--rounds", type=int, default=1,
                     help="alternate bare kernels and `work` this many times; best of each")
@@ -177,26 +189,39 @@ def main():
     members = 4 * n
     text = ensemble_text(members, args.length, args.chunk)
 
-    ones, togethers, works, steals = [], [], [], []
+    other = None if args.also_chunk is None else ensemble_text(members, args.length,
+                                                               args.also_chunk)
+    ones, togethers, works, steals, alsos = [], [], [], [], []
     together_seconds = args.bare_seconds
     for r in range(args.rounds):
         ones.append(bare_rate(text, args.bare_seconds))
         togethers.append(together_rate(text, n, together_seconds))
+        also = None
+        if other is not None and r % 2 == 1:
+            also = work_rate(other, n)  # the two plans in alternating order
         s0 = steal()
         works.append(work_rate(text, n))
         steals.append(steal() - s0)
+        if other is not None and r % 2 == 0:
+            also = work_rate(other, n)
         rate, wall, steps, done = works[-1]
         together_seconds = wall
         print(f"round {r + 1}: one bare kernel {ones[-1]:,.0f}/s, {n} at once "
               f"{togethers[-1]:,.0f}/s, `work` {rate:,.0f}/s ({wall:.1f} s wall; "
               f"{steals[-1]:.1f} s of CPU stolen by the host)", flush=True)
+        if also is not None:
+            alsos.append(also)
+            print(f"round {r + 1}: `work` with checkpoints every {args.also_chunk} "
+                  f"{also[0]:,.0f}/s ({also[1]:.1f} s wall), {also[0] / rate:.3f} of the "
+                  "rate above", flush=True)
     # N bare kernels at once once more, for as long as the last `work`: each
     # round's `work` is bracketed by two runs of the bare kernels as long as it
     # (the first round's first: --bare-seconds).
     togethers.append(together_rate(text, n, together_seconds))
     one, together = max(ones), max(togethers)
     rate, wall, steps, done = max(works)
-    print(f"{members} members of {args.length}, checkpoints every {args.chunk or '500 kyr'} "
+    print(f"{members} members of {args.length}, checkpoints every "
+          f"{args.chunk or '5 Myr (the default: 1000 outputs)'} "
           f"({steps} member steps, {done} done), --workers {n}: {wall:.1f} s wall"
           + (f" (best of {args.rounds} rounds, each measure its own best)"
              if args.rounds > 1 else ""))
@@ -214,6 +239,15 @@ def main():
     print(f"each round's `work` ÷ the mean of {n} bare kernels at once before and after it: "
           + ", ".join(f"{b:.3f}" for b in bracketed)
           + f" (median {sorted(bracketed)[len(bracketed) // 2]:.3f})")
+    if alsos:
+        ratios = sorted(a[0] / w[0] for a, w in zip(alsos, works))
+        print(f"checkpoints every {args.also_chunk} ÷ every "
+              f"{args.chunk or '5 Myr (the default)'}, per round: "
+              + ", ".join(f"{a[0] / w[0]:.3f}" for a, w in zip(alsos, works))
+              + f" (median {ratios[len(ratios) // 2]:.3f}); ÷ the mean of {n} bare kernels "
+              "at once around the round: " + ", ".join(
+                  f"{a[0] / (0.5 * (togethers[r] + togethers[r + 1])):.3f}"
+                  for r, a in enumerate(alsos)))
     if args.inside:
         inside_share(ensemble_text(2, "500 kyr", args.chunk))  # compile and warm
         for r in range(args.rounds):
