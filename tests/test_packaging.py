@@ -36,15 +36,15 @@ def test_the_program_loads_no_folder_named_modules_and_the_api_is_lazy():
 
 def test_status_loads_nothing_heavy(tmp_path):
     # `status` is what an operator runs most, on ledgers of 100 000 jobs: its
-    # time is mostly start-up, so it must not load the numerical core, the
-    # store's zarr, units or plotting.
+    # time is mostly start-up, so it must not load the numerical core, numpy,
+    # the store (numpy, zarr), units or plotting.
     ws = tmp_path / "ws"
     subprocess.run([sys.executable, "-m", "orbitledger.runner.cli", "init", "--workspace",
                     str(ws)], check=True, capture_output=True)
     code = ("import sys; sys.argv = ['orbitledger', 'status', '--workspace', %r]\n"
             "from orbitledger.runner.cli import main\n"
             "try:\n    main()\nexcept SystemExit:\n    pass\n"
-            "heavy = ('numba', 'zarr', 'astropy', 'matplotlib', 'xarray', 'scipy')\n"
+            "heavy = ('numba', 'numpy', 'zarr', 'astropy', 'matplotlib', 'xarray', 'scipy')\n"
             "print(sorted({m.split('.')[0] for m in sys.modules} & set(heavy)), "
             "file=sys.stderr)\n" % str(ws))
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)

@@ -10,6 +10,8 @@ A crash anywhere leaves the last committed checkpoint intact.
 
 __all__ = ["GENESIS", "Claim", "CommitResult", "Ledger", "angmom0", "repair_by_replay"]
 
+import threading
+
 from sqlalchemy import update
 
 from orbitledger.runner import defaults
@@ -23,7 +25,6 @@ from orbitledger.runner.ledger.reading import Reading, angmom0, repair_by_replay
 from orbitledger.runner.ledger.status import JobStatus, check_transition
 from orbitledger.runner.ledger.submission import Submitting
 from orbitledger.runner.ledger.work import WorkerSide
-from orbitledger.runner.store.zarr_store import Store
 
 
 class Ledger(Submitting, WorkerSide, Reading):
@@ -42,7 +43,9 @@ class Ledger(Submitting, WorkerSide, Reading):
     def __init__(self, url, store_root, lease_seconds=defaults.LEASE_SECONDS):
         self.url = url
         self.engine = make_engine(url)
-        self.store = Store(store_root)
+        self._store_root = store_root
+        self._store = None
+        self._store_lock = threading.Lock()
         self.lease_seconds = float(lease_seconds)
         from sqlalchemy.exc import SQLAlchemyError
 
@@ -62,6 +65,20 @@ class Ledger(Submitting, WorkerSide, Reading):
             # A read-only workspace (a read-only mount, an archive): viewable.
             self.engine.dispose()
             self.engine, self.read_only = ro, True
+
+    @property
+    def store(self):
+        """The checkpoint store, opened on first use: the store module loads numpy
+        (and, when it opens a group, zarr), which the ledger's light commands
+        (`status`, `hold`, ...) never need. One Store per Ledger, also when a
+        worker's main thread and its helper thread ask for it at once."""
+        if self._store is None:
+            with self._store_lock:
+                if self._store is None:
+                    from orbitledger.runner.store.zarr_store import Store
+
+                    self._store = Store(self._store_root)
+        return self._store
 
     def close(self):
         """Release database connections."""

@@ -3,7 +3,6 @@ committed checkpoints (part of :class:`~orbitledger.runner.ledger.operations.Led
 
 import json
 
-import numpy as np
 from sqlalchemy import and_, func, select
 
 from orbitledger.runner.errors import NotFoundError
@@ -203,4 +202,6 @@ def repair_by_replay(ledger, job_id, claim=None):
 
 def angmom0(row):
     """The job's initial angular-momentum vector."""
+    import numpy as np  # here: the ledger's light paths (`status`) do not load numpy
+
     return np.array(json.loads(row["angmom0"]))

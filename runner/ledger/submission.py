@@ -8,7 +8,7 @@ from sqlalchemy import insert, select
 from orbitledger.runner.errors import LedgerError, NotFoundError
 from orbitledger.runner.ledger.db import (checkpoints, ensembles, jobs)
 from orbitledger.runner.ledger.status import JobStatus
-from orbitledger.runner.store.zarr_store import chain_sha256
+from orbitledger.runner.store.chain import chain_sha256
 from orbitledger.runner.ledger.basics import GENESIS, _now
 
 

@@ -11,7 +11,7 @@ from orbitledger.runner.execution.failpoints import failpoint
 from orbitledger.runner.ledger import statements
 from orbitledger.runner.ledger.db import (checkpoints, events, is_sqlite, jobs, segments)
 from orbitledger.runner.ledger.status import JobStatus
-from orbitledger.runner.store.zarr_store import chain_sha256
+from orbitledger.runner.store.chain import chain_sha256
 from orbitledger.runner.ledger.basics import Claim, CommitResult, _now
 
 
