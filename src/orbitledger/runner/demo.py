@@ -16,7 +16,8 @@ from orbitledger.runner.ledger.status import JobStatus
 from orbitledger.runner.inputs.text import format_time
 from orbitledger.runner.ledger.workspace import MARKER, init
 
-JOBS_DIR = Path(__file__).resolve().parents[1] / "jobs"
+# src/orbitledger/runner/demo.py -> the checkout's jobs/ folder
+JOBS_DIR = Path(__file__).resolve().parents[3] / "jobs"
 DEMO_SPECS = ("veyra-giants.toml", "veyra-full.toml")
 
 

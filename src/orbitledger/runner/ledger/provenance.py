@@ -20,7 +20,10 @@ def _version(dist):
 @functools.lru_cache(maxsize=1)
 def source_commit():
     """Git commit of the source tree orbitledger runs from, when it is a checkout."""
-    here = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+    # src/orbitledger/runner/ledger/provenance.py: the checkout is four folders up.
+    here = os.path.abspath(__file__)
+    for _ in range(5):
+        here = os.path.dirname(here)
     if not os.path.isdir(os.path.join(here, ".git")):
         return None
     try:
