@@ -85,6 +85,19 @@ def stumpff(x):
         n += 1
     if x > _STUMPFF_REDUCED or x < -_STUMPFF_REDUCED:
         return np.nan, np.nan, np.nan, np.nan
+    c0, c1, c2, c3 = stumpff_series(x)
+    for _ in range(n):
+        c0, c1, c2, c3 = stumpff_double(c0, c1, c2, c3)
+    return c0, c1, c2, c3
+
+
+# The pieces below are the arithmetic of the drift, defined once: the scalar
+# solver composes them with branches and early returns, the batched one
+# (integrators.batch) with per-lane masks, so both give the same bits.
+
+@njit(cache=True, error_model="numpy", inline="always")
+def stumpff_series(x):
+    """c0..c3 of a reduced argument |x| <= 0.1 by their series."""
     # Estrin's scheme: the same series in three levels of dependent operations
     # instead of Horner's fourteen (the series is most of a Kepler iteration).
     x2 = x * x
@@ -95,19 +108,18 @@ def stumpff(x):
           + x4 * ((_B4 + _B5 * x) + x2 * (_B6 + _B7 * x)))
     c1 = 1.0 - x * c3
     c0 = 1.0 - x * c2
-    for _ in range(n):
-        c3 = (c2 + c0 * c3) * 0.25
-        c2 = c1 * c1 * 0.5
-        c1 = c0 * c1
-        c0 = 2.0 * c0 * c0 - 1.0
     return c0, c1, c2, c3
 
 
 @njit(cache=True, error_model="numpy", inline="always")
-def _kepler_eq(s, beta, r0, eta0, zeta0, mu):
-    """t(s), r(s) = t'(s), r'(s), G0, G1, G2 of the universal Kepler equation, and the
-    sum of the magnitudes of t's terms (the scale of its rounding)."""
-    c0, c1, c2, c3 = stumpff(beta * s * s)
+def stumpff_double(c0, c1, c2, c3):
+    """c0..c3 of 4x from those of x (Danby 1988, eq. 6.9.29)."""
+    return 2.0 * c0 * c0 - 1.0, c0 * c1, c1 * c1 * 0.5, (c2 + c0 * c3) * 0.25
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def kepler_terms(s, c0, c1, c2, c3, r0, eta0, zeta0, mu):
+    """t(s), r(s), r'(s), G0, G1, G2 and t's rounding scale from the Stumpff values."""
     g1 = s * c1
     g2 = s * s * c2
     g3 = s * s * s * c3
@@ -121,12 +133,22 @@ def _kepler_eq(s, beta, r0, eta0, zeta0, mu):
 
 
 @njit(cache=True, error_model="numpy", inline="always")
-def solve_universal(r0, eta0, beta, mu, dt):
-    """Solve the universal Kepler equation for s.
+def _kepler_eq(s, beta, r0, eta0, zeta0, mu):
+    """t(s), r(s) = t'(s), r'(s), G0, G1, G2 of the universal Kepler equation, and the
+    sum of the magnitudes of t's terms (the scale of its rounding)."""
+    c0, c1, c2, c3 = stumpff(beta * s * s)
+    return kepler_terms(s, c0, c1, c2, c3, r0, eta0, zeta0, mu)
 
-    Returns (s, r, G0, G1, G2, iterations, bracketed), r and the G-functions
-    taken at the returned s.
-    """
+
+# Outcomes of one Halley iteration.
+_ITERATE = 0
+_SOLVED = 1
+_FALLBACK = 2
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def universal_guess(r0, eta0, beta, mu, dt):
+    """zeta0, the starting s and the bracket [lo, hi] of the universal Kepler equation."""
     zeta0 = mu - beta * r0
     # Third-order series inversion of t(s) = r0 s + eta0 s^2/2 + zeta0 s^3/6.
     ir0 = 1.0 / r0
@@ -156,42 +178,67 @@ def solve_universal(r0, eta0, beta, mu, dt):
         # The cubic guess can take the wrong sign for a long hyperbolic drift;
         # dt / r0 has the right one.
         s = min(max(dt * ir0, lo), hi)
+    return zeta0, s, lo, hi
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def halley_update(s, dt, t, r, rp, g0, g1, g2, t_scale, lo, hi, ds_prev, beta, r0, eta0, mu):
+    """One Halley iteration from t(s), r(s), r'(s) and the G-functions at s.
+
+    Returns (outcome, s, r, G0, G1, G2, lo, hi, ds): _SOLVED with the root's
+    values, _ITERATE with the next s (the G-values then unused) or _FALLBACK.
+    """
+    f = t - dt
+    if not (abs(f) < np.inf):
+        return _FALLBACK, s, r, g0, g1, g2, lo, hi, ds_prev  # overflow or NaN
+    if f == 0.0 or abs(f) <= _T_NOISE * t_scale:
+        # The residual is rounding noise: s is as good as this equation can
+        # give (a timing error of a few ulps of t), and a step computed from
+        # noise would only move it away (by noise / r: far, where r is
+        # small, as at the pericentre of an eccentric orbit).
+        return _SOLVED, s, r, g0, g1, g2, lo, hi, ds_prev
+    if f > 0.0:
+        hi = s
+    else:
+        lo = s
+    # Halley's step -f / (r - f rp / (2 r)) with one division on the path.
+    ds = -f * r / (r * r - 0.5 * f * rp)
+    s_new = s + ds
+    if not (lo <= s_new <= hi) or not (r > 0.0):
+        return _FALLBACK, s, r, g0, g1, g2, lo, hi, ds  # also a NaN
+    if abs(ds) <= _S_SHIFT * abs(s_new) and abs(ds) <= 1e-3 * abs(ds_prev):
+        # Halley converges cubically: once a correction is this small and
+        # at least 1000x smaller than the one before (the cubic regime is
+        # visible), the error of s_new is below 1e-20 relative. Shift the G-functions
+        # from s to s_new by Taylor's formula (dG_k/ds = G_(k-1),
+        # dG_0/ds = -beta G_1); the neglected term is O(ds^3).
+        h = ds
+        hh = 0.5 * h * h
+        n0 = g0 - beta * (g1 * h + g0 * hh)
+        n1 = g1 + g0 * h - beta * g1 * hh
+        n2 = g2 + g1 * h + g0 * hh
+        r = r0 * n0 + eta0 * n1 + mu * n2
+        return _SOLVED, s_new, r, n0, n1, n2, lo, hi, ds
+    return _ITERATE, s_new, r, g0, g1, g2, lo, hi, ds
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def solve_universal(r0, eta0, beta, mu, dt):
+    """Solve the universal Kepler equation for s.
+
+    Returns (s, r, G0, G1, G2, iterations, bracketed), r and the G-functions
+    taken at the returned s.
+    """
+    zeta0, s, lo, hi = universal_guess(r0, eta0, beta, mu, dt)
     ds_prev = np.inf
     for it in range(_HALLEY_MAX):
         t, r, rp, g0, g1, g2, t_scale = _kepler_eq(s, beta, r0, eta0, zeta0, mu)
-        f = t - dt
-        if not (abs(f) < np.inf):
-            break  # overflow (a far hyperbolic guess) or NaN: the fallback copes
-        if f == 0.0 or abs(f) <= _T_NOISE * t_scale:
-            # The residual is rounding noise: s is as good as this equation can
-            # give (a timing error of a few ulps of t), and a step computed from
-            # noise would only move it away (by noise / r: far, where r is
-            # small, as at the pericentre of an eccentric orbit).
+        code, s, r, g0, g1, g2, lo, hi, ds_prev = halley_update(
+            s, dt, t, r, rp, g0, g1, g2, t_scale, lo, hi, ds_prev, beta, r0, eta0, mu)
+        if code == _SOLVED:
             return s, r, g0, g1, g2, it + 1, False
-        if f > 0.0:
-            hi = s
-        else:
-            lo = s
-        # Halley's step -f / (r - f rp / (2 r)) with one division on the path.
-        ds = -f * r / (r * r - 0.5 * f * rp)
-        s_new = s + ds
-        if not (lo <= s_new <= hi) or not (r > 0.0):
-            break  # also a NaN: every comparison with it is false
-        if abs(ds) <= _S_SHIFT * abs(s_new) and abs(ds) <= 1e-3 * abs(ds_prev):
-            # Halley converges cubically: once a correction is this small and
-            # at least 1000x smaller than the one before (the cubic regime is
-            # visible), the error of s_new is below 1e-20 relative. Shift the G-functions
-            # from s to s_new by Taylor's formula (dG_k/ds = G_(k-1),
-            # dG_0/ds = -beta G_1); the neglected term is O(ds^3).
-            h = ds
-            hh = 0.5 * h * h
-            n0 = g0 - beta * (g1 * h + g0 * hh)
-            n1 = g1 + g0 * h - beta * g1 * hh
-            n2 = g2 + g1 * h + g0 * hh
-            r = r0 * n0 + eta0 * n1 + mu * n2
-            return s_new, r, n0, n1, n2, it + 1, False
-        ds_prev = ds
-        s = s_new
+        if code == _FALLBACK:
+            break
     # Guarded fallback: t(s) is strictly increasing in s, so bracket and bisect.
     sign = 1.0 if dt >= 0.0 else -1.0
     lo = 0.0
@@ -222,12 +269,8 @@ def solve_universal(r0, eta0, beta, mu, dt):
 
 
 @njit(cache=True, error_model="numpy", inline="always")
-def drift_state(x0, x1, x2, v0, v1, v2, mu, dt):
-    """One relative two-body state (x, v) advanced by dt; returns the six new components.
-
-    Inlined into its callers at numba's level, so a drift costs no call and no
-    reference counting of arrays (a call per drift cost about a fifth of a step).
-    """
+def drift_prelude(x0, x1, x2, v0, v1, v2, mu, dt):
+    """r0, 1/r0, x.v, beta = 2 mu / r0 - v^2 and dt less any whole periods."""
     r0 = np.sqrt(x0 * x0 + x1 * x1 + x2 * x2)
     ir0 = 1.0 / r0
     vsq = v0 * v0 + v1 * v1 + v2 * v2
@@ -237,7 +280,12 @@ def drift_state(x0, x1, x2, v0, v1, v2, mu, dt):
         # Longer than a period: whole periods change nothing, so remove them.
         period = TWO_PI * mu / (beta * np.sqrt(beta))
         dt = dt - np.trunc(dt / period) * period
-    s, r, g0, g1, g2, _, _ = solve_universal(r0, eta0, beta, mu, dt)
+    return r0, ir0, eta0, beta, dt
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def drift_finish(x0, x1, x2, v0, v1, v2, mu, r0, ir0, eta0, r, g1, g2):
+    """The drifted state from the solution (r, G1, G2) by the Lagrange coefficients."""
     # f - 1 and g written to avoid the cancellation in 1 - f and dt - mu G3.
     fm1 = -mu * g2 * ir0
     g = r0 * g1 + eta0 * g2
@@ -263,6 +311,18 @@ def drift_state(x0, x1, x2, v0, v1, v2, mu, dt):
         gdm1 = -mu * g2 * ir
     return (x0 + (fm1 * x0 + g * v0), x1 + (fm1 * x1 + g * v1), x2 + (fm1 * x2 + g * v2),
             v0 + (fd * x0 + gdm1 * v0), v1 + (fd * x1 + gdm1 * v1), v2 + (fd * x2 + gdm1 * v2))
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def drift_state(x0, x1, x2, v0, v1, v2, mu, dt):
+    """One relative two-body state (x, v) advanced by dt; returns the six new components.
+
+    Inlined into its callers at numba's level, so a drift costs no call and no
+    reference counting of arrays (a call per drift cost about a fifth of a step).
+    """
+    r0, ir0, eta0, beta, dt = drift_prelude(x0, x1, x2, v0, v1, v2, mu, dt)
+    s, r, g0, g1, g2, _, _ = solve_universal(r0, eta0, beta, mu, dt)
+    return drift_finish(x0, x1, x2, v0, v1, v2, mu, r0, ir0, eta0, r, g1, g2)
 
 
 @njit(cache=True, error_model="numpy", inline="always")

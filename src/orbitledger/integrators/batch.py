@@ -1,0 +1,543 @@
+"""The Wisdom-Holman map for a batch of ensemble members at once.
+
+Members of one ensemble share the masses, the step, the corrector, the GR
+term and the stop conditions; only their states differ. Here B members
+("lanes") advance together in one compiled call, with the lane index
+innermost in memory (arrays shaped (body, coordinate, lane)), so that the
+compiler can apply one vector instruction to several members.
+
+Each lane's arithmetic is the scalar kernel's own, operation for operation,
+so a member's trajectory, samples and stop step are the bytes
+:func:`integrators.wisdom_holman.wh_steps` gives it alone. The pieces of the
+drift (:mod:`integrators.kepler`: the drift's prelude, the starting guess,
+the Stumpff series and doubling, the Kepler terms, one Halley iteration, the
+Lagrange finish) are defined once and composed here with per-lane masks
+instead of branches: the Kepler solver iterates while any lane is
+unconverged, and a converged lane's values are frozen at the bits its scalar
+solver returned. A lane that needs the solver's bracketed fallback (rare:
+near-parabolic or extreme drifts) is solved by the scalar solver itself.
+Stop conditions are screened for all lanes with the scalar conditions'
+arithmetic, and a lane that meets one is checked again by the scalar
+:func:`integrators.stops.check_stops`, so the stop and its bodies are the
+scalar kernel's. Samples are taken per lane by the scalar diagnosis on a
+copy. The call returns at the end of the first step in which any lane
+stopped; the driver (:func:`advance_together`) hands that lane back and goes
+on with the others.
+"""
+
+import llvmlite.binding as _llvm
+import numpy as np
+from numba import njit
+
+from .kepler import (_HALLEY_MAX, _ITERATE, _STUMPFF_MAX_QUARTERS, _STUMPFF_REDUCED,
+                     drift_finish, drift_prelude, halley_update, kepler_terms, solve_universal,
+                     stumpff_double, stumpff_series, universal_guess)
+from .stops import NUMERICAL_FAILURE_CODE, check_stops, first_broken
+from .wisdom_holman import WisdomHolman, wh_diagnose
+
+# A lane loop reads and writes many rows of several arrays; LLVM vectorizes
+# it behind run-time checks that the arrays do not overlap, and by default
+# gives up beyond a small number of checks (measured: a loop with 7 read and
+# 11 written rows stayed scalar). Raising the limit only lets more loops take
+# the vector path; it changes no operation, so no bits (a vector loop here
+# does per lane what the scalar one does; no reduction of floating-point
+# values is reordered without fast-math). It is set process-wide before this
+# module's kernels are compiled.
+_llvm.set_option("", "-vectorize-memory-check-threshold=1024")
+
+# Rows of the per-lane scratch array of the drift.
+_R0, _IR0, _ETA, _BETA, _DT, _ZETA, _S, _LO, _HI, _DSP, _ST = range(11)
+_RR, _G0, _G1, _G2, _Y, _NQ, _C0, _C1, _C2, _C3 = range(11, 21)
+N_DRIFT_ROWS = 21
+# Rows of the per-lane scratch array of the step (besides the drift's).
+_H, _A0, _A1, _A2, _FLAG = range(5)
+N_STEP_ROWS = 5
+
+# Members advanced together by default: measured (docs/benchmarks.md,
+# "Batched members"), not guessed.
+DEFAULT_LANES = 16
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def _drift_lanes(x, v, i, mu, h, nl, w):
+    """Kepler drift of Jacobi row i of every lane by h[lane], in place.
+
+    x, v: (n, 3, B); h: (B,); w: scratch (N_DRIFT_ROWS, B).
+    """
+    for m in range(nl):
+        r0, ir0, eta0, beta, dt = drift_prelude(x[i, 0, m], x[i, 1, m], x[i, 2, m],
+                                                v[i, 0, m], v[i, 1, m], v[i, 2, m], mu, h[m])
+        zeta0, s, lo, hi = universal_guess(r0, eta0, beta, mu, dt)
+        w[_R0, m] = r0
+        w[_IR0, m] = ir0
+        w[_ETA, m] = eta0
+        w[_BETA, m] = beta
+        w[_DT, m] = dt
+        w[_ZETA, m] = zeta0
+        w[_S, m] = s
+        w[_LO, m] = lo
+        w[_HI, m] = hi
+        w[_DSP, m] = np.inf
+        w[_ST, m] = 0.0
+    for _ in range(_HALLEY_MAX):
+        # Stumpff functions of beta s^2 for the lanes still iterating: quarter
+        # the argument while any lane needs it (a lane stops quartering where
+        # its scalar loop would), the series, then the lane's own doublings.
+        for m in range(nl):
+            w[_Y, m] = w[_BETA, m] * w[_S, m] * w[_S, m]
+            w[_NQ, m] = 0.0
+        rounds = 0
+        for _q in range(_STUMPFF_MAX_QUARTERS):
+            need = 0
+            for m in range(nl):
+                y = w[_Y, m]
+                more = w[_ST, m] == 0.0 and (y > _STUMPFF_REDUCED or y < -_STUMPFF_REDUCED)
+                w[_Y, m] = y * 0.25 if more else y
+                w[_NQ, m] += 1.0 if more else 0.0
+                need += 1 if more else 0
+            if need == 0:
+                break
+            rounds += 1
+        for m in range(nl):
+            y = w[_Y, m]
+            c0, c1, c2, c3 = stumpff_series(y)
+            bad = y > _STUMPFF_REDUCED or y < -_STUMPFF_REDUCED
+            w[_C0, m] = np.nan if bad else c0
+            w[_C1, m] = np.nan if bad else c1
+            w[_C2, m] = np.nan if bad else c2
+            w[_C3, m] = np.nan if bad else c3
+        for q in range(rounds):
+            for m in range(nl):
+                c0, c1, c2, c3 = stumpff_double(w[_C0, m], w[_C1, m], w[_C2, m], w[_C3, m])
+                go = q < w[_NQ, m]
+                w[_C0, m] = c0 if go else w[_C0, m]
+                w[_C1, m] = c1 if go else w[_C1, m]
+                w[_C2, m] = c2 if go else w[_C2, m]
+                w[_C3, m] = c3 if go else w[_C3, m]
+        left = 0
+        for m in range(nl):
+            s = w[_S, m]
+            beta = w[_BETA, m]
+            r0 = w[_R0, m]
+            eta0 = w[_ETA, m]
+            t, r, rp, g0, g1, g2, t_scale = kepler_terms(
+                s, w[_C0, m], w[_C1, m], w[_C2, m], w[_C3, m], r0, eta0, w[_ZETA, m], mu)
+            code, s, r, g0, g1, g2, lo, hi, ds = halley_update(
+                s, w[_DT, m], t, r, rp, g0, g1, g2, t_scale, w[_LO, m], w[_HI, m], w[_DSP, m],
+                beta, r0, eta0, mu)
+            live = w[_ST, m] == 0.0
+            w[_ST, m] = float(code) if live else w[_ST, m]
+            w[_S, m] = s if live else w[_S, m]
+            w[_RR, m] = r if live else w[_RR, m]
+            w[_G1, m] = g1 if live else w[_G1, m]
+            w[_G2, m] = g2 if live else w[_G2, m]
+            w[_LO, m] = lo if live else w[_LO, m]
+            w[_HI, m] = hi if live else w[_HI, m]
+            w[_DSP, m] = ds if live else w[_DSP, m]
+            left += 1 if live and code == _ITERATE else 0
+        if left == 0:
+            break
+    for m in range(nl):
+        if w[_ST, m] != 1.0:
+            # Unconverged after every Halley iteration, or sent to the fallback:
+            # the scalar solver (its own iterations, then its bracket) gives
+            # this lane exactly what it gives the member alone.
+            _, r, _, g1, g2, _, _ = solve_universal(w[_R0, m], w[_ETA, m], w[_BETA, m], mu,
+                                                    w[_DT, m])
+            w[_RR, m] = r
+            w[_G1, m] = g1
+            w[_G2, m] = g2
+    for m in range(nl):
+        a0, a1, a2, b0, b1, b2 = drift_finish(
+            x[i, 0, m], x[i, 1, m], x[i, 2, m], v[i, 0, m], v[i, 1, m], v[i, 2, m], mu,
+            w[_R0, m], w[_IR0, m], w[_ETA, m], w[_RR, m], w[_G1, m], w[_G2, m])
+        x[i, 0, m] = a0
+        x[i, 1, m] = a1
+        x[i, 2, m] = a2
+        v[i, 0, m] = b0
+        v[i, 1, m] = b1
+        v[i, 2, m] = b2
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def _drift_all_lanes(xj, vj, mu, h, nl, w):
+    """:func:`integrators.wisdom_holman.drift_all` for every lane."""
+    for d in range(3):
+        for m in range(nl):
+            xj[0, d, m] += vj[0, d, m] * h[m]
+    for i in range(1, xj.shape[0]):
+        _drift_lanes(xj, vj, i, mu[i], h, nl, w)
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def _kick_lanes(xj, vj, gm, mu, mr, h, gr_coef, xi, acc, nl, c):
+    """:func:`integrators.wisdom_holman.kick` for every lane, same operations in the
+    same order per lane. xi, acc: (n, 3, B) scratch (xi keeps the inertial positions
+    for the stop checks); c: (N_STEP_ROWS, B) scratch."""
+    n = xj.shape[0]
+    # to_inertial
+    for d in range(3):
+        for m in range(nl):
+            c[_A0 + d, m] = xj[0, d, m]
+    for i in range(n - 1, 0, -1):
+        q = mr[i]
+        for d in range(3):
+            for m in range(nl):
+                cc = c[_A0 + d, m] - q * xj[i, d, m]
+                c[_A0 + d, m] = cc
+                xi[i, d, m] = cc + xj[i, d, m]
+    for d in range(3):
+        for m in range(nl):
+            xi[0, d, m] = c[_A0 + d, m]
+    # accelerations
+    for i in range(n):
+        for d in range(3):
+            for m in range(nl):
+                acc[i, d, m] = 0.0
+    for i in range(n):
+        for j in range(i + 1, n):
+            gi = gm[i]
+            gj = gm[j]
+            for m in range(nl):
+                dx = xi[j, 0, m] - xi[i, 0, m]
+                dy = xi[j, 1, m] - xi[i, 1, m]
+                dz = xi[j, 2, m] - xi[i, 2, m]
+                r2 = dx * dx + dy * dy + dz * dz
+                ir3 = 1.0 / (r2 * np.sqrt(r2))
+                fi = gj * ir3
+                fj = gi * ir3
+                acc[i, 0, m] += fi * dx
+                acc[i, 1, m] += fi * dy
+                acc[i, 2, m] += fi * dz
+                acc[j, 0, m] -= fj * dx
+                acc[j, 1, m] -= fj * dy
+                acc[j, 2, m] -= fj * dz
+    if gr_coef > 0.0:
+        for i in range(1, n):
+            q = gm[i] / gm[0]
+            for m in range(nl):
+                dx = xi[i, 0, m] - xi[0, 0, m]
+                dy = xi[i, 1, m] - xi[0, 1, m]
+                dz = xi[i, 2, m] - xi[0, 2, m]
+                r2 = dx * dx + dy * dy + dz * dz
+                f = gr_coef / (r2 * r2)
+                acc[i, 0, m] -= f * dx
+                acc[i, 1, m] -= f * dy
+                acc[i, 2, m] -= f * dz
+                acc[0, 0, m] += q * f * dx
+                acc[0, 1, m] += q * f * dy
+                acc[0, 2, m] += q * f * dz
+    # the Jacobi kick
+    for d in range(3):
+        for m in range(nl):
+            c[_A0 + d, m] = acc[0, d, m]
+    for i in range(1, n):
+        mui = mu[i]
+        q = mr[i]
+        for m in range(nl):
+            x0 = xj[i, 0, m]
+            x1 = xj[i, 1, m]
+            x2 = xj[i, 2, m]
+            r2 = x0 * x0 + x1 * x1 + x2 * x2
+            k = mui / (r2 * np.sqrt(r2))
+            aj0 = acc[i, 0, m] - c[_A0, m]
+            aj1 = acc[i, 1, m] - c[_A1, m]
+            aj2 = acc[i, 2, m] - c[_A2, m]
+            vj[i, 0, m] += h * (aj0 + k * x0)
+            vj[i, 1, m] += h * (aj1 + k * x1)
+            vj[i, 2, m] += h * (aj2 + k * x2)
+            c[_A0, m] = c[_A0, m] + q * aj0
+            c[_A1, m] = c[_A1, m] + q * aj1
+            c[_A2, m] = c[_A2, m] + q * aj2
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def _screen_stops(xi, xj, vj, mu, pairs, params, rh, nl, flag):
+    """flag[lane] = 1.0 where :func:`check_stops` would report a stop for that lane
+    (the same comparisons on the same arithmetic; which one is left to it)."""
+    n = xi.shape[0]
+    eject = params[2]
+    unbound = params[3] > 0.0
+    unbound_r = params[4]
+    r_star = params[5]
+    e_max = params[6]
+    for m in range(nl):
+        flag[m] = 0.0
+    for i in range(1, n):
+        mui = mu[i]
+        for m in range(nl):
+            dx = xi[i, 0, m] - xi[0, 0, m]
+            dy = xi[i, 1, m] - xi[0, 1, m]
+            dz = xi[i, 2, m] - xi[0, 2, m]
+            r = np.sqrt(dx * dx + dy * dy + dz * dz)
+            rh[i, m] = r
+            hit = (r_star > 0.0 and r < r_star) or (eject > 0.0 and r > eject)
+            x0 = xj[i, 0, m]
+            x1 = xj[i, 1, m]
+            x2 = xj[i, 2, m]
+            v0 = vj[i, 0, m]
+            v1 = vj[i, 1, m]
+            v2 = vj[i, 2, m]
+            rj = np.sqrt(x0 * x0 + x1 * x1 + x2 * x2)
+            vsq = v0 * v0 + v1 * v1 + v2 * v2
+            hit = hit or (unbound and r > unbound_r and 0.5 * vsq - mui / rj > 0.0)
+            rv = x0 * v0 + x1 * v1 + x2 * v2
+            p = vsq - mui / rj
+            e0 = (p * x0 - rv * v0) / mui
+            e1 = (p * x1 - rv * v1) / mui
+            e2 = (p * x2 - rv * v2) / mui
+            hit = hit or (e_max > 0.0 and e0 * e0 + e1 * e1 + e2 * e2 > e_max * e_max)
+            flag[m] = 1.0 if hit else flag[m]
+    if params[1] > 0.0:
+        for i in range(1, n):
+            for j in range(i + 1, n):
+                pij = pairs[i, j]
+                for m in range(nl):
+                    dx = xi[j, 0, m] - xi[i, 0, m]
+                    dy = xi[j, 1, m] - xi[i, 1, m]
+                    dz = xi[j, 2, m] - xi[i, 2, m]
+                    lim = pij * (rh[i, m] + rh[j, m])
+                    hit = dx * dx + dy * dy + dz * dz < lim * lim
+                    flag[m] = 1.0 if hit else flag[m]
+
+
+@njit(cache=True, error_model="numpy")
+def _lane_copy(src, m, dst):
+    for i in range(src.shape[0]):
+        for d in range(3):
+            dst[i, d] = src[i, d, m]
+
+
+@njit(cache=True, error_model="numpy", nogil=True)
+def wh_steps_lanes(xj, vj, gm, mu, mr, dt, n_steps, pending, gr_coef, pairs, params, nl,
+                   step0, every, a_inv, c_inv, out_g, out_el, rows, codes, bodies, xi, acc, rh,
+                   w, c, lane_x, lane_v, lane_xi, lane_rh, diag):
+    """Take up to n_steps merged drift-kick-drift steps of nl lanes in place.
+
+    xj, vj: (n, 3, B) Jacobi states; pending: (B,) int64 flags. Per lane m:
+    step0[m] is its step number (plus sample offset) at the start, every[m] its
+    cadence (0: no samples); sample r of lane m goes to out_g[m, r] (step,
+    G*energy, G*Lx, G*Ly, G*Lz) and out_el[m, r], rows[m] counting on. A lane
+    that meets a stop condition gets its code and bodies in codes[m],
+    bodies[m] and the call ends after that step (every lane has taken it).
+    Returns the steps taken.
+    """
+    n = xj.shape[0]
+    half = 0.5 * dt
+    check = params[0] > 0.0
+    h = c[_H]
+    until = np.empty(nl, dtype=np.int64)
+    for m in range(nl):
+        until[m] = every[m] - step0[m] % every[m] if every[m] > 0 else -1
+        codes[m] = 0
+        bodies[m, 0] = -1
+        bodies[m, 1] = -1
+    for k in range(n_steps):
+        for m in range(nl):
+            h[m] = dt if pending[m] else half
+            pending[m] = 1
+        _drift_all_lanes(xj, vj, mu, h, nl, w)
+        _kick_lanes(xj, vj, gm, mu, mr, dt, gr_coef, xi, acc, nl, c)
+        stopped = False
+        for m in range(nl):
+            vv = vj[n - 1, 0, m]
+            if not (vv - vv == 0.0):
+                _lane_copy(xj, m, lane_x)
+                _lane_copy(vj, m, lane_v)
+                codes[m] = NUMERICAL_FAILURE_CODE
+                bodies[m, 0] = first_broken(lane_x, lane_v)
+                stopped = True
+        if check:
+            flag = c[_FLAG]
+            _screen_stops(xi, xj, vj, mu, pairs, params, rh, nl, flag)
+            for m in range(nl):
+                if flag[m] != 0.0 and codes[m] == 0:
+                    _lane_copy(xi, m, lane_xi)
+                    _lane_copy(xj, m, lane_x)
+                    _lane_copy(vj, m, lane_v)
+                    code, a, b = check_stops(lane_xi, lane_x, lane_v, mu, pairs, params,
+                                             lane_rh)
+                    codes[m] = code
+                    bodies[m, 0] = a
+                    bodies[m, 1] = b
+                    stopped = stopped or code != 0
+        for m in range(nl):
+            if codes[m] != 0:
+                continue
+            until[m] -= 1
+            if until[m] == 0:
+                until[m] = every[m]
+                _lane_copy(xj, m, lane_x)
+                _lane_copy(vj, m, lane_v)
+                r = rows[m]
+                e, lx, ly, lz = wh_diagnose(lane_x, lane_v, gm, mu, mr, dt, True, gr_coef,
+                                            a_inv, c_inv, diag[0], diag[1], diag[2], diag[3],
+                                            diag[4], diag[5], out_el[m, r])
+                out_g[m, r, 0] = step0[m] + k + 1
+                out_g[m, r, 1] = e
+                out_g[m, r, 2] = lx
+                out_g[m, r, 3] = ly
+                out_g[m, r, 4] = lz
+                rows[m] = r + 1
+        if stopped:
+            return k + 1
+    return n_steps
+
+
+def compatible(a, b):
+    """True if two Wisdom-Holman integrators can share a batch: same masses, step,
+    corrector, GR term and stop conditions, no test particles, no indicator."""
+    return (type(a) is WisdomHolman and type(b) is WisdomHolman
+            and a.particles is None and b.particles is None
+            and a.tangent is None and b.tangent is None
+            and a.dt == b.dt and a.corrector == b.corrector and a.gr == b.gr
+            and a.stops == b.stops and a.gm.shape == b.gm.shape
+            and bool(np.all(a.gm == b.gm)))
+
+
+class _Lanes:
+    """Packed lane arrays of a batch of members and the kernel's scratch."""
+
+    def __init__(self, members, lanes):
+        first = members[0]
+        n = len(first.gm)
+        B = max(lanes, len(members))
+        self.n, self.B = n, B
+        self.xj = np.zeros((n, 3, B))
+        self.vj = np.zeros((n, 3, B))
+        self.pending = np.zeros(B, dtype=np.int64)
+        self.xi = np.zeros((n, 3, B))
+        self.acc = np.zeros((n, 3, B))
+        self.rh = np.zeros((n, B))
+        self.w = np.zeros((N_DRIFT_ROWS, B))
+        self.c = np.zeros((N_STEP_ROWS, B))
+        self.lane_x = np.zeros((n, 3))
+        self.lane_v = np.zeros((n, 3))
+        self.lane_xi = np.zeros((n, 3))
+        self.lane_rh = np.zeros(n)
+        self.diag = np.zeros((6, n, 3))
+        self.codes = np.zeros(B, dtype=np.int64)
+        self.bodies = np.zeros((B, 2), dtype=np.int64)
+        self.load(members)
+
+    def load(self, members):
+        for m, integ in enumerate(members):
+            self.xj[:, :, m] = integ.xj
+            self.vj[:, :, m] = integ.vj
+            self.pending[m] = int(integ.pending)
+        self.nl = len(members)
+
+    def store(self, m, integ):
+        integ.xj = np.ascontiguousarray(self.xj[:, :, m])
+        integ.vj = np.ascontiguousarray(self.vj[:, :, m])
+        integ.pending = bool(self.pending[m])
+
+
+def advance_together(members, n_steps, every=0, outputs=None, lanes=DEFAULT_LANES):
+    """Advance Wisdom-Holman members of one ensemble by up to n_steps each, as a batch.
+
+    Each member ends exactly as ``member.advance(n_steps)`` (or
+    ``member.advance_sampled(n_steps, every, *outputs[k])``) would leave it
+    alone, bit for bit: the same state, step counter, samples and stop.
+
+    Parameters
+    ----------
+    members : list of WisdomHolman
+        Mutually :func:`compatible` integrators (checked).
+    n_steps : int
+        Steps for each member; a member that meets a stop condition ends early.
+    every : int
+        Sample cadence in steps (with outputs).
+    outputs : list of (out_g, out_el, row0), optional
+        Per member, the arrays and first row of :meth:`Integrator.advance_sampled`.
+    lanes : int
+        Members per compiled call (the batch size B); more members run in
+        successive groups.
+
+    Returns
+    -------
+    list of AdvanceResult, or of (AdvanceResult, next free row) with outputs.
+    """
+    members = list(members)
+    n_steps = int(n_steps)
+    if n_steps < 0:
+        raise ValueError(f"n_steps must be >= 0, got {n_steps}.")
+    for other in members[1:]:
+        if not compatible(members[0], other):
+            raise ValueError("members of one batch must be Wisdom-Holman integrators of one "
+                             "system (same masses, step, corrector, GR and stops), without "
+                             "particles or an indicator; run the others alone.")
+    if outputs is not None:
+        outputs = list(outputs)
+        if every < 1 or len(outputs) != len(members):
+            raise ValueError("outputs need one (out_g, out_el, row0) per member and every >= 1.")
+        for out_g, _, row0 in outputs:
+            if len(out_g) < row0 + n_steps // every + 1:
+                raise ValueError("sample arrays too small for the requested steps and cadence.")
+    rows = [out[2] for out in outputs] if outputs is not None else [0] * len(members)
+    codes = [(0, -1, -1)] * len(members)
+    done = [0] * len(members)
+    if n_steps:
+        for g0 in range(0, len(members), lanes):
+            group = list(range(g0, min(g0 + lanes, len(members))))
+            _advance_group(members, group, n_steps, every if outputs is not None else 0,
+                           outputs, rows, codes, done)
+    results = [integ._result(done[k], *codes[k]) for k, integ in enumerate(members)]
+    if outputs is None:
+        return results
+    return [(res, rows[k]) for k, res in enumerate(results)]
+
+
+def _advance_group(members, group, n_steps, every, outputs, rows, codes, done):
+    """Run the members listed in group as one batch until each has taken n_steps
+    or stopped; fills rows, codes and done for them and leaves their state in them."""
+    first = members[group[0]]
+    n = len(first.gm)
+    a_inv, c_inv = first._inv
+    active = list(group)
+    pack = _Lanes([members[k] for k in active], len(active))
+    cap = n_steps // every + 1 if every else 0
+    out_g = np.zeros((pack.B, cap, 5))
+    out_el = np.zeros((pack.B, cap, n - 1, 6))
+    ev = np.full(pack.B, every, dtype=np.int64)
+    lane_rows = np.zeros(pack.B, dtype=np.int64)
+    while active:
+        nl = len(active)
+        left = n_steps - done[active[0]]  # the members of a batch have taken the same steps
+        step0 = np.zeros(pack.B, dtype=np.int64)
+        for m, k in enumerate(active):
+            step0[m] = members[k].step + members[k].sample_offset + done[k]
+        lane_rows[:] = 0
+        steps = wh_steps_lanes(pack.xj, pack.vj, first.gm, first.mu, first.mr, first.dt, left,
+                               pack.pending, first.gr_coef, first._stop_pairs,
+                               first._stop_params, nl, step0, ev, a_inv, c_inv, out_g, out_el,
+                               lane_rows, pack.codes, pack.bodies, pack.xi, pack.acc, pack.rh,
+                               pack.w, pack.c, pack.lane_x, pack.lane_v, pack.lane_xi,
+                               pack.lane_rh, pack.diag)
+        stay = []
+        for m, k in enumerate(active):
+            done[k] += steps
+            if outputs is not None and lane_rows[m]:
+                og, oe, _ = outputs[k]
+                r0, r = rows[k], int(lane_rows[m])
+                og[r0:r0 + r] = out_g[m, :r]
+                oe[r0:r0 + r] = out_el[m, :r]
+                offset = members[k].sample_offset
+                if offset:
+                    og[r0:r0 + r, 0] -= offset  # as advance_sampled: the kernel counts from it
+                rows[k] = r0 + r
+            code = int(pack.codes[m])
+            if code:
+                codes[k] = (code, int(pack.bodies[m, 0]), int(pack.bodies[m, 1]))
+            if code or done[k] == n_steps:
+                pack.store(m, members[k])
+            else:
+                stay.append((m, k))
+        if len(stay) == nl:
+            continue
+        # Members that stopped leave; the others are packed again (rare).
+        for m, k in stay:
+            pack.store(m, members[k])
+        active = [k for _, k in stay]
+        if active:
+            pack.load([members[k] for k in active])
