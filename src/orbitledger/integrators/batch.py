@@ -59,11 +59,48 @@ DEFAULT_LANES = 16
 
 
 @njit(cache=True, error_model="numpy", inline="always")
+def _is_large(y):
+    """True where the scalar Stumpff function would quarter its argument."""
+    return y > _STUMPFF_REDUCED or y < -_STUMPFF_REDUCED
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def _halley_lane(w, m, mu, c0, c1, c2, c3):
+    """One Halley iteration of lane m from its Stumpff values; a lane no longer
+    iterating keeps its values. Returns 1 if the lane iterates on, else 0."""
+    s = w[_S, m]
+    beta = w[_BETA, m]
+    r0 = w[_R0, m]
+    eta0 = w[_ETA, m]
+    t, r, rp, g0, g1, g2, t_scale = kepler_terms(s, c0, c1, c2, c3, r0, eta0, w[_ZETA, m], mu)
+    code, s, r, g0, g1, g2, lo, hi, ds = halley_update(
+        s, w[_DT, m], t, r, rp, g0, g1, g2, t_scale, w[_LO, m], w[_HI, m], w[_DSP, m],
+        beta, r0, eta0, mu)
+    live = w[_ST, m] == 0.0
+    w[_ST, m] = float(code) if live else w[_ST, m]
+    w[_S, m] = s if live else w[_S, m]
+    w[_RR, m] = r if live else w[_RR, m]
+    w[_G1, m] = g1 if live else w[_G1, m]
+    w[_G2, m] = g2 if live else w[_G2, m]
+    w[_LO, m] = lo if live else w[_LO, m]
+    w[_HI, m] = hi if live else w[_HI, m]
+    w[_DSP, m] = ds if live else w[_DSP, m]
+    # The next argument of the Stumpff functions, taken here for the next round.
+    y = beta * w[_S, m] * w[_S, m]
+    w[_Y, m] = y
+    go = live and code == _ITERATE
+    return (1 if go else 0) + (2 if go and _is_large(y) else 0)
+
+
+@njit(cache=True, error_model="numpy", inline="always")
 def _drift_lanes(x, v, i, mu, h, nl, w):
     """Kepler drift of Jacobi row i of every lane by h[lane], in place.
 
-    x, v: (n, 3, B); h: (B,); w: scratch (N_DRIFT_ROWS, B).
+    x, v: (n, 3, B); h: (B,); w: scratch (N_DRIFT_ROWS, B). Each round is one
+    pass over the lanes while no lane needs its Stumpff argument quartered
+    (the usual case: a drift is a small part of an orbit), else three.
     """
+    large = 0
     for m in range(nl):
         r0, ir0, eta0, beta, dt = drift_prelude(x[i, 0, m], x[i, 1, m], x[i, 2, m],
                                                 v[i, 0, m], v[i, 1, m], v[i, 2, m], mu, h[m])
@@ -79,74 +116,72 @@ def _drift_lanes(x, v, i, mu, h, nl, w):
         w[_HI, m] = hi
         w[_DSP, m] = np.inf
         w[_ST, m] = 0.0
+        y = beta * s * s
+        w[_Y, m] = y
+        large += 1 if _is_large(y) else 0
     for _ in range(_HALLEY_MAX):
-        # Stumpff functions of beta s^2 for the lanes still iterating: quarter
-        # the argument while any lane needs it (a lane stops quartering where
-        # its scalar loop would), the series, then the lane's own doublings.
-        for m in range(nl):
-            w[_Y, m] = w[_BETA, m] * w[_S, m] * w[_S, m]
-            w[_NQ, m] = 0.0
-        rounds = 0
-        for _q in range(_STUMPFF_MAX_QUARTERS):
-            need = 0
+        # w[_Y] holds beta s^2 of every lane still iterating.
+        left = 0
+        if large == 0:
+            for m in range(nl):
+                c0, c1, c2, c3 = stumpff_series(w[_Y, m])
+                flags = _halley_lane(w, m, mu, c0, c1, c2, c3)
+                left += flags & 1
+                large += flags >> 1
+        else:
+            # Quarter the argument while any lane needs it (a lane stops where
+            # its scalar loop would), the series, then each lane's doublings.
+            for m in range(nl):
+                w[_NQ, m] = 0.0
+            rounds = 0
+            for _q in range(_STUMPFF_MAX_QUARTERS):
+                need = 0
+                for m in range(nl):
+                    y = w[_Y, m]
+                    more = w[_ST, m] == 0.0 and _is_large(y)
+                    w[_Y, m] = y * 0.25 if more else y
+                    w[_NQ, m] += 1.0 if more else 0.0
+                    need += 1 if more else 0
+                if need == 0:
+                    break
+                rounds += 1
             for m in range(nl):
                 y = w[_Y, m]
-                more = w[_ST, m] == 0.0 and (y > _STUMPFF_REDUCED or y < -_STUMPFF_REDUCED)
-                w[_Y, m] = y * 0.25 if more else y
-                w[_NQ, m] += 1.0 if more else 0.0
-                need += 1 if more else 0
-            if need == 0:
-                break
-            rounds += 1
-        for m in range(nl):
-            y = w[_Y, m]
-            c0, c1, c2, c3 = stumpff_series(y)
-            bad = y > _STUMPFF_REDUCED or y < -_STUMPFF_REDUCED
-            w[_C0, m] = np.nan if bad else c0
-            w[_C1, m] = np.nan if bad else c1
-            w[_C2, m] = np.nan if bad else c2
-            w[_C3, m] = np.nan if bad else c3
-        for q in range(rounds):
+                c0, c1, c2, c3 = stumpff_series(y)
+                bad = _is_large(y)
+                w[_C0, m] = np.nan if bad else c0
+                w[_C1, m] = np.nan if bad else c1
+                w[_C2, m] = np.nan if bad else c2
+                w[_C3, m] = np.nan if bad else c3
+            for q in range(rounds):
+                for m in range(nl):
+                    c0, c1, c2, c3 = stumpff_double(w[_C0, m], w[_C1, m], w[_C2, m], w[_C3, m])
+                    go = q < w[_NQ, m]
+                    w[_C0, m] = c0 if go else w[_C0, m]
+                    w[_C1, m] = c1 if go else w[_C1, m]
+                    w[_C2, m] = c2 if go else w[_C2, m]
+                    w[_C3, m] = c3 if go else w[_C3, m]
+            large = 0
             for m in range(nl):
-                c0, c1, c2, c3 = stumpff_double(w[_C0, m], w[_C1, m], w[_C2, m], w[_C3, m])
-                go = q < w[_NQ, m]
-                w[_C0, m] = c0 if go else w[_C0, m]
-                w[_C1, m] = c1 if go else w[_C1, m]
-                w[_C2, m] = c2 if go else w[_C2, m]
-                w[_C3, m] = c3 if go else w[_C3, m]
-        left = 0
-        for m in range(nl):
-            s = w[_S, m]
-            beta = w[_BETA, m]
-            r0 = w[_R0, m]
-            eta0 = w[_ETA, m]
-            t, r, rp, g0, g1, g2, t_scale = kepler_terms(
-                s, w[_C0, m], w[_C1, m], w[_C2, m], w[_C3, m], r0, eta0, w[_ZETA, m], mu)
-            code, s, r, g0, g1, g2, lo, hi, ds = halley_update(
-                s, w[_DT, m], t, r, rp, g0, g1, g2, t_scale, w[_LO, m], w[_HI, m], w[_DSP, m],
-                beta, r0, eta0, mu)
-            live = w[_ST, m] == 0.0
-            w[_ST, m] = float(code) if live else w[_ST, m]
-            w[_S, m] = s if live else w[_S, m]
-            w[_RR, m] = r if live else w[_RR, m]
-            w[_G1, m] = g1 if live else w[_G1, m]
-            w[_G2, m] = g2 if live else w[_G2, m]
-            w[_LO, m] = lo if live else w[_LO, m]
-            w[_HI, m] = hi if live else w[_HI, m]
-            w[_DSP, m] = ds if live else w[_DSP, m]
-            left += 1 if live and code == _ITERATE else 0
+                flags = _halley_lane(w, m, mu, w[_C0, m], w[_C1, m], w[_C2, m], w[_C3, m])
+                left += flags & 1
+                large += flags >> 1
         if left == 0:
             break
+    solved = 0
     for m in range(nl):
-        if w[_ST, m] != 1.0:
-            # Unconverged after every Halley iteration, or sent to the fallback:
-            # the scalar solver (its own iterations, then its bracket) gives
-            # this lane exactly what it gives the member alone.
-            _, r, _, g1, g2, _, _ = solve_universal(w[_R0, m], w[_ETA, m], w[_BETA, m], mu,
-                                                    w[_DT, m])
-            w[_RR, m] = r
-            w[_G1, m] = g1
-            w[_G2, m] = g2
+        solved += 1 if w[_ST, m] == 1.0 else 0
+    if solved < nl:
+        for m in range(nl):
+            if w[_ST, m] != 1.0:
+                # Unconverged after every Halley iteration, or sent to the
+                # fallback: the scalar solver (its own iterations, then its
+                # bracket) gives this lane exactly what it gives the member alone.
+                _, r, _, g1, g2, _, _ = solve_universal(w[_R0, m], w[_ETA, m], w[_BETA, m],
+                                                        mu, w[_DT, m])
+                w[_RR, m] = r
+                w[_G1, m] = g1
+                w[_G2, m] = g2
     for m in range(nl):
         a0, a1, a2, b0, b1, b2 = drift_finish(
             x[i, 0, m], x[i, 1, m], x[i, 2, m], v[i, 0, m], v[i, 1, m], v[i, 2, m], mu,
