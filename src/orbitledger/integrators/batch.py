@@ -197,9 +197,10 @@ def _drift_lanes(x, v, i, mu, h, nl, w):
 @njit(cache=True, error_model="numpy", inline="always")
 def _drift_all_lanes(xj, vj, mu, h, nl, w):
     """:func:`integrators.wisdom_holman.drift_all` for every lane."""
-    for d in range(3):
-        for m in range(nl):
-            xj[0, d, m] += vj[0, d, m] * h[m]
+    for m in range(nl):
+        xj[0, 0, m] += vj[0, 0, m] * h[m]
+        xj[0, 1, m] += vj[0, 1, m] * h[m]
+        xj[0, 2, m] += vj[0, 2, m] * h[m]
     for i in range(1, xj.shape[0]):
         _drift_lanes(xj, vj, i, mu[i], h, nl, w)
 
@@ -210,28 +211,39 @@ def _kick_lanes(xj, vj, gm, mu, mr, h, gr_coef, xi, acc, nl, c):
     same order per lane. xi, acc: (n, 3, B) scratch (xi keeps the inertial positions
     for the stop checks); c: (N_STEP_ROWS, B) scratch."""
     n = xj.shape[0]
-    # to_inertial
-    for d in range(3):
-        for m in range(nl):
-            c[_A0 + d, m] = xj[0, d, m]
+    # to_inertial (one pass over the lanes per body, all three coordinates)
+    for m in range(nl):
+        c[_A0, m] = xj[0, 0, m]
+        c[_A1, m] = xj[0, 1, m]
+        c[_A2, m] = xj[0, 2, m]
     for i in range(n - 1, 0, -1):
         q = mr[i]
-        for d in range(3):
-            for m in range(nl):
-                cc = c[_A0 + d, m] - q * xj[i, d, m]
-                c[_A0 + d, m] = cc
-                xi[i, d, m] = cc + xj[i, d, m]
-    for d in range(3):
         for m in range(nl):
-            xi[0, d, m] = c[_A0 + d, m]
-    # accelerations
+            x0 = xj[i, 0, m]
+            x1 = xj[i, 1, m]
+            x2 = xj[i, 2, m]
+            c0 = c[_A0, m] - q * x0
+            c1 = c[_A1, m] - q * x1
+            c2 = c[_A2, m] - q * x2
+            c[_A0, m] = c0
+            c[_A1, m] = c1
+            c[_A2, m] = c2
+            xi[i, 0, m] = c0 + x0
+            xi[i, 1, m] = c1 + x1
+            xi[i, 2, m] = c2 + x2
+    for m in range(nl):
+        xi[0, 0, m] = c[_A0, m]
+        xi[0, 1, m] = c[_A1, m]
+        xi[0, 2, m] = c[_A2, m]
+    # accelerations: the scalar pair loop's order (i < j) for every lane
     for i in range(n):
-        for d in range(3):
-            for m in range(nl):
-                acc[i, d, m] = 0.0
+        for m in range(nl):
+            acc[i, 0, m] = 0.0
+            acc[i, 1, m] = 0.0
+            acc[i, 2, m] = 0.0
     for i in range(n):
+        gi = gm[i]
         for j in range(i + 1, n):
-            gi = gm[i]
             gj = gm[j]
             for m in range(nl):
                 dx = xi[j, 0, m] - xi[i, 0, m]
@@ -263,9 +275,10 @@ def _kick_lanes(xj, vj, gm, mu, mr, h, gr_coef, xi, acc, nl, c):
                 acc[0, 1, m] += q * f * dy
                 acc[0, 2, m] += q * f * dz
     # the Jacobi kick
-    for d in range(3):
-        for m in range(nl):
-            c[_A0 + d, m] = acc[0, d, m]
+    for m in range(nl):
+        c[_A0, m] = acc[0, 0, m]
+        c[_A1, m] = acc[0, 1, m]
+        c[_A2, m] = acc[0, 2, m]
     for i in range(1, n):
         mui = mu[i]
         q = mr[i]
