@@ -269,23 +269,34 @@ def solve_universal(r0, eta0, beta, mu, dt):
 
 
 @njit(cache=True, error_model="numpy", inline="always")
-def drift_prelude(x0, x1, x2, v0, v1, v2, mu, dt):
-    """r0, 1/r0, x.v, beta = 2 mu / r0 - v^2 and dt less any whole periods."""
+def drift_start(x0, x1, x2, v0, v1, v2, mu, dt):
+    """r0, 1/r0, x.v, beta = 2 mu / r0 - v^2, dt less any whole periods, the
+    number of whole periods removed and the period (both 0 if none)."""
     r0 = np.sqrt(x0 * x0 + x1 * x1 + x2 * x2)
     ir0 = 1.0 / r0
     vsq = v0 * v0 + v1 * v1 + v2 * v2
     eta0 = x0 * v0 + x1 * v1 + x2 * v2
     beta = 2.0 * mu * ir0 - vsq
+    whole = 0.0
+    period = 0.0
     if beta > 0.0 and dt * dt * beta * beta * beta > TWO_PI * TWO_PI * mu * mu:
         # Longer than a period: whole periods change nothing, so remove them.
         period = TWO_PI * mu / (beta * np.sqrt(beta))
-        dt = dt - np.trunc(dt / period) * period
+        whole = np.trunc(dt / period)
+        dt = dt - whole * period
+    return r0, ir0, eta0, beta, dt, whole, period
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def drift_prelude(x0, x1, x2, v0, v1, v2, mu, dt):
+    """r0, 1/r0, x.v, beta and dt less any whole periods (see :func:`drift_start`)."""
+    r0, ir0, eta0, beta, dt, _, _ = drift_start(x0, x1, x2, v0, v1, v2, mu, dt)
     return r0, ir0, eta0, beta, dt
 
 
 @njit(cache=True, error_model="numpy", inline="always")
-def drift_finish(x0, x1, x2, v0, v1, v2, mu, r0, ir0, eta0, r, g1, g2):
-    """The drifted state from the solution (r, G1, G2) by the Lagrange coefficients."""
+def lagrange(mu, r0, ir0, eta0, r, g1, g2):
+    """The Lagrange coefficients f - 1, g, f, f' and g' - 1 from the solution (r, G1, G2)."""
     # f - 1 and g written to avoid the cancellation in 1 - f and dt - mu G3.
     fm1 = -mu * g2 * ir0
     g = r0 * g1 + eta0 * g2
@@ -309,8 +320,21 @@ def drift_finish(x0, x1, x2, v0, v1, v2, mu, r0, ir0, eta0, r, g1, g2):
         ir = 1.0 / r
         fd = -mu * g1 * ir0 * ir
         gdm1 = -mu * g2 * ir
+    return fm1, g, f, fd, gdm1
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def apply_lagrange(x0, x1, x2, v0, v1, v2, fm1, g, fd, gdm1):
+    """The drifted state x f + v g, x f' + v g' (written with f - 1 and g' - 1)."""
     return (x0 + (fm1 * x0 + g * v0), x1 + (fm1 * x1 + g * v1), x2 + (fm1 * x2 + g * v2),
             v0 + (fd * x0 + gdm1 * v0), v1 + (fd * x1 + gdm1 * v1), v2 + (fd * x2 + gdm1 * v2))
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def drift_finish(x0, x1, x2, v0, v1, v2, mu, r0, ir0, eta0, r, g1, g2):
+    """The drifted state from the solution (r, G1, G2) by the Lagrange coefficients."""
+    fm1, g, _, fd, gdm1 = lagrange(mu, r0, ir0, eta0, r, g1, g2)
+    return apply_lagrange(x0, x1, x2, v0, v1, v2, fm1, g, fd, gdm1)
 
 
 @njit(cache=True, error_model="numpy", inline="always")

@@ -25,10 +25,10 @@ The length |d| mixes positions (au) and velocities: velocities are scaled by
 the natural time unit 1/k (k the Gaussian constant, 58.1 d), so both parts
 weigh alike for orbits of about 1 au; the limits above do not depend on it.
 
-The state's own arithmetic is not touched: the drift here repeats
-:func:`integrators.kepler.drift_state` operation for operation (tested bit
-for bit), so a run with the indicator follows the same trajectory as one
-without. Logarithms are taken with +, -, *, / and frexp only
+The state's own arithmetic is not touched: the drift here is composed of
+:func:`integrators.kepler.drift_state`'s own pieces (the start, the solver,
+the Lagrange coefficients; tested bit for bit), so a run with the indicator
+follows the same trajectory as one without. Logarithms are taken with +, -, *, / and frexp only
 (:func:`ln_ieee`), so the indicator is the same on every IEEE-754 machine.
 """
 
@@ -37,8 +37,8 @@ import math
 import numpy as np
 from numba import njit
 
-from .constants import GAUSS_K, TWO_PI
-from .kepler import _F_IDENTITY, solve_universal, stumpff
+from .constants import GAUSS_K
+from .kepler import apply_lagrange, drift_start, lagrange, solve_universal, stumpff
 from .nbody import to_inertial
 
 # Velocity weight in the tangent vector's length: the natural time unit, days.
@@ -110,36 +110,11 @@ def stumpff45(x, c2, c3):
 def drift_state_tangent(x0, x1, x2, v0, v1, v2, d0, d1, d2, e0, e1, e2, mu, dt):
     """:func:`integrators.kepler.drift_state` of (x, v) by dt, and its derivative
     applied to the tangent vector (d, e) = (dx, dv). Returns the twelve new components."""
-    # --- the state: drift_state's operations, in its order -------------------
-    r0 = np.sqrt(x0 * x0 + x1 * x1 + x2 * x2)
-    ir0 = 1.0 / r0
-    vsq = v0 * v0 + v1 * v1 + v2 * v2
-    eta0 = x0 * v0 + x1 * v1 + x2 * v2
-    beta = 2.0 * mu * ir0 - vsq
-    whole = 0.0
-    period = 0.0
-    if beta > 0.0 and dt * dt * beta * beta * beta > TWO_PI * TWO_PI * mu * mu:
-        period = TWO_PI * mu / (beta * np.sqrt(beta))
-        whole = np.trunc(dt / period)
-        dt = dt - whole * period
+    # --- the state: drift_state's own pieces, in its order --------------------
+    r0, ir0, eta0, beta, dt, whole, period = drift_start(x0, x1, x2, v0, v1, v2, mu, dt)
     s, r, g0, g1, g2, _, _ = solve_universal(r0, eta0, beta, mu, dt)
-    fm1 = -mu * g2 * ir0
-    g = r0 * g1 + eta0 * g2
-    f = 1.0 + fm1
-    if f >= _F_IDENTITY or f <= -_F_IDENTITY:
-        w = 1.0 / (r * f)
-        fd = -mu * g1 * ir0 * (f * w)
-        gdm1 = (fd * g - fm1) * (r * w)
-    else:
-        ir = 1.0 / r
-        fd = -mu * g1 * ir0 * ir
-        gdm1 = -mu * g2 * ir
-    n0 = x0 + (fm1 * x0 + g * v0)
-    n1 = x1 + (fm1 * x1 + g * v1)
-    n2 = x2 + (fm1 * x2 + g * v2)
-    m0 = v0 + (fd * x0 + gdm1 * v0)
-    m1 = v1 + (fd * x1 + gdm1 * v1)
-    m2 = v2 + (fd * x2 + gdm1 * v2)
+    fm1, g, f, fd, gdm1 = lagrange(mu, r0, ir0, eta0, r, g1, g2)
+    n0, n1, n2, m0, m1, m2 = apply_lagrange(x0, x1, x2, v0, v1, v2, fm1, g, fd, gdm1)
     # --- the tangent -----------------------------------------------------------
     # Variations of the invariants of the start.
     dr0 = (x0 * d0 + x1 * d1 + x2 * d2) * ir0
