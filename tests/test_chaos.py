@@ -74,7 +74,7 @@ def reference(tmp_path_factory):
     led = Ledger(f"sqlite:///{d}/ref.sqlite", d / "store")
     ids = submit_all(led)
     led.extend(ids[0], long_total(led))
-    Worker(led).run()
+    Worker(led, lanes=1).run()  # the reference: every member alone (scalar kernel)
     yield led, ids
     led.close()
 

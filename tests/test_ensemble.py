@@ -158,8 +158,11 @@ def test_breadth_first_holds_with_several_workers(tmp_path):
     chunk = 1_000_000
     _, ids = led.submit_ensemble(S.load_text(ensemble_text(
         members=6, length="160000 yr", chunk=f"{chunk} steps", output="10000 steps")))
+    # Two independent workers, each running members one at a time (--lanes 1;
+    # a batch would let the first take every member; pools split batches,
+    # test_batched_work_is_split_between_a_pools_workers).
     procs = [subprocess.Popen([sys.executable, "-m", "orbitledger.runner.cli", "work", "--workspace", str(ws),
-                               "--quiet"], cwd=ROOT) for _ in range(2)]
+                               "--quiet", "--lanes", "1"], cwd=ROOT) for _ in range(2)]
     assert [p.wait(timeout=300) for p in procs] == [0, 0]
     # Replay the commits in time order; after each, no member is more than
     # (workers + 1) chunks ahead of the least advanced one.
@@ -184,7 +187,7 @@ def test_ensemble_survives_kills_with_the_same_outcomes(tmp_path):
         'length = "3000 yr"', 'length = "1500 yr"')
     ref = Ledger(f"sqlite:///{tmp_path}/ref.sqlite", tmp_path / "ref")
     _, ref_ids = ref.submit_ensemble(S.load_text(text))
-    Worker(ref).run()
+    Worker(ref, lanes=1).run()  # every member alone; the killed workers batch them
     ws, led = init(tmp_path / "ws")
     _, ids = led.submit_ensemble(S.load_text(text))
     rng = random.Random(3)

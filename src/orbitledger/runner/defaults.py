@@ -21,6 +21,11 @@ MAX_STEPS_PER_CALL = 50_000
 # Wall time one kernel call aims at (fewer steps for large systems), seconds:
 # signals, hold and cancel requests are seen within about this long.
 SLICE_SECONDS = 0.5
+# Members of one ensemble a worker claims and advances together with the
+# batched kernel (integrators/batch.py); 1 runs every member alone. Measured
+# (docs/benchmarks.md, "Batched members"): the batch's speed-up grows with its
+# size up to about 32 lanes (2.6-2.8x the scalar kernel) and little beyond.
+BATCH_LANES = 32
 # Output cadence when a spec gives none, steps.
 DEFAULT_OUTPUT_STEPS = 1_000
 # Chunk (checkpoint interval) when a spec gives none, in outputs.

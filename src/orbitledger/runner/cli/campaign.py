@@ -87,7 +87,12 @@ def work(workspace: WorkspaceOpt = None, db: DbOpt = None,
              help="Log events at this level: debug, info, warning (default: info, or "
                   "warning beside a progress display).")] = None,
          log_file: Annotated[Optional[Path], typer.Option(
-             help="Append the log here instead of standard error.")] = None):
+             help="Append the log here instead of standard error.")] = None,
+         lanes: Annotated[int, typer.Option(
+             min=1, help="Ensemble members a worker advances together with the batched "
+                         "kernel (1: one at a time).")] = defaults.BATCH_LANES,
+         peers: Annotated[int, typer.Option(
+             min=1, hidden=True, help="Workers of the pool this one belongs to.")] = 1):
     """Run workers until no work is left, a deadline, or a stop signal.
 
     Exit code 0: nothing left to claim; 3: stopped with work remaining; 1: a worker failed.
@@ -104,7 +109,8 @@ def work(workspace: WorkspaceOpt = None, db: DbOpt = None,
     end = None if deadline is None else time.time() + _parse_wall(deadline)
     if workers > 1:
         argv = self_command() + ["work", "--workers", "1", "--order", order, "--quiet",
-                                 "--lease", str(lease), "--log-level", log_level or "info"]
+                                 "--lease", str(lease), "--log-level", log_level or "info",
+                                 "--lanes", str(lanes), "--peers", str(workers)]
         if log_file is not None:
             argv += ["--log-file", str(log_file)]
         if workspace:
@@ -133,9 +139,10 @@ def work(workspace: WorkspaceOpt = None, db: DbOpt = None,
     beat = min(defaults.HEARTBEAT_SECONDS, lease / 4)
     with open_ledger(workspace, db, lease_seconds=lease) as ledger:
         if show:
-            code = _work_with_progress(ledger, end, job, order, beat)
+            code = _work_with_progress(ledger, end, job, order, beat, lanes)
         else:
-            w = Worker(ledger, deadline=end, job_id=job, order=order, heartbeat_seconds=beat)
+            w = Worker(ledger, deadline=end, job_id=job, order=order, heartbeat_seconds=beat,
+                       lanes=lanes, peers=peers)
             w.install_signal_handlers()
             code = w.run()
     if _AS_PROGRAM[0]:
@@ -143,7 +150,7 @@ def work(workspace: WorkspaceOpt = None, db: DbOpt = None,
     raise typer.Exit(code)
 
 
-def _work_with_progress(ledger, end, job, order, beat):
+def _work_with_progress(ledger, end, job, order, beat, lanes):
     from rich.progress import BarColumn, Progress, TextColumn, TimeRemainingColumn
 
     from orbitledger.runner.presentation.tables import format_rate
@@ -167,7 +174,7 @@ def _work_with_progress(ledger, end, job, order, beat):
                        rate=format_rate(rate))
 
         w = Worker(ledger, deadline=end, job_id=job, order=order, progress=progress,
-                   heartbeat_seconds=beat)
+                   heartbeat_seconds=beat, lanes=lanes)
         w.install_signal_handlers()
         return w.run()
 

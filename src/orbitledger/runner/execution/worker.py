@@ -28,6 +28,7 @@ from orbitledger.runner.ledger.basics import CommitResult
 from orbitledger.runner.ledger.operations import angmom0, repair_by_replay
 from orbitledger.runner.store.sampling import SampleBuffer, sample_now
 from orbitledger.runner.store.zarr_store import state_layout
+from orbitledger.runner.execution import batches
 from orbitledger.runner.execution.failpoints import failpoint
 from orbitledger.runner.ledger.status import ACTIVE, JobStatus
 from orbitledger.runner.execution.worklog import LOG
@@ -59,12 +60,18 @@ class Worker:
         Wall time one kernel call aims at (fewer steps for a large system), so
         signals and requests are seen within about this long; None: every call
         takes ``max_steps_per_call`` steps (tests that need exact slices).
+    lanes : int
+        Most members of one ensemble worked together by the batched kernel
+        (see :mod:`runner.execution.batches`); 1: every job alone.
+    peers : int
+        Workers of the same pool: a batch takes at most this share of an
+        ensemble's queued and running members, so the pool's workers split it.
     """
 
     def __init__(self, ledger, owner=None, deadline=None, job_id=None, order="breadth",
                  progress=None, clock=time.time, max_steps_per_call=defaults.MAX_STEPS_PER_CALL,
                  heartbeat_seconds=defaults.HEARTBEAT_SECONDS,
-                 slice_seconds=defaults.SLICE_SECONDS):
+                 slice_seconds=defaults.SLICE_SECONDS, lanes=defaults.BATCH_LANES, peers=1):
         self.ledger = ledger
         self.owner = owner or f"{socket.gethostname()}:{os.getpid()}"
         self.deadline = deadline
@@ -75,6 +82,8 @@ class Worker:
         self.max_steps_per_call = int(max_steps_per_call)
         self.heartbeat_seconds = float(heartbeat_seconds)
         self.slice_seconds = None if slice_seconds is None else float(slice_seconds)
+        self.lanes = max(1, int(lanes))
+        self.peers = max(1, int(peers))
         self.stop_requested = None
         self._pending = None  # a claim's last commit, to run (or running) on the helper thread
         self._use_flag = False
@@ -111,6 +120,13 @@ class Worker:
                     LOG.info("nothing left to claim")
                     break
                 LOG.info("job %d claimed (fencing token %d)", claim.job_id, claim.fence)
+                mates = batches.claim_mates(self, claim)
+                if mates:
+                    # Ensemble members level with this one share its kernel calls.
+                    self._settle_pending()
+                    for c, status in batches.run_batch(self, [claim] + mates):
+                        self._record(c, status)
+                    continue
                 status = self.run_claim(claim, overlap=True)
                 # At most one claim's last commit in flight: the one before
                 # this claim's started when this claim's kernel did (so the
@@ -171,6 +187,19 @@ class Worker:
         commit is still running on the helper thread, so the caller can claim
         the next job meanwhile (:meth:`run` does).
         """
+        opened = self._open(claim)
+        if not isinstance(opened, tuple):
+            return opened
+        row, plan, integ, ck, seg = opened
+        try:
+            return self._chunks(claim, row, plan, integ, ck, seg, overlap)
+        except Exception as err:  # noqa: BLE001 - each kind is mapped below
+            return self._failed_claim(claim, seg, err)
+
+    def _open(self, claim):
+        """The claimed job's row, budget, integrator at its last checkpoint, that
+        checkpoint's row and the segment of work; or the job's status if its
+        checkpoint could not be loaded (then held)."""
         row = claim.job if claim.job is not None else self.ledger.job(claim.job_id)
         # The budget is plain numbers in the stored spec: no unit parsing (and
         # no astropy import) on the resume path.
@@ -194,10 +223,7 @@ class Worker:
         if seg is None:
             seg = self.ledger.start_segment(claim, integ.step, provenance.collect(),
                                             now=self.clock())
-        try:
-            return self._chunks(claim, row, plan, integ, ck, seg, overlap)
-        except Exception as err:  # noqa: BLE001 - each kind is mapped below
-            return self._failed_claim(claim, seg, err)
+        return row, plan, integ, ck, seg
 
     def _failed_claim(self, claim, seg, err):
         """What a claim that ended in an error leaves: the job's status (or "fenced").
@@ -228,29 +254,17 @@ class Worker:
         raise err
 
     def _chunks(self, claim, row, plan, integ, ck, seg, overlap=False):
-        job_id = claim.job_id
-        e0 = row["energy0"]
-        l0 = angmom0(row)
-        out = int(row["output_steps"])
-        chunk = int(row["chunk_steps"])
-        total = int(row["total_steps"])
-        idx = int(ck["idx"])
-        n_samples = int(ck["n_samples"])
-        max_e, max_l = row["max_energy_error"], row["max_angmom_error"]
-        last_beat = self.clock()
-        buf = SampleBuffer(len(integ.gm), e0, l0, capacity=min(chunk // out + 1, 4096),
-                           indicator=integ.indicator is not None,
-                           particles=getattr(integ, "particle_count", 0))
+        run = _Run(claim, row, plan, integ, ck, seg)
+        buf = run.buf
         # With a wall-time slice, a short first call measures the cost of a step.
         steps_per_call = (self.max_steps_per_call if self.slice_seconds is None
                           else min(self.max_steps_per_call, 100))
-        layout = state_layout(integ.state_arrays())
-        seen = len(getattr(integ, "events", ()))  # method switches and events already recorded
+        last_beat = self.clock()
         pending = None  # the previous chunk's commit, running on the helper thread
         try:
             while True:
                 prepared = None
-                chunk_end = min((integ.step // chunk + 1) * chunk, total)
+                chunk_end = run.chunk_end()
                 buf.clear()
                 stop = None
                 request = None
@@ -260,26 +274,19 @@ class Worker:
                 while integ.step < chunk_end:
                     n_call = min(chunk_end - integ.step, steps_per_call)
                     t_call, c_call = time.perf_counter(), time.thread_time()
-                    res = buf.advance(integ, n_call, out)
+                    res = buf.advance(integ, n_call, run.out)
                     self.kernel_seconds += time.perf_counter() - t_call
                     self.kernel_cpu_seconds += time.thread_time() - c_call
                     # Kernel calls last about SLICE_SECONDS whatever the system's
                     # size, so signals and requests are seen within seconds. How
                     # the steps are sliced never changes the trajectory.
-                    if self.slice_seconds is not None:
-                        per_step = (time.perf_counter() - t_call) / max(res.steps, 1)
-                        steps_per_call = max(1, min(self.max_steps_per_call, int(
-                            self.slice_seconds / max(per_step, 1e-9))))
+                    steps_per_call = self._next_call_steps(steps_per_call, t_call, res.steps)
                     failpoint("first_step")
                     if prepared is None:
-                        prepared = self._behind_first_call(job_id, idx, claim.fence, layout)
+                        prepared = self._behind_first_call(claim.job_id, run.idx, claim.fence,
+                                                           run.layout)
                     if res.stopped:
-                        if res.kind == StopKind.NUMERICAL_FAILURE:
-                            raise NumericalFailureError(
-                                f"numerical failure at step {integ.step} (t = {integ.time:.6g} d):"
-                                " the state is no longer finite numbers (first seen in "
-                                f"{_body_names(integ, res.bodies)}; bodies at the same place, or "
-                                "a step far too long); nothing after the last checkpoint was kept")
+                        _raise_if_broken(integ, res)
                         stop = res
                         break
                     now = self.clock()
@@ -295,43 +302,16 @@ class Worker:
                     if self.progress is not None:
                         self.progress(row, integ.step, _rate(integ, step0, wall0, self.clock()))
                 if prepared is None:
-                    prepared = self._behind_first_call(job_id, idx, claim.fence, layout)
+                    prepared = self._behind_first_call(claim.job_id, run.idx, claim.fence,
+                                                       run.layout)
                 if pending is not None:
                     # The previous chunk's commit decides whether this one counts:
                     # a hold or cancel applied there ends the claim, and this
                     # chunk, never committed, is discarded.
                     result, pending = pending.result(), None
-                    total = result.total_steps
+                    run.total = result.total_steps
                     if result.status != JobStatus.RUNNING:
                         return result.status
-                block = buf.block()
-                here = sample_now(integ, e0, l0)
-                e_err = float(abs(here["energy_error"][0]))
-                l_err = float(here["angmom_error"][0])
-                if len(block["time"]):
-                    max_e = max(max_e, float(np.abs(block["energy_error"]).max()))
-                    max_l = max(max_l, float(block["angmom_error"].max()))
-                max_e, max_l = max(max_e, e_err), max(max_l, l_err)
-                then, outcome, reason = "continue", None, None
-                if stop is not None:
-                    then = "stopped"
-                    outcome = (stop.kind.value, integ.step, integ.time, stop.bodies)
-                elif integ.step >= total:
-                    then = "done"
-                elif interrupted and request is None:
-                    then = "release"
-                elif self.order == "breadth" and row["ensemble_id"] is not None:
-                    # Fair progress: hand the member back after each chunk so the
-                    # least advanced member is always the next one worked on.
-                    then = "release"
-                over = _over_budget(plan, max_e, max_l)
-                if over and then != "stopped" and plan.on_exceed != "continue":
-                    if plan.on_exceed == "hold":
-                        then, reason = "held", over
-                    else:
-                        then, reason = "stopped", over
-                        outcome = ("over_budget", integ.step, integ.time, ())
-                new_events = _new_events(integ, seen)
                 # The chunk's commit may run on the helper thread while the
                 # kernel goes on, when it is small: with the next chunk of this
                 # job (whose commit waits for this one's, and which is discarded
@@ -339,30 +319,16 @@ class Worker:
                 # here (a member handed back, the end, a stop) and the caller
                 # goes on claiming (``overlap``), with the next job. A signal or
                 # a request is answered with the commit made before going on.
-                nbytes = sum(v.nbytes for v in block.values())
-                behind = (not interrupted and nbytes <= defaults.OVERLAP_COMMIT_BYTES
-                          and (then == "continue" or overlap))
-                if behind:
-                    block = {k: v.copy() for k, v in block.items()}
-                commit = _Commit(
-                    claim, prepared, n_samples, block, integ.state_arrays(),
-                    dict(idx=idx + 1, step=integ.step, time_=integ.time,
-                         n_samples=n_samples + len(block["time"]), energy_error=e_err,
-                         angmom_error=l_err, max_energy_error=max_e, max_angmom_error=max_l,
-                         then=then, outcome=outcome, reason=reason, segment_id=seg,
-                         wall_seconds=self.clock() - wall0,
-                         rate=_rate(integ, step0, wall0, self.clock()), events=new_events))
-                seen += len(new_events)
-                idx += 1
-                n_samples += len(block["time"])
-                if behind and then == "continue":
+                commit, then = self._chunk_commit(run, prepared, stop, interrupted, request,
+                                                  wall0, step0, overlap)
+                if commit.behind and then == "continue":
                     pending = _helper().submit(self._commit, commit)
                     continue
-                if behind:
+                if commit.behind:
                     commit.ends_claim = True
                     return _Pending(claim, seg, self._commit, commit)
                 result = self._commit(commit)
-                total = result.total_steps
+                run.total = result.total_steps
                 if result.status != JobStatus.RUNNING:
                     return result.status
         except BaseException:
@@ -371,6 +337,65 @@ class Worker:
             if pending is not None:
                 pending.result()
             raise
+
+    def _next_call_steps(self, steps_per_call, t_call, steps):
+        """Steps of the next kernel call: about ``slice_seconds`` of wall time."""
+        if self.slice_seconds is None:
+            return steps_per_call
+        per_step = (time.perf_counter() - t_call) / max(steps, 1)
+        return max(1, min(self.max_steps_per_call, int(self.slice_seconds / max(per_step, 1e-9))))
+
+    def _chunk_commit(self, run, prepared, stop, interrupted, request, wall0, step0,
+                      overlap=False):
+        """The commit of the chunk just integrated, and what follows it ("continue",
+        "release", "done", "stopped" or "held"); advances the run's counters."""
+        integ, row, plan = run.integ, run.row, run.plan
+        block = run.buf.block()
+        here = sample_now(integ, run.e0, run.l0)
+        e_err = float(abs(here["energy_error"][0]))
+        l_err = float(here["angmom_error"][0])
+        if len(block["time"]):
+            run.max_e = max(run.max_e, float(np.abs(block["energy_error"]).max()))
+            run.max_l = max(run.max_l, float(block["angmom_error"].max()))
+        run.max_e, run.max_l = max(run.max_e, e_err), max(run.max_l, l_err)
+        then, outcome, reason = "continue", None, None
+        if stop is not None:
+            then = "stopped"
+            outcome = (stop.kind.value, integ.step, integ.time, stop.bodies)
+        elif integ.step >= run.total:
+            then = "done"
+        elif interrupted and request is None:
+            then = "release"
+        elif self.order == "breadth" and row["ensemble_id"] is not None:
+            # Fair progress: hand the member back after each chunk so the
+            # least advanced member is always the next one worked on.
+            then = "release"
+        over = _over_budget(plan, run.max_e, run.max_l)
+        if over and then != "stopped" and plan.on_exceed != "continue":
+            if plan.on_exceed == "hold":
+                then, reason = "held", over
+            else:
+                then, reason = "stopped", over
+                outcome = ("over_budget", integ.step, integ.time, ())
+        new_events = _new_events(integ, run.seen)
+        nbytes = sum(v.nbytes for v in block.values())
+        behind = (not interrupted and nbytes <= defaults.OVERLAP_COMMIT_BYTES
+                  and (then == "continue" or overlap))
+        if behind:
+            block = {k: v.copy() for k, v in block.items()}
+        commit = _Commit(
+            run.claim, prepared, run.n_samples, block, integ.state_arrays(),
+            dict(idx=run.idx + 1, step=integ.step, time_=integ.time,
+                 n_samples=run.n_samples + len(block["time"]), energy_error=e_err,
+                 angmom_error=l_err, max_energy_error=run.max_e, max_angmom_error=run.max_l,
+                 then=then, outcome=outcome, reason=reason, segment_id=run.seg,
+                 wall_seconds=self.clock() - wall0,
+                 rate=_rate(integ, step0, wall0, self.clock()), events=new_events))
+        commit.behind = behind
+        run.seen += len(new_events)
+        run.idx += 1
+        run.n_samples += len(block["time"])
+        return commit, then
 
     def _behind_first_call(self, job_id, idx, fence, layout):
         """Start the helper thread's work for a chunk once its first kernel call is done.
@@ -427,12 +452,41 @@ class _Commit:
     """One chunk's commit: the claim, the prepared checkpoint array (a future), the
     first sample row, the samples block, the state arrays and the ledger fields."""
 
-    __slots__ = ("claim", "prepared", "start", "block", "state", "fields", "ends_claim")
+    __slots__ = ("claim", "prepared", "start", "block", "state", "fields", "ends_claim",
+                 "behind")
 
     def __init__(self, claim, prepared, start, block, state, fields):
         self.claim, self.prepared, self.start = claim, prepared, start
         self.block, self.state, self.fields = block, state, fields
         self.ends_claim = False  # the worker has left the claim (a _Pending)
+        self.behind = False  # may run on the helper thread while the kernel goes on
+
+
+class _Run:
+    """A claimed job being integrated: its claim, row, budget, integrator, segment,
+    sample buffer and the counters its next commit starts from."""
+
+    def __init__(self, claim, row, plan, integ, ck, seg):
+        self.claim, self.row, self.plan, self.integ, self.seg = claim, row, plan, integ, seg
+        self.e0 = row["energy0"]
+        self.l0 = angmom0(row)
+        self.out = int(row["output_steps"])
+        self.chunk = int(row["chunk_steps"])
+        self.total = int(row["total_steps"])
+        self.idx = int(ck["idx"])
+        self.n_samples = int(ck["n_samples"])
+        self.max_e, self.max_l = row["max_energy_error"], row["max_angmom_error"]
+        self.buf = SampleBuffer(len(integ.gm), self.e0, self.l0,
+                                capacity=min(self.chunk // self.out + 1, 4096),
+                                indicator=integ.indicator is not None,
+                                particles=getattr(integ, "particle_count", 0))
+        self.layout = state_layout(integ.state_arrays())
+        # Method switches and events already recorded.
+        self.seen = len(getattr(integ, "events", ()))
+
+    def chunk_end(self):
+        """The step the current chunk ends at."""
+        return min((self.integ.step // self.chunk + 1) * self.chunk, self.total)
 
 
 class _Pending:
@@ -482,6 +536,16 @@ def _new_events(integ, seen):
         out.append((EVENT_NAMES[int(kind)], int(step), integ.t0 + int(step) * integ.dt, bodies,
                     detail))
     return out
+
+
+def _raise_if_broken(integ, res):
+    """NumericalFailureError if the advance stopped because the state broke."""
+    if res.kind == StopKind.NUMERICAL_FAILURE:
+        raise NumericalFailureError(
+            f"numerical failure at step {integ.step} (t = {integ.time:.6g} d):"
+            " the state is no longer finite numbers (first seen in "
+            f"{_body_names(integ, res.bodies)}; bodies at the same place, or "
+            "a step far too long); nothing after the last checkpoint was kept")
 
 
 def _body_names(integ, bodies):

@@ -76,6 +76,31 @@ class WorkerSide:
         return Claim(int(row["id"]), fence, owner, expires, seg, job,
                      None if ck is None else dict(ck))
 
+    def batch_mates(self, job, limit):
+        """Ids of up to `limit` queued members of the job's ensemble that can share a
+        batch with it: the same progress, span, chunk, cadence, step and priority (so
+        they stand level with it in breadth-first order), lowest ids first."""
+        if job["ensemble_id"] is None or limit <= 0:
+            return []
+        c = jobs.c
+        q = select(c.id).where(and_(
+            c.ensemble_id == job["ensemble_id"], c.status == JobStatus.QUEUED.value,
+            c.id != job["id"], c.steps_done == job["steps_done"],
+            c.total_steps == job["total_steps"], c.chunk_steps == job["chunk_steps"],
+            c.output_steps == job["output_steps"], c.dt == job["dt"],
+            c.method == job["method"], c.priority == job["priority"])).order_by(c.id).limit(limit)
+        with self.engine.connect() as conn:
+            return [int(r[0]) for r in conn.execute(q)]
+
+    def active_members(self, ensemble_id):
+        """Members of an ensemble queued or running (the work its workers share)."""
+        c = jobs.c
+        q = select(func.count()).select_from(jobs).where(and_(
+            c.ensemble_id == ensemble_id,
+            c.status.in_((JobStatus.QUEUED.value, JobStatus.RUNNING.value))))
+        with self.engine.connect() as conn:
+            return int(conn.execute(q).scalar())
+
     def _apply_lapsed_requests(self, conn, lapsed, now):
         """Running jobs whose worker is gone and which carry a hold or cancel request:
         apply the request now (their worker cannot), closing its open segment."""

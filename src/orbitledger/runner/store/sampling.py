@@ -86,18 +86,27 @@ class SampleBuffer:
 
     def advance(self, integ, n_steps, every):
         """Advance integ by up to n_steps, sampling at multiples of every inside the kernel."""
+        start = self._reserve(n_steps, every)
+        if self.np:
+            res, rows = self._advance_particles(integ, n_steps, every)
+        else:
+            res, rows = integ.advance_sampled(n_steps, every, self._g, self.arrays["elements"],
+                                              start, self._ind)
+        self._absorb(integ, start, rows)
+        return res
+
+    def _reserve(self, n_steps, every):
+        """Room for the samples of n_steps more steps; returns the first free row."""
         need = self.n + n_steps // every + 1
         if need > len(self.arrays["time"]):
             self._alloc(max(need, 2 * len(self.arrays["time"])))
         if not hasattr(self, "_g") or len(self._g) < len(self.arrays["time"]):
             self._g = np.empty((len(self.arrays["time"]), 5))
             self._ind = np.empty((len(self.arrays["time"]), 2)) if self.indicator else None
-        start = self.n
-        if self.np:
-            res, rows = self._advance_particles(integ, n_steps, every)
-        else:
-            res, rows = integ.advance_sampled(n_steps, every, self._g, self.arrays["elements"],
-                                              start, self._ind)
+        return self.n
+
+    def _absorb(self, integ, start, rows):
+        """Turn the kernel's rows start..rows (step, G*energy, G*L) into samples."""
         if rows > start:
             g = self._g[start:rows]
             a = self.arrays
@@ -110,7 +119,6 @@ class SampleBuffer:
                 a["megno"][start:rows] = self._ind[start:rows, 0]
                 a["lyapunov"][start:rows] = self._ind[start:rows, 1] / abs(integ.dt)
             self.n = rows
-        return res
 
     def _advance_particles(self, integ, n_steps, every):
         """advance_sampled in calls that end on sample steps, the particles' elements
@@ -138,6 +146,20 @@ class SampleBuffer:
         out = {k: v[: self.n] for k, v in self.arrays.items()}
         out["time_yr"] = out["time"] / YEAR_D
         return out
+
+
+def advance_members(buffers, integs, n_steps, every, lanes):
+    """:meth:`SampleBuffer.advance` of several ensemble members at once, by the batched
+    kernel (:func:`integrators.batch.advance_together`): each member's samples and
+    state are the bytes its own ``advance`` would give. Returns the AdvanceResults."""
+    from orbitledger.integrators.batch import advance_together
+
+    starts = [buf._reserve(n_steps, every) for buf in buffers]
+    outputs = [(buf._g, buf.arrays["elements"], s) for buf, s in zip(buffers, starts)]
+    got = advance_together(integs, n_steps, every, outputs, lanes=lanes)
+    for buf, integ, s, (_, rows) in zip(buffers, integs, starts, got):
+        buf._absorb(integ, s, rows)
+    return [res for res, _ in got]
 
 
 def sample_now(integ, energy0, angmom0):

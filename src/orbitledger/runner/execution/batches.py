@@ -1,0 +1,203 @@
+"""Ensemble members worked as one batch by the batched kernel.
+
+A worker that claims a member of an ensemble run by the Wisdom-Holman map
+(with or without the corrector and GR; no indicator, no test particles, no
+switching) also claims up to ``lanes - 1`` queued members level with it
+(same progress, span, chunk and cadence: equally least advanced in
+breadth-first order). Each member keeps its own claim, lease, fencing token,
+segment and commits; only the kernel calls are shared
+(:func:`integrators.batch.advance_together`), and they give every member the
+bytes its own run would. A member that meets a stop condition, is asked to
+hold or cancel, or is fenced out leaves the batch at its own step and is
+committed (or discarded) exactly as alone; the others go on. Commits run on
+the worker's main thread after the chunk's kernel calls.
+"""
+
+import json
+import time
+
+from orbitledger.runner.execution.failpoints import failpoint
+from orbitledger.runner.execution.worklog import LOG
+from orbitledger.runner.ledger import provenance
+from orbitledger.runner.ledger.status import JobStatus
+from orbitledger.runner.store.sampling import advance_members
+
+
+def batchable(row):
+    """True if a job's members can run in the batched kernel (read from its spec)."""
+    if row["ensemble_id"] is None or row["method"] != "wisdom_holman":
+        return False
+    spec = json.loads(row["spec_json"])
+    method = spec.get("method", {})
+    return (method.get("indicator", "none") == "none" and not spec.get("particles")
+            and method.get("encounters", "stop") != "switch")
+
+
+def claim_mates(worker, claim):
+    """Claims of up to ``worker.lanes - 1`` members to batch with `claim` (may be none)."""
+    row = claim.job if claim.job is not None else worker.ledger.job(claim.job_id)
+    if worker.lanes <= 1 or worker.job_id is not None or not batchable(row):
+        return []
+    # The workers of one pool split the ensemble between them rather than the
+    # first one taking every member it can.
+    share = -(-worker.ledger.active_members(row["ensemble_id"]) // worker.peers)
+    mates = []
+    for job_id in worker.ledger.batch_mates(row, min(worker.lanes, share) - 1):
+        c = worker.ledger.claim(worker.owner, now=worker.clock(), job_id=job_id,
+                                order=worker.order, provenance=provenance.collect())
+        if c is None:
+            continue  # taken by another worker meanwhile
+        if c.job["steps_done"] != row["steps_done"]:
+            worker.ledger.give_back(c, now=worker.clock())
+            worker.ledger.end_segment(c.segment_id, None, "queued", now=worker.clock())
+            continue
+        mates.append(c)
+    return mates
+
+
+def run_batch(worker, claims):
+    """Integrate the claimed members together until each ends its claim; returns
+    [(claim, status)] in the order they ended."""
+    from orbitledger.integrators.batch import compatible
+    from orbitledger.runner.execution.worker import _Run
+
+    ended = []
+    runs = []
+    for claim in claims:
+        opened = worker._open(claim)
+        if not isinstance(opened, tuple):
+            ended.append((claim, opened))
+            continue
+        row, plan, integ, ck, seg = opened
+        run = _Run(claim, row, plan, integ, ck, seg)
+        if runs and not (compatible(runs[0].integ, integ)
+                         and run.chunk_end() == runs[0].chunk_end()):
+            # Not batchable with the first (its stored state says otherwise):
+            # it runs alone, as any job.
+            ended.append((claim, _alone(worker, run)))
+            continue
+        runs.append(run)
+    LOG.info("batch of %d members (jobs %s) on the batched kernel", len(runs),
+             ", ".join(str(r.claim.job_id) for r in runs))
+    while runs:
+        # Members whose chunk ends elsewhere (one extended, or one that went on
+        # from mid-chunk after a request came to nothing) run alone.
+        level = [r for r in runs if r.chunk_end() == runs[0].chunk_end()]
+        for run in runs:
+            if run not in level:
+                ended.append((run.claim, _alone(worker, run)))
+        if len(level) == 1:
+            ended.append((level[0].claim, _alone(worker, level[0])))
+            break
+        runs = _batch_chunk(worker, level, ended)
+    return ended
+
+
+def _alone(worker, run):
+    try:
+        return worker._chunks(run.claim, run.row, run.plan, run.integ,
+                              {"idx": run.idx, "n_samples": run.n_samples}, run.seg)
+    except Exception as err:  # noqa: BLE001 - mapped as the worker maps a claim's errors
+        return worker._failed_claim(run.claim, run.seg, err)
+
+
+def _batch_chunk(worker, runs, ended):
+    """One chunk of every member (they share the chunk's end); returns the members
+    that go on with the next chunk."""
+    from orbitledger.runner.execution.worker import _helper, _raise_if_broken, _rate
+
+    chunk_end = runs[0].chunk_end()
+    live = list(runs)
+    for run in live:
+        run.buf.clear()
+        run.prepared = None
+        run.stop = None
+        run.request = None
+        run.interrupted = False
+    wall0 = worker.clock()
+    step0 = live[0].integ.step
+    steps_per_call = (worker.max_steps_per_call if worker.slice_seconds is None
+                      else min(worker.max_steps_per_call, 100))
+    last_beat = worker.clock()
+    finishing = []  # members whose chunk ends before the others' (stop, request)
+    while live and live[0].integ.step < chunk_end:
+        n_call = min(chunk_end - live[0].integ.step, steps_per_call)
+        t_call, c_call = time.perf_counter(), time.thread_time()
+        results = advance_members([r.buf for r in live], [r.integ for r in live], n_call,
+                                  live[0].out, worker.lanes)
+        worker.kernel_seconds += time.perf_counter() - t_call
+        worker.kernel_cpu_seconds += time.thread_time() - c_call
+        if worker.slice_seconds is not None:
+            # A call of the whole batch lasts about the slice.
+            steps_per_call = max(1, worker._next_call_steps(
+                steps_per_call, t_call, n_call * len(live)) // len(live))
+        failpoint("first_step")
+        for run in live:
+            if run.prepared is None:
+                run.prepared = _helper().submit(worker.ledger.store.prepare, run.claim.job_id,
+                                                (run.idx + 1, run.claim.fence, run.layout))
+        stay = []
+        for run, res in zip(live, results):
+            if res.stopped:
+                try:
+                    _raise_if_broken(run.integ, res)
+                except Exception as err:  # noqa: BLE001 - a numerical failure fails the member
+                    ended.append((run.claim, worker._failed_claim(run.claim, run.seg, err)))
+                    continue
+                run.stop = res
+                finishing.append(run)
+            else:
+                stay.append(run)
+        live = stay
+        now = worker.clock()
+        if now - last_beat >= worker.heartbeat_seconds:
+            last_beat = now
+            stay = []
+            for run in live:
+                try:
+                    run.request = worker.ledger.heartbeat(run.claim, now=now)
+                except Exception as err:  # noqa: BLE001 - fenced out: its work is discarded
+                    ended.append((run.claim, worker._failed_claim(run.claim, run.seg, err)))
+                    continue
+                if run.request in ("hold", "cancel"):
+                    run.interrupted = True
+                    finishing.append(run)
+                else:
+                    stay.append(run)
+            live = stay
+        if worker.progress is not None:
+            for run in live:
+                worker.progress(run.row, run.integ.step,
+                                _rate(run.integ, step0, wall0, worker.clock()))
+        if worker._should_stop():
+            for run in live:
+                run.interrupted = True
+            finishing += live
+            live = []
+    going_on = []
+    for run in finishing + live:
+        status = _commit_member(worker, run, wall0, step0)
+        if status is None:
+            going_on.append(run)
+        else:
+            ended.append((run.claim, status))
+    return going_on
+
+
+def _commit_member(worker, run, wall0, step0):
+    """Commit a member's chunk; None if its claim goes on, else its status."""
+    from orbitledger.runner.execution.worker import _helper
+
+    if run.prepared is None:
+        run.prepared = _helper().submit(worker.ledger.store.prepare, run.claim.job_id,
+                                        (run.idx + 1, run.claim.fence, run.layout))
+    try:
+        commit, then = worker._chunk_commit(run, run.prepared, run.stop, run.interrupted,
+                                            run.request, wall0, step0)
+        result = worker._commit(commit)
+    except Exception as err:  # noqa: BLE001 - each kind mapped as for a claim alone
+        return worker._failed_claim(run.claim, run.seg, err)
+    run.total = result.total_steps
+    if result.status != JobStatus.RUNNING:
+        return result.status
+    return None if then == "continue" else result.status

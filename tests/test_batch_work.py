@@ -1,0 +1,130 @@
+"""Workers run ensemble members as batches: every committed byte equals a run of
+each member alone, on SQLite and PostgreSQL; members leave a batch at their own
+stop; a pool's workers split the members.
+
+Reproducibility checks (the batched path against the project's scalar path);
+kills at random moments with members changing hands run in test_chaos and
+test_ensemble, whose references are worked one member at a time.
+"""
+
+import os
+import subprocess
+import sys
+
+import pytest
+
+from orbitledger.runner.analysis.integrity import verify
+from orbitledger.runner.execution.worker import Worker
+from orbitledger.runner.inputs import spec as S
+from orbitledger.runner.ledger.operations import Ledger
+from orbitledger.runner.ledger.workspace import init
+from orbitledger.runner.store.zarr_store import state_sha256, to_storable
+
+from helpers import ROOT, ejecting_ensemble_text, final_state, samples_bytes
+
+ILVAR = os.path.join(ROOT, "jobs", "ilvar-ensemble.toml")
+
+
+def ilvar_text(members=8, length="600 yr"):
+    return open(ILVAR).read().replace("members = 16", f"members = {members}").replace(
+        'length = "3000 yr"', f'length = "{length}"').replace(
+        'chunk = "200000 steps"', 'chunk = "100000 steps"')
+
+
+def checkpoint_rows(led, job_id):
+    return [(c["idx"], c["step"], c["state_sha256"], c["samples_sha256"], c["chain_sha256"],
+             c["n_samples"]) for c in led.checkpoints(job_id)]
+
+
+def same_checkpoint_states(ref, a, led, b):
+    """Every checkpoint of job b equals job a's state at the same step (an extra
+    checkpoint, as at a hold, is compared with job a advanced to its step)."""
+    ref_cks = ref.checkpoints(a)
+    for ck in led.checkpoints(b):
+        base = max((c for c in ref_cks if c["step"] <= ck["step"]), key=lambda c: c["step"])
+        integ, _ = ref.load_integrator(a, base["idx"])
+        integ.advance(ck["step"] - integ.step)
+        assert state_sha256(to_storable(integ.state_arrays())) == ck["state_sha256"], \
+            (b, ck["idx"], ck["step"])
+
+
+def assert_same_jobs(ref, ref_ids, led, ids, same_rows=True):
+    for a, b in zip(ref_ids, ids):
+        ja, jb = ref.job(a), led.job(b)
+        assert (ja["status"], ja["outcome"], ja["outcome_step"], ja["outcome_bodies"]) == \
+            (jb["status"], jb["outcome"], jb["outcome_step"], jb["outcome_bodies"])
+        if same_rows:
+            assert checkpoint_rows(ref, a) == checkpoint_rows(led, b)
+        else:
+            same_checkpoint_states(ref, a, led, b)
+        assert final_state(ref, a) == final_state(led, b)
+        assert samples_bytes(ref, a) == samples_bytes(led, b)
+        assert verify(led, b).ok
+
+
+@pytest.mark.parametrize("text", [ilvar_text(), ejecting_ensemble_text("batch-eject")],
+                         ids=["ilvar", "ejecting"])
+def test_batched_members_commit_what_they_commit_alone(tmp_path, text, ledger_url):
+    ref = Ledger(f"sqlite:///{tmp_path}/ref.sqlite", tmp_path / "ref")
+    _, ref_ids = ref.submit_ensemble(S.load_text(text))
+    Worker(ref, lanes=1).run()
+    led = Ledger(ledger_url(tmp_path), tmp_path / "store")
+    _, ids = led.submit_ensemble(S.load_text(text))
+    # Several kernel calls per chunk (a member's stop falls inside one), and
+    # batches of 4: members change batches between chunks.
+    w = Worker(led, lanes=4, max_steps_per_call=7_000, slice_seconds=None)
+    assert w.run() == 0
+    assert_same_jobs(ref, ref_ids, led, ids)
+    if "eject" in text:
+        assert {led.job(j)["outcome"] for j in ids} >= {"ejection"}
+    # Every segment was worked by this worker, several members per batch.
+    assert all(s["end_reason"] in ("queued", "done", "stopped") for j in ids
+               for s in led.segments(j))
+    ref.close()
+    led.close()
+
+
+def test_a_member_asked_to_hold_leaves_the_batch_at_its_step(tmp_path):
+    text = ilvar_text(members=4, length="300 yr")
+    ref = Ledger(f"sqlite:///{tmp_path}/ref.sqlite", tmp_path / "ref")
+    _, ref_ids = ref.submit_ensemble(S.load_text(text))
+    Worker(ref, lanes=1).run()
+    led = Ledger(f"sqlite:///{tmp_path}/l.sqlite", tmp_path / "store")
+    _, ids = led.submit_ensemble(S.load_text(text))
+    calls = []
+
+    def progress(row, step, rate):
+        # The first member is asked to hold during the batch's first chunk.
+        calls.append(row["id"])
+        if len(calls) == 3:
+            led.hold(ids[0])
+
+    w = Worker(led, lanes=4, max_steps_per_call=5_000, slice_seconds=None, progress=progress,
+               heartbeat_seconds=0.0)
+    w.run()
+    held = led.job(ids[0])
+    assert held["status"] == "held" and 0 < held["steps_done"] < held["total_steps"]
+    led.release(ids[0])
+    Worker(led, lanes=4).run()
+    # The hold added a checkpoint at its step; every checkpoint, the samples
+    # and the end are still the members' own.
+    assert_same_jobs(ref, ref_ids, led, ids, same_rows=False)
+    ref.close()
+    led.close()
+
+
+def test_batched_work_is_split_between_a_pools_workers(tmp_path):
+    ws, led = init(tmp_path / "ws")
+    _, ids = led.submit_ensemble(S.load_text(ilvar_text(members=8, length="300 yr")))
+    log = tmp_path / "work.log"
+    out = subprocess.run([sys.executable, "-m", "orbitledger.runner.cli", "work", "--workspace",
+                          str(ws), "--workers", "2", "--quiet", "--log-file", str(log)],
+                         cwd=ROOT, capture_output=True, text=True, timeout=600)
+    assert out.returncode == 0, out.stderr
+    text = log.read_text()
+    assert "batch of 4 members" in text
+    pids = {s["pid"] for j in ids for s in led.segments(j)}
+    assert len(pids) == 2
+    assert all(led.job(j)["status"] in ("done", "stopped") for j in ids)
+    assert all(verify(led, j).ok for j in ids)
+    led.close()
