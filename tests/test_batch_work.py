@@ -77,9 +77,11 @@ def test_batched_members_commit_what_they_commit_alone(tmp_path, text, ledger_ur
     assert_same_jobs(ref, ref_ids, led, ids)
     if "eject" in text:
         assert {led.job(j)["outcome"] for j in ids} >= {"ejection"}
-    # Every segment was worked by this worker, several members per batch.
-    assert all(s["end_reason"] in ("queued", "done", "stopped") for j in ids
-               for s in led.segments(j))
+    # Every segment was worked by this worker, several members per batch, and
+    # says so in its provenance.
+    segs = [s for j in ids for s in led.segments(j)]
+    assert all(s["end_reason"] in ("queued", "done", "stopped") for s in segs)
+    assert any('"kernel": "batched, 4 members"' in s["versions"] for s in segs)
     ref.close()
     led.close()
 
@@ -127,4 +129,8 @@ def test_batched_work_is_split_between_a_pools_workers(tmp_path):
     assert len(pids) == 2
     assert all(led.job(j)["status"] in ("done", "stopped") for j in ids)
     assert all(verify(led, j).ok for j in ids)
+    shown = subprocess.run([sys.executable, "-m", "orbitledger.runner.cli", "show", str(ids[0]),
+                            "--workspace", str(ws)], cwd=ROOT, capture_output=True, text=True,
+                           env=dict(os.environ, COLUMNS="250"))
+    assert "kernel batched, 4 members" in shown.stdout
     led.close()

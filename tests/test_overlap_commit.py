@@ -62,7 +62,7 @@ def serial(tmp_path_factory):
     saved = defaults.OVERLAP_COMMIT_BYTES
     defaults.OVERLAP_COMMIT_BYTES = -1  # nothing is small enough to go behind
     try:
-        Worker(led).run()
+        Worker(led, lanes=1).run()
     finally:
         defaults.OVERLAP_COMMIT_BYTES = saved
     out = [ledger_bytes(led, j) for j in ids]
@@ -83,7 +83,7 @@ def test_commits_behind_the_kernel_write_what_serial_commits_write(tmp_path, ser
     led = Ledger(ledger_url(tmp_path), tmp_path / "store")
     ids = submit(led)
     with caplog.at_level(logging.INFO, logger="orbitledger.work"):
-        assert Worker(led).run() == 0
+        assert Worker(led, lanes=1).run() == 0
     behind = behind_lines(caplog)
     # All but the last chunk of the single job, and the members' hand-backs.
     assert len(behind) >= 36 + 3, len(behind)
@@ -108,7 +108,7 @@ def test_a_hold_applied_behind_the_kernel_discards_the_chunk_computed_meanwhile(
             assert led.hold(jid) == "requested"
         seen.append(step)
 
-    w = Worker(led, job_id=jid, progress=progress, max_steps_per_call=500,
+    w = Worker(led, lanes=1, job_id=jid, progress=progress, max_steps_per_call=500,
                heartbeat_seconds=1e9)
     claim = led.claim(w.owner, job_id=jid)
     assert w.run_claim(claim) == JobStatus.HELD
@@ -117,7 +117,7 @@ def test_a_hold_applied_behind_the_kernel_discards_the_chunk_computed_meanwhile(
     assert max(seen) >= 2 * CHUNK  # the second chunk was computed, then discarded
     assert verify(led, jid).ok
     led.release(jid)
-    Worker(led, job_id=jid).run()
+    Worker(led, lanes=1, job_id=jid).run()
     assert ledger_bytes(led, jid) == serial[0]
     led.close()
 
@@ -151,7 +151,7 @@ def test_a_job_extended_while_its_last_commit_runs_behind_is_gone_on_with(tmp_pa
     new_total = old_total + 3 * CHUNK + 123
     extended = []
     progress = _extend_in_last_chunk(led, jid, old_total, new_total, extended)
-    w = Worker(led, progress=progress, max_steps_per_call=200)
+    w = Worker(led, lanes=1, progress=progress, max_steps_per_call=200)
     assert w.run() == 0
     assert extended
     row = led.job(jid)
@@ -189,7 +189,7 @@ def test_a_hold_asked_for_between_that_commit_and_the_hand_back_is_what_is_recor
 
     led.commit_checkpoint = commit_then_hold
     progress = _extend_in_last_chunk(led, jid, old_total, new_total, extended)
-    w = Worker(led, progress=progress, max_steps_per_call=200)
+    w = Worker(led, lanes=1, progress=progress, max_steps_per_call=200)
     assert w.run() == 0
     assert extended
     row = led.job(jid)
@@ -215,13 +215,13 @@ def test_a_lease_lost_behind_the_kernel_discards_the_chunk(tmp_path, serial, led
             clock[0] = 100.0
             stolen["claim"] = led.claim("thief", now=100.0)
 
-    w = Worker(led, owner="victim", clock=lambda: clock[0], progress=progress,
+    w = Worker(led, lanes=1, owner="victim", clock=lambda: clock[0], progress=progress,
                max_steps_per_call=200, heartbeat_seconds=1e9)
     claim = led.claim("victim", now=0.0, job_id=jid)
     assert w.run_claim(claim) == "fenced"
     row = led.job(jid)
     assert row["owner"] == "thief" and row["fence"] == 2 and row["steps_done"] in (0, CHUNK)
-    thief = Worker(led, owner="thief")
+    thief = Worker(led, lanes=1, owner="thief")
     assert thief.run_claim(stolen["claim"]) == JobStatus.DONE
     assert ledger_bytes(led, jid) == serial[0]
     assert verify(led, jid).ok

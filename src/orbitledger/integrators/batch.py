@@ -55,7 +55,9 @@ N_STEP_ROWS = 5
 
 # Members advanced together by default: measured (docs/benchmarks.md,
 # "Batched members"), not guessed.
-DEFAULT_LANES = 16
+DEFAULT_LANES = 32
+# Most bytes of samples held in the batch's own staging arrays at once.
+_STAGING_BYTES = 4_000_000
 
 
 @njit(cache=True, error_model="numpy", inline="always")
@@ -544,14 +546,21 @@ def _advance_group(members, group, n_steps, every, outputs, rows, codes, done):
     a_inv, c_inv = first._inv
     active = list(group)
     pack = _Lanes([members[k] for k in active], len(active))
-    cap = n_steps // every + 1 if every else 0
+    # Samples pass through stacked arrays of at most _STAGING_BYTES, in kernel
+    # calls of at most `piece` steps (where a run is split changes no bit).
+    piece = n_steps
+    if every:
+        max_rows = max(1, _STAGING_BYTES // (pack.B * 8 * (5 + 6 * (n - 1))))
+        piece = min(n_steps, max_rows * every)
+    cap = piece // every + 1 if every else 0
     out_g = np.zeros((pack.B, cap, 5))
     out_el = np.zeros((pack.B, cap, n - 1, 6))
     ev = np.full(pack.B, every, dtype=np.int64)
     lane_rows = np.zeros(pack.B, dtype=np.int64)
     while active:
         nl = len(active)
-        left = n_steps - done[active[0]]  # the members of a batch have taken the same steps
+        # The members of a batch have taken the same steps.
+        left = min(n_steps - done[active[0]], piece)
         step0 = np.zeros(pack.B, dtype=np.int64)
         for m, k in enumerate(active):
             step0[m] = members[k].step + members[k].sample_offset + done[k]

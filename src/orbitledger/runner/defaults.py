@@ -26,6 +26,10 @@ SLICE_SECONDS = 0.5
 # (docs/benchmarks.md, "Batched members"): the batch's speed-up grows with its
 # size up to about 32 lanes (2.6-2.8x the scalar kernel) and little beyond.
 BATCH_LANES = 32
+# Most bytes of one chunk's samples a batch holds for all its members at once
+# (a batch of members whose chunks hold many samples is made smaller), so a
+# worker's memory stays bounded whatever the plan.
+BATCH_SAMPLE_BYTES = 192_000_000
 # Output cadence when a spec gives none, steps.
 DEFAULT_OUTPUT_STEPS = 1_000
 # Chunk (checkpoint interval) when a spec gives none, in outputs.

@@ -16,6 +16,7 @@ the worker's main thread after the chunk's kernel calls.
 import json
 import time
 
+from orbitledger.runner import defaults
 from orbitledger.runner.execution.failpoints import failpoint
 from orbitledger.runner.execution.worklog import LOG
 from orbitledger.runner.ledger import provenance
@@ -42,7 +43,7 @@ def claim_mates(worker, claim):
     # first one taking every member it can.
     share = -(-worker.ledger.active_members(row["ensemble_id"]) // worker.peers)
     mates = []
-    for job_id in worker.ledger.batch_mates(row, min(worker.lanes, share) - 1):
+    for job_id in worker.ledger.batch_mates(row, min(worker.lanes, share, _fit(row)) - 1):
         c = worker.ledger.claim(worker.owner, now=worker.clock(), job_id=job_id,
                                 order=worker.order, provenance=provenance.collect())
         if c is None:
@@ -53,6 +54,13 @@ def claim_mates(worker, claim):
             continue
         mates.append(c)
     return mates
+
+
+def _fit(row):
+    """Most members whose chunk samples fit in defaults.BATCH_SAMPLE_BYTES together."""
+    per_sample = 8 * (5 + 6 * (int(row["n_bodies"]) - 1))
+    per_member = (int(row["chunk_steps"]) // int(row["output_steps"]) + 1) * per_sample
+    return max(1, defaults.BATCH_SAMPLE_BYTES // per_member)
 
 
 def run_batch(worker, claims):
@@ -79,6 +87,7 @@ def run_batch(worker, claims):
         runs.append(run)
     LOG.info("batch of %d members (jobs %s) on the batched kernel", len(runs),
              ", ".join(str(r.claim.job_id) for r in runs))
+    worker.ledger.note_kernel([r.seg for r in runs], f"batched, {len(runs)} members")
     while runs:
         # Members whose chunk ends elsewhere (one extended, or one that went on
         # from mid-chunk after a request came to nothing) run alone.

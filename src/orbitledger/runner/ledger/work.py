@@ -92,6 +92,18 @@ class WorkerSide:
         with self.engine.connect() as conn:
             return [int(r[0]) for r in conn.execute(q)]
 
+    def note_kernel(self, segment_ids, kernel):
+        """Record in segments' provenance which kernel path ran them (e.g. "batched, 8
+        members"); segments without the note ran the scalar kernel."""
+        with self.engine.begin() as conn:
+            for seg in segment_ids:
+                text = conn.execute(select(segments.c.versions).where(
+                    segments.c.id == seg)).scalar()
+                ver = json.loads(text or "{}")
+                ver["kernel"] = kernel
+                conn.execute(update(segments).where(segments.c.id == seg).values(
+                    versions=json.dumps(ver, sort_keys=True)))
+
     def active_members(self, ensemble_id):
         """Members of an ensemble queued or running (the work its workers share)."""
         c = jobs.c

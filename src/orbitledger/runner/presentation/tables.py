@@ -172,7 +172,7 @@ def show_tables(ledger, job_id):
                   format_duration(wall), s["end_reason"] or "running",
                   f"orbitledger {ver.get('orbitledger')} "
                   f"({(ver.get('source_commit') or 'no commit')[:12]}), numba {ver.get('numba')}, "
-                  f"numpy {ver.get('numpy')}")
+                  f"numpy {ver.get('numpy')}; kernel {ver.get('kernel', 'scalar')}")
     return t, p, segs
 
 
