@@ -132,5 +132,60 @@ def test_batched_work_is_split_between_a_pools_workers(tmp_path):
     shown = subprocess.run([sys.executable, "-m", "orbitledger.runner.cli", "show", str(ids[0]),
                             "--workspace", str(ws)], cwd=ROOT, capture_output=True, text=True,
                            env=dict(os.environ, COLUMNS="250"))
-    assert "kernel batched, 4 members" in shown.stdout
+    assert "batched, 4 members" in shown.stdout  # (the table may wrap after "kernel")
+    led.close()
+
+
+def test_members_extended_during_their_last_chunk_go_on_in_the_batch(tmp_path):
+    # An extension made while the batch runs its members' last chunk turns
+    # their "done" into "continue": they go on (as a member alone does), and
+    # end on the bytes of members run alone and extended the same way.
+    text = ilvar_text(members=4, length="300 yr")
+
+    def worked(lanes, name):
+        led = Ledger(f"sqlite:///{tmp_path}/{name}.sqlite", tmp_path / name)
+        _, ids = led.submit_ensemble(S.load_text(text))
+        total = led.job(ids[0])["total_steps"]
+        extended = []
+
+        def progress(row, step, rate):
+            if not extended and step > total - 30_000:
+                for j in ids:
+                    led.extend(j, total + 40_000)
+                extended.append(row["id"])
+
+        w = Worker(led, lanes=lanes, max_steps_per_call=5_000, slice_seconds=None,
+                   progress=progress)
+        assert w.run() == 0
+        assert extended
+        return led, ids
+
+    ref, ref_ids = worked(1, "ref")
+    led, ids = worked(4, "batched")
+    assert all(led.job(j)["steps_done"] == ref.job(r)["steps_done"] > 0
+               for j, r in zip(ids, ref_ids))
+    assert_same_jobs(ref, ref_ids, led, ids, same_rows=False)
+    ref.close()
+    led.close()
+
+
+def test_an_error_in_a_batch_hands_every_claim_back(tmp_path, monkeypatch):
+    from orbitledger.runner.store import sampling
+
+    led = Ledger(f"sqlite:///{tmp_path}/l.sqlite", tmp_path / "store")
+    _, ids = led.submit_ensemble(S.load_text(ilvar_text(members=4, length="300 yr")))
+
+    def broken(*args, **kwargs):
+        raise MemoryError("planted")
+
+    monkeypatch.setattr(sampling, "advance_members", broken)
+    from orbitledger.runner.execution import batches
+
+    monkeypatch.setattr(batches, "advance_members", broken)
+    with pytest.raises(MemoryError, match="planted"):
+        Worker(led, lanes=4).run()
+    for j in ids:
+        row = led.job(j)
+        assert row["status"] == "queued" and row["owner"] is None, row["status"]
+        assert all(s["ended_at"] is not None for s in led.segments(j))
     led.close()

@@ -49,8 +49,8 @@ def claim_mates(worker, claim):
         if c is None:
             continue  # taken by another worker meanwhile
         if c.job["steps_done"] != row["steps_done"]:
-            worker.ledger.give_back(c, now=worker.clock())
-            worker.ledger.end_segment(c.segment_id, None, "queued", now=worker.clock())
+            left = worker.ledger.give_back(c, now=worker.clock()) or JobStatus.QUEUED
+            worker.ledger.end_segment(c.segment_id, None, left.value, now=worker.clock())
             continue
         mates.append(c)
     return mates
@@ -65,54 +65,91 @@ def _fit(row):
 
 def run_batch(worker, claims):
     """Integrate the claimed members together until each ends its claim; returns
-    [(claim, status)] in the order they ended."""
+    [(claim, status)] in the order they ended.
+
+    Whatever happens, no claim is left held: on an error every member still
+    claimed is handed back (nothing after its last commit is lost) before the
+    error goes on up.
+    """
     from orbitledger.integrators.batch import compatible
     from orbitledger.runner.execution.worker import _Run
 
     ended = []
     runs = []
-    for claim in claims:
-        opened = worker._open(claim)
-        if not isinstance(opened, tuple):
-            ended.append((claim, opened))
-            continue
-        row, plan, integ, ck, seg = opened
-        run = _Run(claim, row, plan, integ, ck, seg)
-        if runs and not (compatible(runs[0].integ, integ)
-                         and run.chunk_end() == runs[0].chunk_end()):
-            # Not batchable with the first (its stored state says otherwise):
-            # it runs alone, as any job.
-            ended.append((claim, _alone(worker, run)))
-            continue
-        runs.append(run)
-    LOG.info("batch of %d members (jobs %s) on the batched kernel", len(runs),
-             ", ".join(str(r.claim.job_id) for r in runs))
-    worker.ledger.note_kernel([r.seg for r in runs], f"batched, {len(runs)} members")
-    while runs:
-        # Members whose chunk ends elsewhere (one extended, or one that went on
-        # from mid-chunk after a request came to nothing) run alone.
-        level = [r for r in runs if r.chunk_end() == runs[0].chunk_end()]
-        for run in runs:
-            if run not in level:
-                ended.append((run.claim, _alone(worker, run)))
-        if len(level) == 1:
-            ended.append((level[0].claim, _alone(worker, level[0])))
-            break
-        runs = _batch_chunk(worker, level, ended)
+    held = {}  # job id -> (claim, segment) of every claim not yet ended
+    try:
+        for claim in claims:
+            held[claim.job_id] = (claim, claim.segment_id)
+            opened = worker._open(claim)
+            if not isinstance(opened, tuple):
+                _end(ended, held, claim, opened)
+                continue
+            row, plan, integ, ck, seg = opened
+            held[claim.job_id] = (claim, seg)
+            run = _Run(claim, row, plan, integ, ck, seg)
+            if runs and not (compatible(runs[0].integ, integ) and _level(run, runs[0])):
+                # Not batchable with the first (its stored state says otherwise):
+                # handed back untouched, for a claim of its own.
+                _end(ended, held, claim, _hand_back(worker, run))
+                continue
+            runs.append(run)
+        if len(runs) > 1:
+            LOG.info("batch of %d members (jobs %s) on the batched kernel", len(runs),
+                     ", ".join(str(r.claim.job_id) for r in runs))
+            worker.ledger.note_kernel([r.seg for r in runs], f"batched, {len(runs)} members")
+        while runs:
+            # Members no longer level with the first (one extended, or one that
+            # went on from mid-chunk after a request came to nothing) have just
+            # committed: they are handed back rather than kept waiting.
+            level = [r for r in runs if _level(r, runs[0])]
+            for run in runs:
+                if run not in level:
+                    _end(ended, held, run.claim, _hand_back(worker, run))
+            if len(level) == 1:
+                run = level[0]
+                try:
+                    status = worker._chunks(run.claim, run.row, run.plan, run.integ, None,
+                                            run.seg, run=run)
+                except Exception as err:  # noqa: BLE001 - mapped as for any claim
+                    status = worker._failed_claim(run.claim, run.seg, err)
+                _end(ended, held, run.claim, status)
+                break
+            runs = _batch_chunk(worker, level, lambda c, s: _end(ended, held, c, s))
+    except BaseException:
+        for claim, seg in list(held.values()):
+            left = worker.ledger.give_back(claim, now=worker.clock())
+            if left is None:
+                continue  # already ended (failed, fenced) or taken over
+            if seg is not None:
+                worker.ledger.end_segment(seg, None, "interrupted", now=worker.clock())
+            LOG.info("job %d handed back (%s) after an error in its batch", claim.job_id,
+                     left.value)
+        raise
     return ended
 
 
-def _alone(worker, run):
-    try:
-        return worker._chunks(run.claim, run.row, run.plan, run.integ,
-                              {"idx": run.idx, "n_samples": run.n_samples}, run.seg)
-    except Exception as err:  # noqa: BLE001 - mapped as the worker maps a claim's errors
-        return worker._failed_claim(run.claim, run.seg, err)
+def _end(ended, held, claim, status):
+    ended.append((claim, status))
+    held.pop(claim.job_id, None)
 
 
-def _batch_chunk(worker, runs, ended):
-    """One chunk of every member (they share the chunk's end); returns the members
-    that go on with the next chunk."""
+def _level(a, b):
+    """True if two members stand at the same step with the same chunk end."""
+    return a.integ.step == b.integ.step and a.chunk_end() == b.chunk_end()
+
+
+def _hand_back(worker, run):
+    """Give back a member with nothing uncommitted; its status afterwards."""
+    left = worker.ledger.give_back(run.claim, now=worker.clock()) or JobStatus.QUEUED
+    worker.ledger.end_segment(run.seg, None, left.value, now=worker.clock())
+    return left
+
+
+def _batch_chunk(worker, runs, end):
+    """One chunk of every member (they share the chunk's end); a member that stops
+    or is asked to hold or cancel is committed as soon as it leaves. Calls
+    end(claim, status) for each member whose claim ends; returns the members that
+    go on with the next chunk."""
     from orbitledger.runner.execution.worker import _helper, _raise_if_broken, _rate
 
     chunk_end = runs[0].chunk_end()
@@ -128,7 +165,15 @@ def _batch_chunk(worker, runs, ended):
     steps_per_call = (worker.max_steps_per_call if worker.slice_seconds is None
                       else min(worker.max_steps_per_call, 100))
     last_beat = worker.clock()
-    finishing = []  # members whose chunk ends before the others' (stop, request)
+    going_on = []
+
+    def leave(run):
+        status = _commit_member(worker, run, wall0, step0)
+        if status is None:
+            going_on.append(run)
+        else:
+            end(run.claim, status)
+
     while live and live[0].integ.step < chunk_end:
         n_call = min(chunk_end - live[0].integ.step, steps_per_call)
         t_call, c_call = time.perf_counter(), time.thread_time()
@@ -147,16 +192,16 @@ def _batch_chunk(worker, runs, ended):
                                                 (run.idx + 1, run.claim.fence, run.layout))
         stay = []
         for run, res in zip(live, results):
-            if res.stopped:
-                try:
-                    _raise_if_broken(run.integ, res)
-                except Exception as err:  # noqa: BLE001 - a numerical failure fails the member
-                    ended.append((run.claim, worker._failed_claim(run.claim, run.seg, err)))
-                    continue
-                run.stop = res
-                finishing.append(run)
-            else:
+            if not res.stopped:
                 stay.append(run)
+                continue
+            try:
+                _raise_if_broken(run.integ, res)
+            except Exception as err:  # noqa: BLE001 - a numerical failure fails the member
+                end(run.claim, worker._failed_claim(run.claim, run.seg, err))
+                continue
+            run.stop = res
+            leave(run)
         live = stay
         now = worker.clock()
         if now - last_beat >= worker.heartbeat_seconds:
@@ -166,11 +211,11 @@ def _batch_chunk(worker, runs, ended):
                 try:
                     run.request = worker.ledger.heartbeat(run.claim, now=now)
                 except Exception as err:  # noqa: BLE001 - fenced out: its work is discarded
-                    ended.append((run.claim, worker._failed_claim(run.claim, run.seg, err)))
+                    end(run.claim, worker._failed_claim(run.claim, run.seg, err))
                     continue
                 if run.request in ("hold", "cancel"):
                     run.interrupted = True
-                    finishing.append(run)
+                    leave(run)
                 else:
                     stay.append(run)
             live = stay
@@ -181,15 +226,9 @@ def _batch_chunk(worker, runs, ended):
         if worker._should_stop():
             for run in live:
                 run.interrupted = True
-            finishing += live
-            live = []
-    going_on = []
-    for run in finishing + live:
-        status = _commit_member(worker, run, wall0, step0)
-        if status is None:
-            going_on.append(run)
-        else:
-            ended.append((run.claim, status))
+            break
+    for run in live:
+        leave(run)
     return going_on
 
 
@@ -207,6 +246,6 @@ def _commit_member(worker, run, wall0, step0):
     except Exception as err:  # noqa: BLE001 - each kind mapped as for a claim alone
         return worker._failed_claim(run.claim, run.seg, err)
     run.total = result.total_steps
-    if result.status != JobStatus.RUNNING:
-        return result.status
-    return None if then == "continue" else result.status
+    # Still running: it goes on (a "done" turned "continue" by an extension
+    # made while its last chunk ran, too).
+    return None if result.status == JobStatus.RUNNING else result.status

@@ -253,8 +253,10 @@ class Worker:
         self.ledger.end_segment(seg, None, "failed", now=self.clock())
         raise err
 
-    def _chunks(self, claim, row, plan, integ, ck, seg, overlap=False):
-        run = _Run(claim, row, plan, integ, ck, seg)
+    def _chunks(self, claim, row, plan, integ, ck, seg, overlap=False, run=None):
+        # `run`: a claim already under way (a member leaving a batch) goes on
+        # with its own counters.
+        run = run or _Run(claim, row, plan, integ, ck, seg)
         buf = run.buf
         # With a wall-time slice, a short first call measures the cost of a step.
         steps_per_call = (self.max_steps_per_call if self.slice_seconds is None
