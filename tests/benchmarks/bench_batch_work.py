@@ -93,7 +93,8 @@ def work_rate(text, *args):
         subprocess.run(exe + ["submit", path, "--workspace", ws], check=True,
                        capture_output=True)
         t0 = time.perf_counter()
-        subprocess.run(exe + ["work", "--workspace", ws, "--quiet", *args], check=True)
+        subprocess.run(exe + ["work", "--workspace", ws, "--quiet", "--log-level", "warning",
+                              *args], check=True)
         wall = time.perf_counter() - t0
         status = subprocess.run(exe + ["status", "--json", "--all", "--workspace", ws],
                                 check=True, capture_output=True, text=True).stdout

@@ -181,10 +181,9 @@ def _batch_chunk(worker, runs, end):
                                   live[0].out, worker.lanes)
         worker.kernel_seconds += time.perf_counter() - t_call
         worker.kernel_cpu_seconds += time.thread_time() - c_call
-        if worker.slice_seconds is not None:
-            # A call of the whole batch lasts about the slice.
-            steps_per_call = max(1, worker._next_call_steps(
-                steps_per_call, t_call, n_call * len(live)) // len(live))
+        # A call of the whole batch lasts about the slice (at most
+        # max_steps_per_call steps of each member).
+        steps_per_call = worker._next_call_steps(steps_per_call, t_call, n_call)
         failpoint("first_step")
         for run in live:
             if run.prepared is None:
