@@ -45,6 +45,12 @@ from .wisdom_holman import WisdomHolman, wh_diagnose
 # module's kernels are compiled.
 _llvm.set_option("", "-vectorize-memory-check-threshold=1024")
 
+# Most lanes in one kernel call, and the distance in elements between two
+# rows of the flat scratch arrays: a compile-time constant, so that LLVM sees
+# the rows of one array cannot overlap within a loop over the lanes and
+# vectorizes it without run-time checks between them.
+_PITCH = 64
+
 # Rows of the per-lane scratch array of the drift.
 _R0, _IR0, _ETA, _BETA, _DT, _ZETA, _S, _LO, _HI, _DSP, _ST = range(11)
 _RR, _G0, _G1, _G2, _Y, _NQ, _C0, _C1, _C2, _C3 = range(11, 21)
@@ -70,26 +76,26 @@ def _is_large(y):
 def _halley_lane(w, m, mu, c0, c1, c2, c3):
     """One Halley iteration of lane m from its Stumpff values; a lane no longer
     iterating keeps its values. Returns 1 if the lane iterates on, else 0."""
-    s = w[_S, m]
-    beta = w[_BETA, m]
-    r0 = w[_R0, m]
-    eta0 = w[_ETA, m]
-    t, r, rp, g0, g1, g2, t_scale = kepler_terms(s, c0, c1, c2, c3, r0, eta0, w[_ZETA, m], mu)
+    s = w[_S * _PITCH + m]
+    beta = w[_BETA * _PITCH + m]
+    r0 = w[_R0 * _PITCH + m]
+    eta0 = w[_ETA * _PITCH + m]
+    t, r, rp, g0, g1, g2, t_scale = kepler_terms(s, c0, c1, c2, c3, r0, eta0, w[_ZETA * _PITCH + m], mu)
     code, s, r, g0, g1, g2, lo, hi, ds = halley_update(
-        s, w[_DT, m], t, r, rp, g0, g1, g2, t_scale, w[_LO, m], w[_HI, m], w[_DSP, m],
+        s, w[_DT * _PITCH + m], t, r, rp, g0, g1, g2, t_scale, w[_LO * _PITCH + m], w[_HI * _PITCH + m], w[_DSP * _PITCH + m],
         beta, r0, eta0, mu)
-    live = w[_ST, m] == 0.0
-    w[_ST, m] = float(code) if live else w[_ST, m]
-    w[_S, m] = s if live else w[_S, m]
-    w[_RR, m] = r if live else w[_RR, m]
-    w[_G1, m] = g1 if live else w[_G1, m]
-    w[_G2, m] = g2 if live else w[_G2, m]
-    w[_LO, m] = lo if live else w[_LO, m]
-    w[_HI, m] = hi if live else w[_HI, m]
-    w[_DSP, m] = ds if live else w[_DSP, m]
+    live = w[_ST * _PITCH + m] == 0.0
+    w[_ST * _PITCH + m] = float(code) if live else w[_ST * _PITCH + m]
+    w[_S * _PITCH + m] = s if live else w[_S * _PITCH + m]
+    w[_RR * _PITCH + m] = r if live else w[_RR * _PITCH + m]
+    w[_G1 * _PITCH + m] = g1 if live else w[_G1 * _PITCH + m]
+    w[_G2 * _PITCH + m] = g2 if live else w[_G2 * _PITCH + m]
+    w[_LO * _PITCH + m] = lo if live else w[_LO * _PITCH + m]
+    w[_HI * _PITCH + m] = hi if live else w[_HI * _PITCH + m]
+    w[_DSP * _PITCH + m] = ds if live else w[_DSP * _PITCH + m]
     # The next argument of the Stumpff functions, taken here for the next round.
-    y = beta * w[_S, m] * w[_S, m]
-    w[_Y, m] = y
+    y = beta * w[_S * _PITCH + m] * w[_S * _PITCH + m]
+    w[_Y * _PITCH + m] = y
     go = live and code == _ITERATE
     return (1 if go else 0) + (2 if go and _is_large(y) else 0)
 
@@ -98,7 +104,7 @@ def _halley_lane(w, m, mu, c0, c1, c2, c3):
 def _drift_lanes(x, v, i, mu, h, nl, w):
     """Kepler drift of Jacobi row i of every lane by h[lane], in place.
 
-    x, v: (n, 3, B); h: (B,); w: scratch (N_DRIFT_ROWS, B). Each round is one
+    x, v: (n, 3, B); h: (B,); w: flat scratch, row r of lane m at r * _PITCH + m. Each round is one
     pass over the lanes while no lane needs its Stumpff argument quartered
     (the usual case: a drift is a small part of an orbit), else three.
     """
@@ -107,26 +113,26 @@ def _drift_lanes(x, v, i, mu, h, nl, w):
         r0, ir0, eta0, beta, dt = drift_prelude(x[i, 0, m], x[i, 1, m], x[i, 2, m],
                                                 v[i, 0, m], v[i, 1, m], v[i, 2, m], mu, h[m])
         zeta0, s, lo, hi = universal_guess(r0, eta0, beta, mu, dt)
-        w[_R0, m] = r0
-        w[_IR0, m] = ir0
-        w[_ETA, m] = eta0
-        w[_BETA, m] = beta
-        w[_DT, m] = dt
-        w[_ZETA, m] = zeta0
-        w[_S, m] = s
-        w[_LO, m] = lo
-        w[_HI, m] = hi
-        w[_DSP, m] = np.inf
-        w[_ST, m] = 0.0
+        w[_R0 * _PITCH + m] = r0
+        w[_IR0 * _PITCH + m] = ir0
+        w[_ETA * _PITCH + m] = eta0
+        w[_BETA * _PITCH + m] = beta
+        w[_DT * _PITCH + m] = dt
+        w[_ZETA * _PITCH + m] = zeta0
+        w[_S * _PITCH + m] = s
+        w[_LO * _PITCH + m] = lo
+        w[_HI * _PITCH + m] = hi
+        w[_DSP * _PITCH + m] = np.inf
+        w[_ST * _PITCH + m] = 0.0
         y = beta * s * s
-        w[_Y, m] = y
+        w[_Y * _PITCH + m] = y
         large += 1 if _is_large(y) else 0
     for _ in range(_HALLEY_MAX):
         # w[_Y] holds beta s^2 of every lane still iterating.
         left = 0
         if large == 0:
             for m in range(nl):
-                c0, c1, c2, c3 = stumpff_series(w[_Y, m])
+                c0, c1, c2, c3 = stumpff_series(w[_Y * _PITCH + m])
                 flags = _halley_lane(w, m, mu, c0, c1, c2, c3)
                 left += flags & 1
                 large += flags >> 1
@@ -134,60 +140,60 @@ def _drift_lanes(x, v, i, mu, h, nl, w):
             # Quarter the argument while any lane needs it (a lane stops where
             # its scalar loop would), the series, then each lane's doublings.
             for m in range(nl):
-                w[_NQ, m] = 0.0
+                w[_NQ * _PITCH + m] = 0.0
             rounds = 0
             for _q in range(_STUMPFF_MAX_QUARTERS):
                 need = 0
                 for m in range(nl):
-                    y = w[_Y, m]
-                    more = w[_ST, m] == 0.0 and _is_large(y)
-                    w[_Y, m] = y * 0.25 if more else y
-                    w[_NQ, m] += 1.0 if more else 0.0
+                    y = w[_Y * _PITCH + m]
+                    more = w[_ST * _PITCH + m] == 0.0 and _is_large(y)
+                    w[_Y * _PITCH + m] = y * 0.25 if more else y
+                    w[_NQ * _PITCH + m] += 1.0 if more else 0.0
                     need += 1 if more else 0
                 if need == 0:
                     break
                 rounds += 1
             for m in range(nl):
-                y = w[_Y, m]
+                y = w[_Y * _PITCH + m]
                 c0, c1, c2, c3 = stumpff_series(y)
                 bad = _is_large(y)
-                w[_C0, m] = np.nan if bad else c0
-                w[_C1, m] = np.nan if bad else c1
-                w[_C2, m] = np.nan if bad else c2
-                w[_C3, m] = np.nan if bad else c3
+                w[_C0 * _PITCH + m] = np.nan if bad else c0
+                w[_C1 * _PITCH + m] = np.nan if bad else c1
+                w[_C2 * _PITCH + m] = np.nan if bad else c2
+                w[_C3 * _PITCH + m] = np.nan if bad else c3
             for q in range(rounds):
                 for m in range(nl):
-                    c0, c1, c2, c3 = stumpff_double(w[_C0, m], w[_C1, m], w[_C2, m], w[_C3, m])
-                    go = q < w[_NQ, m]
-                    w[_C0, m] = c0 if go else w[_C0, m]
-                    w[_C1, m] = c1 if go else w[_C1, m]
-                    w[_C2, m] = c2 if go else w[_C2, m]
-                    w[_C3, m] = c3 if go else w[_C3, m]
+                    c0, c1, c2, c3 = stumpff_double(w[_C0 * _PITCH + m], w[_C1 * _PITCH + m], w[_C2 * _PITCH + m], w[_C3 * _PITCH + m])
+                    go = q < w[_NQ * _PITCH + m]
+                    w[_C0 * _PITCH + m] = c0 if go else w[_C0 * _PITCH + m]
+                    w[_C1 * _PITCH + m] = c1 if go else w[_C1 * _PITCH + m]
+                    w[_C2 * _PITCH + m] = c2 if go else w[_C2 * _PITCH + m]
+                    w[_C3 * _PITCH + m] = c3 if go else w[_C3 * _PITCH + m]
             large = 0
             for m in range(nl):
-                flags = _halley_lane(w, m, mu, w[_C0, m], w[_C1, m], w[_C2, m], w[_C3, m])
+                flags = _halley_lane(w, m, mu, w[_C0 * _PITCH + m], w[_C1 * _PITCH + m], w[_C2 * _PITCH + m], w[_C3 * _PITCH + m])
                 left += flags & 1
                 large += flags >> 1
         if left == 0:
             break
     solved = 0
     for m in range(nl):
-        solved += 1 if w[_ST, m] == 1.0 else 0
+        solved += 1 if w[_ST * _PITCH + m] == 1.0 else 0
     if solved < nl:
         for m in range(nl):
-            if w[_ST, m] != 1.0:
+            if w[_ST * _PITCH + m] != 1.0:
                 # Unconverged after every Halley iteration, or sent to the
                 # fallback: the scalar solver (its own iterations, then its
                 # bracket) gives this lane exactly what it gives the member alone.
-                _, r, _, g1, g2, _, _ = solve_universal(w[_R0, m], w[_ETA, m], w[_BETA, m],
-                                                        mu, w[_DT, m])
-                w[_RR, m] = r
-                w[_G1, m] = g1
-                w[_G2, m] = g2
+                _, r, _, g1, g2, _, _ = solve_universal(w[_R0 * _PITCH + m], w[_ETA * _PITCH + m], w[_BETA * _PITCH + m],
+                                                        mu, w[_DT * _PITCH + m])
+                w[_RR * _PITCH + m] = r
+                w[_G1 * _PITCH + m] = g1
+                w[_G2 * _PITCH + m] = g2
     for m in range(nl):
         a0, a1, a2, b0, b1, b2 = drift_finish(
             x[i, 0, m], x[i, 1, m], x[i, 2, m], v[i, 0, m], v[i, 1, m], v[i, 2, m], mu,
-            w[_R0, m], w[_IR0, m], w[_ETA, m], w[_RR, m], w[_G1, m], w[_G2, m])
+            w[_R0 * _PITCH + m], w[_IR0 * _PITCH + m], w[_ETA * _PITCH + m], w[_RR * _PITCH + m], w[_G1 * _PITCH + m], w[_G2 * _PITCH + m])
         x[i, 0, m] = a0
         x[i, 1, m] = a1
         x[i, 2, m] = a2
@@ -211,32 +217,32 @@ def _drift_all_lanes(xj, vj, mu, h, nl, w):
 def _kick_lanes(xj, vj, gm, mu, mr, h, gr_coef, xi, acc, nl, c):
     """:func:`integrators.wisdom_holman.kick` for every lane, same operations in the
     same order per lane. xi, acc: (n, 3, B) scratch (xi keeps the inertial positions
-    for the stop checks); c: (N_STEP_ROWS, B) scratch."""
+    for the stop checks); c: flat scratch (N_STEP_ROWS rows of _PITCH)."""
     n = xj.shape[0]
     # to_inertial (one pass over the lanes per body, all three coordinates)
     for m in range(nl):
-        c[_A0, m] = xj[0, 0, m]
-        c[_A1, m] = xj[0, 1, m]
-        c[_A2, m] = xj[0, 2, m]
+        c[(_A0) * _PITCH + m] = xj[0, 0, m]
+        c[(_A1) * _PITCH + m] = xj[0, 1, m]
+        c[(_A2) * _PITCH + m] = xj[0, 2, m]
     for i in range(n - 1, 0, -1):
         q = mr[i]
         for m in range(nl):
             x0 = xj[i, 0, m]
             x1 = xj[i, 1, m]
             x2 = xj[i, 2, m]
-            c0 = c[_A0, m] - q * x0
-            c1 = c[_A1, m] - q * x1
-            c2 = c[_A2, m] - q * x2
-            c[_A0, m] = c0
-            c[_A1, m] = c1
-            c[_A2, m] = c2
+            c0 = c[(_A0) * _PITCH + m] - q * x0
+            c1 = c[(_A1) * _PITCH + m] - q * x1
+            c2 = c[(_A2) * _PITCH + m] - q * x2
+            c[(_A0) * _PITCH + m] = c0
+            c[(_A1) * _PITCH + m] = c1
+            c[(_A2) * _PITCH + m] = c2
             xi[i, 0, m] = c0 + x0
             xi[i, 1, m] = c1 + x1
             xi[i, 2, m] = c2 + x2
     for m in range(nl):
-        xi[0, 0, m] = c[_A0, m]
-        xi[0, 1, m] = c[_A1, m]
-        xi[0, 2, m] = c[_A2, m]
+        xi[0, 0, m] = c[(_A0) * _PITCH + m]
+        xi[0, 1, m] = c[(_A1) * _PITCH + m]
+        xi[0, 2, m] = c[(_A2) * _PITCH + m]
     # accelerations: the scalar pair loop's order (i < j) for every lane
     for i in range(n):
         for m in range(nl):
@@ -278,9 +284,9 @@ def _kick_lanes(xj, vj, gm, mu, mr, h, gr_coef, xi, acc, nl, c):
                 acc[0, 2, m] += q * f * dz
     # the Jacobi kick
     for m in range(nl):
-        c[_A0, m] = acc[0, 0, m]
-        c[_A1, m] = acc[0, 1, m]
-        c[_A2, m] = acc[0, 2, m]
+        c[(_A0) * _PITCH + m] = acc[0, 0, m]
+        c[(_A1) * _PITCH + m] = acc[0, 1, m]
+        c[(_A2) * _PITCH + m] = acc[0, 2, m]
     for i in range(1, n):
         mui = mu[i]
         q = mr[i]
@@ -290,15 +296,15 @@ def _kick_lanes(xj, vj, gm, mu, mr, h, gr_coef, xi, acc, nl, c):
             x2 = xj[i, 2, m]
             r2 = x0 * x0 + x1 * x1 + x2 * x2
             k = mui / (r2 * np.sqrt(r2))
-            aj0 = acc[i, 0, m] - c[_A0, m]
-            aj1 = acc[i, 1, m] - c[_A1, m]
-            aj2 = acc[i, 2, m] - c[_A2, m]
+            aj0 = acc[i, 0, m] - c[(_A0) * _PITCH + m]
+            aj1 = acc[i, 1, m] - c[(_A1) * _PITCH + m]
+            aj2 = acc[i, 2, m] - c[(_A2) * _PITCH + m]
             vj[i, 0, m] += h * (aj0 + k * x0)
             vj[i, 1, m] += h * (aj1 + k * x1)
             vj[i, 2, m] += h * (aj2 + k * x2)
-            c[_A0, m] = c[_A0, m] + q * aj0
-            c[_A1, m] = c[_A1, m] + q * aj1
-            c[_A2, m] = c[_A2, m] + q * aj2
+            c[(_A0) * _PITCH + m] = c[(_A0) * _PITCH + m] + q * aj0
+            c[(_A1) * _PITCH + m] = c[(_A1) * _PITCH + m] + q * aj1
+            c[(_A2) * _PITCH + m] = c[(_A2) * _PITCH + m] + q * aj2
 
 
 @njit(cache=True, error_model="numpy", inline="always")
@@ -375,7 +381,7 @@ def wh_steps_lanes(xj, vj, gm, mu, mr, dt, n_steps, pending, gr_coef, pairs, par
     n = xj.shape[0]
     half = 0.5 * dt
     check = params[0] > 0.0
-    h = c[_H]
+    h = c[_H * _PITCH:(_H + 1) * _PITCH]
     until = np.empty(nl, dtype=np.int64)
     for m in range(nl):
         until[m] = every[m] - step0[m] % every[m] if every[m] > 0 else -1
@@ -398,7 +404,7 @@ def wh_steps_lanes(xj, vj, gm, mu, mr, dt, n_steps, pending, gr_coef, pairs, par
                 bodies[m, 0] = first_broken(lane_x, lane_v)
                 stopped = True
         if check:
-            flag = c[_FLAG]
+            flag = c[_FLAG * _PITCH:(_FLAG + 1) * _PITCH]
             _screen_stops(xi, xj, vj, mu, pairs, params, rh, nl, flag)
             for m in range(nl):
                 if flag[m] != 0.0 and codes[m] == 0:
@@ -459,8 +465,8 @@ class _Lanes:
         self.xi = np.zeros((n, 3, B))
         self.acc = np.zeros((n, 3, B))
         self.rh = np.zeros((n, B))
-        self.w = np.zeros((N_DRIFT_ROWS, B))
-        self.c = np.zeros((N_STEP_ROWS, B))
+        self.w = np.zeros(N_DRIFT_ROWS * _PITCH)
+        self.c = np.zeros(N_STEP_ROWS * _PITCH)
         self.lane_x = np.zeros((n, 3))
         self.lane_v = np.zeros((n, 3))
         self.lane_xi = np.zeros((n, 3))
@@ -524,6 +530,7 @@ def advance_together(members, n_steps, every=0, outputs=None, lanes=DEFAULT_LANE
         for out_g, _, row0 in outputs:
             if len(out_g) < row0 + n_steps // every + 1:
                 raise ValueError("sample arrays too small for the requested steps and cadence.")
+    lanes = max(1, min(int(lanes), _PITCH))
     rows = [out[2] for out in outputs] if outputs is not None else [0] * len(members)
     codes = [(0, -1, -1)] * len(members)
     done = [0] * len(members)
