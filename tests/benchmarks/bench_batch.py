@@ -51,10 +51,11 @@ def copy(integ):
 def vector_width():
     """Counts of packed double instructions by register width in the lane kernel."""
     f = batch.wh_steps_lanes
-    try:
+    import warnings
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
         asm = f.inspect_asm(f.signatures[0])
-    except Exception:  # a cached kernel cannot be inspected
-        return "unknown (cached; run with NUMBA_CACHE_DIR set to an empty folder)"
     count = Counter()
     for line in asm.splitlines():
         m = re.match(r"\s+v\w+pd\s+(.*)", line)
@@ -62,7 +63,8 @@ def vector_width():
             args = m.group(1)
             count["zmm (8 doubles)" if "zmm" in args else "ymm (4)" if "ymm" in args
                   else "xmm (2)"] += 1
-    return dict(count)
+    # numba cannot show the assembly of a kernel it loaded from its cache.
+    return dict(count) or "unknown (loaded from numba's cache: run with NUMBA_CACHE_DIR=<empty folder>)"
 
 
 def main():

@@ -24,7 +24,7 @@ SLICE_SECONDS = 0.5
 # Members of one ensemble a worker claims and advances together with the
 # batched kernel (integrators/batch.py); 1 runs every member alone. Measured
 # (docs/benchmarks.md, "Batched members"): the batch's speed-up grows with its
-# size up to about 32 lanes (2.6-2.8x the scalar kernel) and little beyond.
+# size (8 lanes 1.6-1.8x the scalar kernel, 32 lanes 2.8-3.0x) and little beyond.
 BATCH_LANES = 32
 # Most bytes of one chunk's samples a batch holds for all its members at once
 # (a batch of members whose chunks hold many samples is made smaller), so a
