@@ -1,7 +1,7 @@
 """A worker's memory whatever the plan: peak RSS on the heaviest plans submit accepts.
 
-Each case submits one job of the invented Veyra giants (jobs/veyra-giants.toml)
-with an extreme output plan, runs `orbitledger work` on it in a subprocess
+Each case submits one job of the invented Veyra giants (jobs/veyra-giants.toml),
+or an ensemble of 32 of them worked in batches, with an extreme output plan, runs `orbitledger work` on it in a subprocess
 for a while, then stops it: by SIGTERM, or by `cancel` from another process
 (which trims the store to the committed rows). The worker's peak resident
 memory is read from /proc (VmHWM) just before it exits, and the time from
@@ -30,7 +30,22 @@ CASES = [
     ("1 Gyr, a sample every step, 100 kyr chunks", "1 Gyr", "1 step", "100 kyr", "cancel"),
     ("1 Gyr, a sample every step, 1000-step chunks", "1 Gyr", "1 step", None, "SIGTERM"),
     ("1 Gyr, default outputs and chunks", "1 Gyr", None, None, "SIGTERM"),
+    # Ensembles of 32 members worked as batches (the batch is cut so that its
+    # members' chunk samples fit defaults.BATCH_SAMPLE_BYTES together).
+    ("32 members, 1 Gyr, a sample every step, 100 kyr chunks", "1 Gyr", "1 step", "100 kyr",
+     "SIGTERM"),
+    ("32 members, 1 Gyr, default outputs and chunks", "1 Gyr", None, None, "SIGTERM"),
 ]
+
+ENSEMBLE = """
+[ensemble]
+members = 32
+[ensemble.perturb]
+body = "Veyra c"
+quantity = "a"
+rule = "step"
+size = "1e-12 au"
+"""
 
 
 def spec_text(length, output, chunk):
@@ -63,12 +78,12 @@ def peak_rss_mb(pid):
     return None
 
 
-def run_case(tmp, k, length, output, chunk, how, seconds):
+def run_case(tmp, k, length, output, chunk, how, seconds, ensemble=False):
     exe = [sys.executable, "-m", "orbitledger.runner.cli"]
     ws = os.path.join(tmp, f"ws{k}")
     path = os.path.join(tmp, f"job{k}.toml")
     with open(path, "w", encoding="utf-8") as fh:
-        fh.write(spec_text(length, output, chunk))
+        fh.write(spec_text(length, output, chunk) + (ENSEMBLE if ensemble else ""))
     subprocess.run(exe + ["init", "--workspace", ws], check=True, capture_output=True)
     sub = subprocess.run(exe + ["submit", path, "--workspace", ws], capture_output=True,
                          text=True)
@@ -103,8 +118,9 @@ def main():
     args = ap.parse_args()
     with tempfile.TemporaryDirectory() as tmp:
         for k, (label, length, output, chunk, how) in enumerate(CASES):
-            print(f"- {label}, stopped by {how}: "
-                  f"{run_case(tmp, k, length, output, chunk, how, args.seconds)}", flush=True)
+            result = run_case(tmp, k, length, output, chunk, how, args.seconds,
+                              ensemble=label.startswith("32 members"))
+            print(f"- {label}, stopped by {how}: {result}", flush=True)
 
 
 if __name__ == "__main__":
