@@ -32,7 +32,7 @@ from numba import njit
 from .kepler import (_HALLEY_MAX, _ITERATE, _STUMPFF_MAX_QUARTERS, _STUMPFF_REDUCED,
                      drift_finish, drift_prelude, halley_update, kepler_terms, solve_universal,
                      stumpff_double, stumpff_series, universal_guess)
-from .stops import NUMERICAL_FAILURE_CODE, check_stops, first_broken
+from .stops import NUMERICAL_FAILURE_CODE, body_stop, check_stops, first_broken, hill_hit
 from .wisdom_holman import WisdomHolman, wh_diagnose
 
 # A lane loop reads and writes many rows of several arrays; LLVM vectorizes
@@ -310,7 +310,7 @@ def _kick_lanes(xj, vj, gm, mu, mr, h, gr_coef, xi, acc, nl, c):
 @njit(cache=True, error_model="numpy", inline="always")
 def _screen_stops(xi, xj, vj, mu, pairs, params, rh, nl, flag):
     """flag[lane] = 1.0 where :func:`check_stops` would report a stop for that lane
-    (the same comparisons on the same arithmetic; which one is left to it)."""
+    (its own per-body and per-pair tests; which stop, and its bodies, are left to it)."""
     n = xi.shape[0]
     eject = params[2]
     unbound = params[3] > 0.0
@@ -327,33 +327,17 @@ def _screen_stops(xi, xj, vj, mu, pairs, params, rh, nl, flag):
             dz = xi[i, 2, m] - xi[0, 2, m]
             r = np.sqrt(dx * dx + dy * dy + dz * dz)
             rh[i, m] = r
-            hit = (r_star > 0.0 and r < r_star) or (eject > 0.0 and r > eject)
-            x0 = xj[i, 0, m]
-            x1 = xj[i, 1, m]
-            x2 = xj[i, 2, m]
-            v0 = vj[i, 0, m]
-            v1 = vj[i, 1, m]
-            v2 = vj[i, 2, m]
-            rj = np.sqrt(x0 * x0 + x1 * x1 + x2 * x2)
-            vsq = v0 * v0 + v1 * v1 + v2 * v2
-            hit = hit or (unbound and r > unbound_r and 0.5 * vsq - mui / rj > 0.0)
-            rv = x0 * v0 + x1 * v1 + x2 * v2
-            p = vsq - mui / rj
-            e0 = (p * x0 - rv * v0) / mui
-            e1 = (p * x1 - rv * v1) / mui
-            e2 = (p * x2 - rv * v2) / mui
-            hit = hit or (e_max > 0.0 and e0 * e0 + e1 * e1 + e2 * e2 > e_max * e_max)
-            flag[m] = 1.0 if hit else flag[m]
+            code = body_stop(r, xj[i, 0, m], xj[i, 1, m], xj[i, 2, m], vj[i, 0, m],
+                             vj[i, 1, m], vj[i, 2, m], mui, eject, unbound, unbound_r, r_star,
+                             e_max)
+            flag[m] = 1.0 if code != 0 else flag[m]
     if params[1] > 0.0:
         for i in range(1, n):
             for j in range(i + 1, n):
                 pij = pairs[i, j]
                 for m in range(nl):
-                    dx = xi[j, 0, m] - xi[i, 0, m]
-                    dy = xi[j, 1, m] - xi[i, 1, m]
-                    dz = xi[j, 2, m] - xi[i, 2, m]
-                    lim = pij * (rh[i, m] + rh[j, m])
-                    hit = dx * dx + dy * dy + dz * dz < lim * lim
+                    hit = hill_hit(xi[j, 0, m] - xi[i, 0, m], xi[j, 1, m] - xi[i, 1, m],
+                                   xi[j, 2, m] - xi[i, 2, m], pij, rh[i, m], rh[j, m])
                     flag[m] = 1.0 if hit else flag[m]
 
 

@@ -115,6 +115,41 @@ class StopConditions:
         return pairs, params
 
 
+@njit(cache=True, error_model="numpy", inline="always")
+def body_stop(r, x0, x1, x2, v0, v1, v2, mui, eject, unbound, unbound_r, r_star, e_max):
+    """The stop code (0: none) of one body at distance r from the star with Jacobi
+    state (x, v): collision with the star (3), ejection (2), eccentricity (4).
+
+    Shared by :func:`check_stops` and the batched kernel's screen, so both
+    compare the same numbers."""
+    if r_star > 0.0 and r < r_star:
+        return 3
+    if eject > 0.0 and r > eject:
+        return 2
+    if unbound or e_max > 0.0:
+        rj = np.sqrt(x0 * x0 + x1 * x1 + x2 * x2)
+        vsq = v0 * v0 + v1 * v1 + v2 * v2
+        if unbound and r > unbound_r and 0.5 * vsq - mui / rj > 0.0:
+            return 2
+        if e_max > 0.0:
+            rv = x0 * v0 + x1 * v1 + x2 * v2
+            p = vsq - mui / rj
+            e0 = (p * x0 - rv * v0) / mui
+            e1 = (p * x1 - rv * v1) / mui
+            e2 = (p * x2 - rv * v2) / mui
+            if e0 * e0 + e1 * e1 + e2 * e2 > e_max * e_max:
+                return 4
+    return 0
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def hill_hit(dx, dy, dz, factor, ri, rj):
+    """True if a pair at separation (dx, dy, dz), with distances ri, rj from the star,
+    is closer than its Hill limit factor * (ri + rj)."""
+    lim = factor * (ri + rj)
+    return dx * dx + dy * dy + dz * dz < lim * lim
+
+
 @njit(cache=True, error_model="numpy")
 def check_stops(xi, xj, vj, mu, pairs, params, rh):
     """Return (code, body_a, body_b) for the first condition met, or (0, -1, -1).
@@ -134,36 +169,14 @@ def check_stops(xi, xj, vj, mu, pairs, params, rh):
         dz = xi[i, 2] - xi[0, 2]
         r = np.sqrt(dx * dx + dy * dy + dz * dz)
         rh[i] = r
-        if r_star > 0.0 and r < r_star:
-            return 3, i, 0
-        if eject > 0.0 and r > eject:
-            return 2, i, -1
-        if unbound or e_max > 0.0:
-            x0 = xj[i, 0]
-            x1 = xj[i, 1]
-            x2 = xj[i, 2]
-            v0 = vj[i, 0]
-            v1 = vj[i, 1]
-            v2 = vj[i, 2]
-            rj = np.sqrt(x0 * x0 + x1 * x1 + x2 * x2)
-            vsq = v0 * v0 + v1 * v1 + v2 * v2
-            if unbound and r > unbound_r and 0.5 * vsq - mu[i] / rj > 0.0:
-                return 2, i, -1
-            if e_max > 0.0:
-                rv = x0 * v0 + x1 * v1 + x2 * v2
-                p = vsq - mu[i] / rj
-                e0 = (p * x0 - rv * v0) / mu[i]
-                e1 = (p * x1 - rv * v1) / mu[i]
-                e2 = (p * x2 - rv * v2) / mu[i]
-                if e0 * e0 + e1 * e1 + e2 * e2 > e_max * e_max:
-                    return 4, i, -1
+        code = body_stop(r, xj[i, 0], xj[i, 1], xj[i, 2], vj[i, 0], vj[i, 1], vj[i, 2], mu[i],
+                         eject, unbound, unbound_r, r_star, e_max)
+        if code != 0:
+            return code, i, 0 if code == 3 else -1
     if params[1] > 0.0:
         for i in range(1, n):
             for j in range(i + 1, n):
-                dx = xi[j, 0] - xi[i, 0]
-                dy = xi[j, 1] - xi[i, 1]
-                dz = xi[j, 2] - xi[i, 2]
-                lim = pairs[i, j] * (rh[i] + rh[j])
-                if dx * dx + dy * dy + dz * dz < lim * lim:
+                if hill_hit(xi[j, 0] - xi[i, 0], xi[j, 1] - xi[i, 1], xi[j, 2] - xi[i, 2],
+                            pairs[i, j], rh[i], rh[j]):
                     return 1, i, j
     return 0, -1, -1
