@@ -18,6 +18,7 @@ import time
 
 from orbitledger.runner import defaults
 from orbitledger.runner.execution.failpoints import failpoint
+from orbitledger.runner.execution.runs import ClaimRun, helper_thread, raise_if_broken, rate_of
 from orbitledger.runner.execution.worklog import LOG
 from orbitledger.runner.ledger import provenance
 from orbitledger.runner.ledger.status import JobStatus
@@ -72,7 +73,6 @@ def run_batch(worker, claims):
     error goes on up.
     """
     from orbitledger.integrators.batch import compatible
-    from orbitledger.runner.execution.worker import _Run
 
     ended = []
     runs = []
@@ -86,7 +86,7 @@ def run_batch(worker, claims):
                 continue
             row, plan, integ, ck, seg = opened
             held[claim.job_id] = (claim, seg)
-            run = _Run(claim, row, plan, integ, ck, seg)
+            run = ClaimRun(claim, row, plan, integ, ck, seg)
             if runs and not (compatible(runs[0].integ, integ) and _level(run, runs[0])):
                 # Not batchable with the first (its stored state says otherwise):
                 # handed back untouched, for a claim of its own.
@@ -150,8 +150,6 @@ def _batch_chunk(worker, runs, end):
     or is asked to hold or cancel is committed as soon as it leaves. Calls
     end(claim, status) for each member whose claim ends; returns the members that
     go on with the next chunk."""
-    from orbitledger.runner.execution.worker import _helper, _raise_if_broken, _rate
-
     chunk_end = runs[0].chunk_end()
     live = list(runs)
     for run in live:
@@ -187,7 +185,7 @@ def _batch_chunk(worker, runs, end):
         failpoint("first_step")
         for run in live:
             if run.prepared is None:
-                run.prepared = _helper().submit(worker.ledger.store.prepare, run.claim.job_id,
+                run.prepared = helper_thread().submit(worker.ledger.store.prepare, run.claim.job_id,
                                                 (run.idx + 1, run.claim.fence, run.layout))
         stay = []
         for run, res in zip(live, results):
@@ -195,7 +193,7 @@ def _batch_chunk(worker, runs, end):
                 stay.append(run)
                 continue
             try:
-                _raise_if_broken(run.integ, res)
+                raise_if_broken(run.integ, res)
             except Exception as err:  # noqa: BLE001 - a numerical failure fails the member
                 end(run.claim, worker._failed_claim(run.claim, run.seg, err))
                 continue
@@ -221,7 +219,7 @@ def _batch_chunk(worker, runs, end):
         if worker.progress is not None:
             for run in live:
                 worker.progress(run.row, run.integ.step,
-                                _rate(run.integ, step0, wall0, worker.clock()))
+                                rate_of(run.integ, step0, wall0, worker.clock()))
         if worker._should_stop():
             for run in live:
                 run.interrupted = True
@@ -233,10 +231,8 @@ def _batch_chunk(worker, runs, end):
 
 def _commit_member(worker, run, wall0, step0):
     """Commit a member's chunk; None if its claim goes on, else its status."""
-    from orbitledger.runner.execution.worker import _helper
-
     if run.prepared is None:
-        run.prepared = _helper().submit(worker.ledger.store.prepare, run.claim.job_id,
+        run.prepared = helper_thread().submit(worker.ledger.store.prepare, run.claim.job_id,
                                         (run.idx + 1, run.claim.fence, run.layout))
     try:
         commit, then = worker._chunk_commit(run, run.prepared, run.stop, run.interrupted,

@@ -10,7 +10,6 @@ usually runs on the worker's helper thread while the kernel computes the next
 chunk or the next claim's job; see DEVELOPERS.md, "Commits behind the kernel".
 """
 
-import json
 import logging
 import os
 import socket
@@ -21,14 +20,16 @@ import numpy as np
 from orbitledger.runner import defaults
 from orbitledger.runner.ledger import provenance
 from orbitledger.runner.execution import signals as stopflag
-from orbitledger.integrators import StopKind
 
 from orbitledger.runner.errors import FencedError, NumericalFailureError, StoreError
 from orbitledger.runner.ledger.basics import CommitResult
-from orbitledger.runner.ledger.operations import angmom0, repair_by_replay
-from orbitledger.runner.store.sampling import SampleBuffer, sample_now
-from orbitledger.runner.store.zarr_store import state_layout
+from orbitledger.runner.ledger.operations import repair_by_replay
+from orbitledger.runner.store.sampling import sample_now
 from orbitledger.runner.execution import batches
+from orbitledger.runner.execution.runs import (Budget, ClaimRun, Commit, PendingCommit,
+                                               helper_thread, new_events,
+                                               over_budget, process_seconds, raise_if_broken,
+                                               rate_of)
 from orbitledger.runner.execution.failpoints import failpoint
 from orbitledger.runner.ledger.status import ACTIVE, JobStatus
 from orbitledger.runner.execution.worklog import LOG
@@ -132,7 +133,7 @@ class Worker:
                 # this claim's started when this claim's kernel did (so the
                 # claim and the load ran alone) and has had its chunk to finish.
                 self._settle_pending()
-                if isinstance(status, _Pending):
+                if isinstance(status, PendingCommit):
                     self._pending = status
                 else:
                     self._record(claim, status)
@@ -144,7 +145,7 @@ class Worker:
             LOG.info("deadline reached")
         code = self.exit_code()
         run_s = time.perf_counter() - t_run
-        up = _process_seconds()
+        up = process_seconds()
         LOG.info("worker %s spent %.2f s in kernel calls (%.2f s of CPU) of its %.2f s of work "
                  "(%.1f %%)%s", self.owner, self.kernel_seconds, self.kernel_cpu_seconds, run_s,
                  100.0 * self.kernel_seconds / run_s if run_s > 0 else 0.0,
@@ -183,7 +184,7 @@ class Worker:
 
         Returns the job's status afterwards (or "fenced"). With ``overlap``, a
         claim that ends after a chunk (the job's end or stop, a member handed
-        back in breadth order) may be returned as a :class:`_Pending` whose last
+        back in breadth order) may be returned as a :class:`PendingCommit` whose last
         commit is still running on the helper thread, so the caller can claim
         the next job meanwhile (:meth:`run` does).
         """
@@ -256,7 +257,7 @@ class Worker:
     def _chunks(self, claim, row, plan, integ, ck, seg, overlap=False, run=None):
         # `run`: a claim already under way (a member leaving a batch) goes on
         # with its own counters.
-        run = run or _Run(claim, row, plan, integ, ck, seg)
+        run = run or ClaimRun(claim, row, plan, integ, ck, seg)
         buf = run.buf
         # With a wall-time slice, a short first call measures the cost of a step.
         steps_per_call = (self.max_steps_per_call if self.slice_seconds is None
@@ -288,7 +289,7 @@ class Worker:
                         prepared = self._behind_first_call(claim.job_id, run.idx, claim.fence,
                                                            run.layout)
                     if res.stopped:
-                        _raise_if_broken(integ, res)
+                        raise_if_broken(integ, res)
                         stop = res
                         break
                     now = self.clock()
@@ -302,7 +303,7 @@ class Worker:
                         interrupted = True
                         break
                     if self.progress is not None:
-                        self.progress(row, integ.step, _rate(integ, step0, wall0, self.clock()))
+                        self.progress(row, integ.step, rate_of(integ, step0, wall0, self.clock()))
                 if prepared is None:
                     prepared = self._behind_first_call(claim.job_id, run.idx, claim.fence,
                                                        run.layout)
@@ -324,11 +325,11 @@ class Worker:
                 commit, then = self._chunk_commit(run, prepared, stop, interrupted, request,
                                                   wall0, step0, overlap)
                 if commit.behind and then == "continue":
-                    pending = _helper().submit(self._commit, commit)
+                    pending = helper_thread().submit(self._commit, commit)
                     continue
                 if commit.behind:
                     commit.ends_claim = True
-                    return _Pending(claim, seg, self._commit, commit)
+                    return PendingCommit(claim, seg, self._commit, commit)
                 result = self._commit(commit)
                 run.total = result.total_steps
                 if result.status != JobStatus.RUNNING:
@@ -372,29 +373,29 @@ class Worker:
             # Fair progress: hand the member back after each chunk so the
             # least advanced member is always the next one worked on.
             then = "release"
-        over = _over_budget(plan, run.max_e, run.max_l)
+        over = over_budget(plan, run.max_e, run.max_l)
         if over and then != "stopped" and plan.on_exceed != "continue":
             if plan.on_exceed == "hold":
                 then, reason = "held", over
             else:
                 then, reason = "stopped", over
                 outcome = ("over_budget", integ.step, integ.time, ())
-        new_events = _new_events(integ, run.seen)
+        fresh = new_events(integ, run.seen)
         nbytes = sum(v.nbytes for v in block.values())
         behind = (not interrupted and nbytes <= defaults.OVERLAP_COMMIT_BYTES
                   and (then == "continue" or overlap))
         if behind:
             block = {k: v.copy() for k, v in block.items()}
-        commit = _Commit(
+        commit = Commit(
             run.claim, prepared, run.n_samples, block, integ.state_arrays(),
             dict(idx=run.idx + 1, step=integ.step, time_=integ.time,
                  n_samples=run.n_samples + len(block["time"]), energy_error=e_err,
                  angmom_error=l_err, max_energy_error=run.max_e, max_angmom_error=run.max_l,
                  then=then, outcome=outcome, reason=reason, segment_id=run.seg,
                  wall_seconds=self.clock() - wall0,
-                 rate=_rate(integ, step0, wall0, self.clock()), events=new_events))
+                 rate=rate_of(integ, step0, wall0, self.clock()), events=fresh))
         commit.behind = behind
-        run.seen += len(new_events)
+        run.seen += len(fresh)
         run.idx += 1
         run.n_samples += len(block["time"])
         return commit, then
@@ -411,7 +412,7 @@ class Worker:
         """
         if self._pending is not None:
             self._pending.start()
-        return _helper().submit(self.ledger.store.prepare, job_id, (idx + 1, fence, layout))
+        return helper_thread().submit(self.ledger.store.prepare, job_id, (idx + 1, fence, layout))
 
     def _commit(self, c):
         """Write a chunk's samples and checkpoint, then record it in the ledger under
@@ -448,151 +449,3 @@ class Worker:
             self.ledger.end_segment(c.fields["segment_id"], None, left.value, now=self.clock())
             result = CommitResult(left, result.total_steps, result.requested)
         return result
-
-
-class _Commit:
-    """One chunk's commit: the claim, the prepared checkpoint array (a future), the
-    first sample row, the samples block, the state arrays and the ledger fields."""
-
-    __slots__ = ("claim", "prepared", "start", "block", "state", "fields", "ends_claim",
-                 "behind")
-
-    def __init__(self, claim, prepared, start, block, state, fields):
-        self.claim, self.prepared, self.start = claim, prepared, start
-        self.block, self.state, self.fields = block, state, fields
-        self.ends_claim = False  # the worker has left the claim (a _Pending)
-        self.behind = False  # may run on the helper thread while the kernel goes on
-
-
-class _Run:
-    """A claimed job being integrated: its claim, row, budget, integrator, segment,
-    sample buffer and the counters its next commit starts from."""
-
-    def __init__(self, claim, row, plan, integ, ck, seg):
-        self.claim, self.row, self.plan, self.integ, self.seg = claim, row, plan, integ, seg
-        self.e0 = row["energy0"]
-        self.l0 = angmom0(row)
-        self.out = int(row["output_steps"])
-        self.chunk = int(row["chunk_steps"])
-        self.total = int(row["total_steps"])
-        self.idx = int(ck["idx"])
-        self.n_samples = int(ck["n_samples"])
-        self.max_e, self.max_l = row["max_energy_error"], row["max_angmom_error"]
-        self.buf = SampleBuffer(len(integ.gm), self.e0, self.l0,
-                                capacity=min(self.chunk // self.out + 1, 4096),
-                                indicator=integ.indicator is not None,
-                                particles=getattr(integ, "particle_count", 0))
-        self.layout = state_layout(integ.state_arrays())
-        # Method switches and events already recorded.
-        self.seen = len(getattr(integ, "events", ()))
-
-    def chunk_end(self):
-        """The step the current chunk ends at."""
-        return min((self.integ.step // self.chunk + 1) * self.chunk, self.total)
-
-
-class _Pending:
-    """A claim whose last commit runs on the helper thread: started by the next
-    claim's first kernel call (or when waited for), at most once."""
-
-    __slots__ = ("claim", "seg", "_run", "_commit", "_future")
-
-    def __init__(self, claim, seg, run, commit):
-        self.claim, self.seg, self._run, self._commit = claim, seg, run, commit
-        self._future = None
-
-    def start(self):
-        if self._future is None:
-            self._future = _helper().submit(self._run, self._commit)
-
-    def result(self):
-        """The commit's CommitResult; re-raises its error."""
-        self.start()
-        return self._future.result()
-
-
-def _process_seconds():
-    """Wall seconds since this process started (Linux /proc), or None."""
-    try:
-        with open("/proc/self/stat", "rb") as fh:
-            start_ticks = int(fh.read().rsplit(b")", 1)[1].split()[19])
-        with open("/proc/uptime", "rb") as fh:
-            uptime = float(fh.read().split()[0])
-        return uptime - start_ticks / os.sysconf("SC_CLK_TCK")
-    except (OSError, ValueError, IndexError):
-        return None
-
-
-def _new_events(integ, seen):
-    """Ledger rows (kind, step, time, bodies, detail) of the integrator's events after the
-    first `seen` (runs that switch methods through encounters; none otherwise)."""
-    rows = getattr(integ, "events", None)
-    if rows is None or len(rows) <= seen:
-        return []
-    from orbitledger.integrators.switching import EVENT_NAMES
-
-    out = []
-    for step, kind, a, b, d_energy in rows[seen:]:
-        bodies = tuple(int(q) for q in (a, b) if q >= 0)
-        detail = {"relative_energy_change": float(d_energy)} if d_energy else None
-        out.append((EVENT_NAMES[int(kind)], int(step), integ.t0 + int(step) * integ.dt, bodies,
-                    detail))
-    return out
-
-
-def _raise_if_broken(integ, res):
-    """NumericalFailureError if the advance stopped because the state broke."""
-    if res.kind == StopKind.NUMERICAL_FAILURE:
-        raise NumericalFailureError(
-            f"numerical failure at step {integ.step} (t = {integ.time:.6g} d):"
-            " the state is no longer finite numbers (first seen in "
-            f"{_body_names(integ, res.bodies)}; bodies at the same place, or "
-            "a step far too long); nothing after the last checkpoint was kept")
-
-
-def _body_names(integ, bodies):
-    names = [integ.names[b] for b in bodies if 0 <= b < len(integ.names)]
-    return ", ".join(names) or "?"
-
-
-_HELPER = None
-
-
-def _helper():
-    """One helper thread per process for store work that overlaps the kernel."""
-    global _HELPER
-    if _HELPER is None:
-        from concurrent.futures import ThreadPoolExecutor
-
-        _HELPER = ThreadPoolExecutor(max_workers=1, thread_name_prefix="store-helper")
-    return _HELPER
-
-
-class Budget:
-    """The error budget of a job and what to do when it is exceeded."""
-
-    def __init__(self, energy, angmom, on_exceed):
-        self.energy_budget = float(energy)
-        self.angmom_budget = None if angmom is None else float(angmom)
-        self.on_exceed = on_exceed
-
-    @classmethod
-    def from_spec_json(cls, text):
-        """From a job's stored canonical spec JSON."""
-        b = json.loads(text)["budget"]
-        return cls(b["energy"], b.get("angular_momentum"), b["on_exceed"])
-
-
-def _rate(integ, step0, wall0, now):
-    """Simulated days per wall-clock second since (step0, wall0)."""
-    dt_wall = now - wall0
-    return abs((integ.step - step0) * integ.dt) / dt_wall if dt_wall > 0 else None
-
-
-def _over_budget(plan, max_e, max_l):
-    """A reason string if an error budget is exceeded, else None."""
-    if max_e > plan.energy_budget:
-        return f"energy error {max_e:.3g} exceeds the budget {plan.energy_budget:.3g}"
-    if plan.angmom_budget is not None and max_l > plan.angmom_budget:
-        return f"angular-momentum error {max_l:.3g} exceeds the budget {plan.angmom_budget:.3g}"
-    return None
