@@ -107,15 +107,13 @@ def stumpff45(x, c2, c3):
 
 
 @njit(cache=True, error_model="numpy", inline="always")
-def drift_state_tangent(x0, x1, x2, v0, v1, v2, d0, d1, d2, e0, e1, e2, mu, dt):
-    """:func:`integrators.kepler.drift_state` of (x, v) by dt, and its derivative
-    applied to the tangent vector (d, e) = (dx, dv). Returns the twelve new components."""
-    # --- the state: drift_state's own pieces, in its order --------------------
-    r0, ir0, eta0, beta, dt, whole, period = drift_start(x0, x1, x2, v0, v1, v2, mu, dt)
-    s, r, g0, g1, g2, _, _ = solve_universal(r0, eta0, beta, mu, dt)
-    fm1, g, f, fd, gdm1 = lagrange(mu, r0, ir0, eta0, r, g1, g2)
-    n0, n1, n2, m0, m1, m2 = apply_lagrange(x0, x1, x2, v0, v1, v2, fm1, g, fd, gdm1)
-    # --- the tangent -----------------------------------------------------------
+def drift_tangent(x0, x1, x2, v0, v1, v2, d0, d1, d2, e0, e1, e2, mu, r0, ir0, eta0, beta,
+                  whole, period, s, r, g0, g1, g2, f, g, fd, gdm1):
+    """The drift's derivative applied to the tangent vector (d, e) = (dx, dv), from
+    the state (x, v) before the drift and the drift's own values: the start
+    (:func:`integrators.kepler.drift_start`), the solver's root s with r and G0..G2
+    there, and the Lagrange coefficients. Returns the six new tangent components.
+    Shared by the scalar tangent drift and the batched one (integrators.batch)."""
     # Variations of the invariants of the start.
     dr0 = (x0 * d0 + x1 * d1 + x2 * d2) * ir0
     deta = d0 * v0 + d1 * v1 + d2 * v2 + x0 * e0 + x1 * e1 + x2 * e2
@@ -155,6 +153,21 @@ def drift_state_tangent(x0, x1, x2, v0, v1, v2, d0, d1, d2, e0, e1, e2, mu, dt):
     q0 = dfd * x0 + fd * d0 + dgd * v0 + gd * e0
     q1 = dfd * x1 + fd * d1 + dgd * v1 + gd * e1
     q2 = dfd * x2 + fd * d2 + dgd * v2 + gd * e2
+    return p0, p1, p2, q0, q1, q2
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def drift_state_tangent(x0, x1, x2, v0, v1, v2, d0, d1, d2, e0, e1, e2, mu, dt):
+    """:func:`integrators.kepler.drift_state` of (x, v) by dt, and its derivative
+    applied to the tangent vector (d, e) = (dx, dv). Returns the twelve new components."""
+    # --- the state: drift_state's own pieces, in its order --------------------
+    r0, ir0, eta0, beta, dt, whole, period = drift_start(x0, x1, x2, v0, v1, v2, mu, dt)
+    s, r, g0, g1, g2, _, _ = solve_universal(r0, eta0, beta, mu, dt)
+    fm1, g, f, fd, gdm1 = lagrange(mu, r0, ir0, eta0, r, g1, g2)
+    n0, n1, n2, m0, m1, m2 = apply_lagrange(x0, x1, x2, v0, v1, v2, fm1, g, fd, gdm1)
+    p0, p1, p2, q0, q1, q2 = drift_tangent(x0, x1, x2, v0, v1, v2, d0, d1, d2, e0, e1, e2, mu,
+                                           r0, ir0, eta0, beta, whole, period, s, r, g0, g1,
+                                           g2, f, g, fd, gdm1)
     return n0, n1, n2, m0, m1, m2, p0, p1, p2, q0, q1, q2
 
 
@@ -170,6 +183,36 @@ def drift_all_tangent(xj, vj, dxj, dvj, mu, h):
          dxj[i, 0], dxj[i, 1], dxj[i, 2], dvj[i, 0], dvj[i, 1], dvj[i, 2]) = drift_state_tangent(
             xj[i, 0], xj[i, 1], xj[i, 2], vj[i, 0], vj[i, 1], vj[i, 2],
             dxj[i, 0], dxj[i, 1], dxj[i, 2], dvj[i, 0], dvj[i, 1], dvj[i, 2], mu[i], h)
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def pair_tangent(a0, a1, a2, b0, b1, b2):
+    """(dd - 3 d (d . dd) / r^2) / r^3 for the separation d = (a) and its variation
+    dd = (b): the variation of d / r^3, which times gm_j is that of body i's pull."""
+    r2 = a0 * a0 + a1 * a1 + a2 * a2
+    ir3 = 1.0 / (r2 * np.sqrt(r2))
+    k3 = 3.0 * (a0 * b0 + a1 * b1 + a2 * b2) / r2
+    return (b0 - k3 * a0) * ir3, (b1 - k3 * a1) * ir3, (b2 - k3 * a2) * ir3
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def gr_tangent(a0, a1, a2, b0, b1, b2, gr_coef):
+    """c (dd - 4 d (d . dd) / r^2) / r^4: the variation of the relativistic term
+    c d / r^4 (d = x_i - x_0 = (a), dd = (b))."""
+    r2 = a0 * a0 + a1 * a1 + a2 * a2
+    f = gr_coef / (r2 * r2)
+    k4 = 4.0 * (a0 * b0 + a1 * b1 + a2 * b2) / r2
+    return f * (b0 - k4 * a0), f * (b1 - k4 * a1), f * (b2 - k4 * a2)
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def jacobi_tangent(x0, x1, x2, b0, b1, b2, mui):
+    """mu (dx - 3 x (x . dx) / r^2) / r^3: the variation of the Jacobi kick's
+    Keplerian term mu x / r^3 (x = (x), dx = (b))."""
+    r2 = x0 * x0 + x1 * x1 + x2 * x2
+    ir3 = 1.0 / (r2 * np.sqrt(r2))
+    k3 = 3.0 * (x0 * b0 + x1 * b1 + x2 * b2) / r2
+    return mui * (b0 - k3 * x0) * ir3, mui * (b1 - k3 * x1) * ir3, mui * (b2 - k3 * x2) * ir3
 
 
 @njit(cache=True, error_model="numpy", inline="always")
@@ -196,12 +239,7 @@ def kick_tangent(xj, xi, dxj, dvj, gm, mu, mr, h, gr_coef, dxi, dacc):
             b0 = dxi[j, 0] - dxi[i, 0]
             b1 = dxi[j, 1] - dxi[i, 1]
             b2 = dxi[j, 2] - dxi[i, 2]
-            r2 = a0 * a0 + a1 * a1 + a2 * a2
-            ir3 = 1.0 / (r2 * np.sqrt(r2))
-            k3 = 3.0 * (a0 * b0 + a1 * b1 + a2 * b2) / r2
-            t0 = (b0 - k3 * a0) * ir3
-            t1 = (b1 - k3 * a1) * ir3
-            t2 = (b2 - k3 * a2) * ir3
+            t0, t1, t2 = pair_tangent(a0, a1, a2, b0, b1, b2)
             dacc[i, 0] += gm[j] * t0
             dacc[i, 1] += gm[j] * t1
             dacc[i, 2] += gm[j] * t2
@@ -217,12 +255,7 @@ def kick_tangent(xj, xi, dxj, dvj, gm, mu, mr, h, gr_coef, dxi, dacc):
             b0 = dxi[i, 0] - dxi[0, 0]
             b1 = dxi[i, 1] - dxi[0, 1]
             b2 = dxi[i, 2] - dxi[0, 2]
-            r2 = a0 * a0 + a1 * a1 + a2 * a2
-            f = gr_coef / (r2 * r2)
-            k4 = 4.0 * (a0 * b0 + a1 * b1 + a2 * b2) / r2
-            t0 = f * (b0 - k4 * a0)
-            t1 = f * (b1 - k4 * a1)
-            t2 = f * (b2 - k4 * a2)
+            t0, t1, t2 = gr_tangent(a0, a1, a2, b0, b1, b2, gr_coef)
             dacc[i, 0] -= t0
             dacc[i, 1] -= t1
             dacc[i, 2] -= t2
@@ -241,19 +274,29 @@ def kick_tangent(xj, xi, dxj, dvj, gm, mu, mr, h, gr_coef, dxi, dacc):
         b0 = dxj[i, 0]
         b1 = dxj[i, 1]
         b2 = dxj[i, 2]
-        r2 = x0 * x0 + x1 * x1 + x2 * x2
-        ir3 = 1.0 / (r2 * np.sqrt(r2))
-        k3 = 3.0 * (x0 * b0 + x1 * b1 + x2 * b2) / r2
+        u0, u1, u2 = jacobi_tangent(x0, x1, x2, b0, b1, b2, mu[i])
         aj0 = dacc[i, 0] - a0
         aj1 = dacc[i, 1] - a1
         aj2 = dacc[i, 2] - a2
-        dvj[i, 0] += h * (aj0 + mu[i] * (b0 - k3 * x0) * ir3)
-        dvj[i, 1] += h * (aj1 + mu[i] * (b1 - k3 * x1) * ir3)
-        dvj[i, 2] += h * (aj2 + mu[i] * (b2 - k3 * x2) * ir3)
+        dvj[i, 0] += h * (aj0 + u0)
+        dvj[i, 1] += h * (aj1 + u1)
+        dvj[i, 2] += h * (aj2 + u2)
         q = mr[i]
         a0 = a0 + q * aj0
         a1 = a1 + q * aj1
         a2 = a2 + q * aj2
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def megno_sums(q, n, s1, s2, s3):
+    """The MEGNO sums (steps, sum k ln r_k, sum Y(m), sum ln r_k) after one more
+    step whose tangent vector has squared length q, and the factor 1/sqrt(q)
+    that scales it back to length 1."""
+    lnr = 0.5 * ln_ieee(q)
+    k = n + 1.0
+    s1 = s1 + k * lnr
+    s2 = s2 + 2.0 * s1 / k
+    return k, s1, s2, s3 + lnr, 1.0 / np.sqrt(q)
 
 
 @njit(cache=True, error_model="numpy", inline="always")
@@ -269,13 +312,7 @@ def megno_update(dxj, dvj, sums):
         for c in range(3):
             w = V_SCALE * dvj[i, c]
             q += dxj[i, c] * dxj[i, c] + w * w
-    lnr = 0.5 * ln_ieee(q)
-    k = sums[0] + 1.0
-    sums[0] = k
-    sums[1] += k * lnr
-    sums[2] += 2.0 * sums[1] / k
-    sums[3] += lnr
-    s = 1.0 / np.sqrt(q)
+    sums[0], sums[1], sums[2], sums[3], s = megno_sums(q, sums[0], sums[1], sums[2], sums[3])
     for i in range(1, n):
         for c in range(3):
             dxj[i, c] *= s
