@@ -213,6 +213,9 @@ def test_members_of_different_systems_or_settings_are_refused():
     b = WisdomHolman(invented_system([0.1, 0.2]), 5.0, corrector=3)
     c = WisdomHolman(invented_system([0.1, 0.2]), 5.0, indicator="megno")
     assert compatible(a, clone(a)) and not compatible(a, b) and not compatible(a, c)
+    assert compatible(c, clone(c)) and not compatible(c, a)
+    with pytest.raises(ValueError, match="indicator"):
+        advance_together([a, c], 10)
     with pytest.raises(ValueError, match="same masses, step, corrector"):
         advance_together([a, b], 10)
     with pytest.raises(ValueError, match="n_steps must be >= 0"):
@@ -236,3 +239,83 @@ def test_samples_staged_in_pieces_are_the_same(monkeypatch):
     assert_same(members, alone)
     for sb, sa in zip(rows_b, rows_a):
         assert sb[0].tobytes() == sa[0].tobytes() and sb[1].tobytes() == sa[1].tobytes()
+
+
+def megno_rows(integ, rows):
+    return np.zeros((rows, 5)), np.zeros((rows, len(integ.gm) - 1, 6)), 0, np.zeros((rows, 2))
+
+
+@pytest.mark.parametrize("corrector,gr,dt", [(0, False, 3.0), (5, True, 3.0), (0, False, 170.0),
+                                             (17, True, 170.0)])
+def test_megno_members_carry_the_scalar_tangent_and_sums(corrector, gr, dt):
+    # The tangent vector and MEGNO sums of each member, and its <Y> samples, are
+    # the bytes of the scalar kernel run alone: eccentric, near-parabolic and
+    # long-step lanes (quarterings, the bracketed fallback) side by side, lanes
+    # with and without a pending half-drift, in odd groups.
+    systems = [invented_system([0.0, 0.3]), invented_system([0.9, 0.05]),
+               invented_system([0.995, 0.2]), invented_system([0.999999, 0.1]),
+               invented_system([0.6, 0.7]), invented_system([0.2, 0.95])]
+    gm = systems[0].gm
+    systems = [System(s.names, gm.copy(), s.x, s.v) for s in systems]
+    members = [WisdomHolman(s, dt, corrector=corrector, gr=gr, indicator="megno",
+                            tangent_seed=k) for k, s in enumerate(systems)]
+    members[2].advance(3)
+    alone = [clone(m) for m in members]
+    steps, every = 400, 37
+    rows_b = [megno_rows(m, steps // every + 2) for m in members]
+    rows_a = [megno_rows(m, steps // every + 2) for m in members]
+    got = advance_together(members[:2], steps, every, rows_b[:2], lanes=4) + \
+        advance_together(members[2:], steps, every, rows_b[2:], lanes=3)
+    want = [m.advance_sampled(steps, every, *r) for m, r in zip(alone, rows_a)]
+    assert [(r.steps, r.kind, n) for r, n in got] == [(r.steps, r.kind, n) for r, n in want]
+    assert_same(members, alone)
+    assert all("megno_sums" in m.state_arrays() for m in members)
+    for sb, sa in zip(rows_b, rows_a):
+        for b, a in zip(sb, sa):
+            assert np.asarray(b).tobytes() == np.asarray(a).tobytes()
+    # The indicator is live, not a constant: the members' <Y> differ.
+    assert len({m.megno() for m in members}) == len(members)
+
+
+def test_megno_members_stop_and_break_at_their_own_step():
+    # A member meeting a stop condition leaves with its sums as the scalar
+    # kernel leaves them (the step's growth counted); one whose state breaks
+    # leaves before its sums take the step.
+    stops = StopConditions(max_ecc=0.5, eject_distance=40.0)
+    systems = [invented_system([0.1, 0.2]), invented_system([0.45, 0.2]),
+               invented_system([0.2, 0.49]), invented_system([0.05, 0.1]),
+               invented_system([0.05, 0.1])]
+    gm = systems[0].gm
+    v = systems[3].v.copy()
+    v[2] *= 1.5  # outer planet leaves: ejection
+    systems[3] = System(systems[3].names, gm, systems[3].x, v)
+    systems = [System(s.names, gm, s.x, s.v) for s in systems]
+    members = [WisdomHolman(s, 5.0, stops=stops, indicator="megno", tangent_seed=k)
+               for k, s in enumerate(systems)]
+    members[4].xj[2, 1] = np.inf
+    alone = [clone(m) for m in members]
+    got = advance_together(members, 20000)
+    want = run_alone(alone, 20000)
+    kinds = {r.kind for r in got}
+    assert StopKind.DONE in kinds and StopKind.NUMERICAL_FAILURE in kinds and len(kinds) >= 3
+    assert [(r.steps, r.kind, r.bodies) for r in got] == [(r.steps, r.kind, r.bodies)
+                                                          for r in want]
+    for b, a in zip(members[:4], alone[:4]):
+        assert state_bytes(b) == state_bytes(a)
+    assert members[4].tangent[2].tobytes() == alone[4].tangent[2].tobytes()
+
+
+def test_megno_members_move_between_batches_through_checkpoints():
+    members = [WisdomHolman(invented_system([0.1 + 0.05 * k, 0.2]), 4.0, corrector=3,
+                            indicator="megno", tangent_seed=k) for k in range(5)]
+    gm = members[0].gm
+    members = [WisdomHolman(System(m.names, gm, *m._synchronized_state()), 4.0, corrector=3,
+                            indicator="megno", tangent_seed=k) for k, m in enumerate(members)]
+    alone = [clone(m) for m in members]
+    run_alone(alone, 900)
+    advance_together(members, 300, lanes=2)
+    members = [clone(m) for m in members]  # a checkpoint: state arrays and back
+    members[1].advance(300)
+    advance_together(members[:1] + members[2:], 300)
+    advance_together(members, 300, lanes=5)
+    assert_same(members, alone)

@@ -11,6 +11,7 @@ import os
 import subprocess
 import sys
 
+import numpy as np
 import pytest
 
 from orbitledger.runner.analysis.integrity import verify
@@ -62,8 +63,13 @@ def assert_same_jobs(ref, ref_ids, led, ids, same_rows=True):
         assert verify(led, b).ok
 
 
-@pytest.mark.parametrize("text", [ilvar_text(), ejecting_ensemble_text("batch-eject")],
-                         ids=["ilvar", "ejecting"])
+def megno_text():
+    return ilvar_text(members=6, length="300 yr").replace('corrector = 3',
+                                                          'corrector = 3\nindicator = "megno"')
+
+
+@pytest.mark.parametrize("text", [ilvar_text(), ejecting_ensemble_text("batch-eject"),
+                                  megno_text()], ids=["ilvar", "ejecting", "megno"])
 def test_batched_members_commit_what_they_commit_alone(tmp_path, text, ledger_url):
     ref = Ledger(f"sqlite:///{tmp_path}/ref.sqlite", tmp_path / "ref")
     _, ref_ids = ref.submit_ensemble(S.load_text(text))
@@ -77,6 +83,10 @@ def test_batched_members_commit_what_they_commit_alone(tmp_path, text, ledger_ur
     assert_same_jobs(ref, ref_ids, led, ids)
     if "eject" in text:
         assert {led.job(j)["outcome"] for j in ids} >= {"ejection"}
+    if "megno" in text:
+        # The indicator was carried and sampled (samples compared above).
+        megno = led.store.read_samples(ids[-1], led.job(ids[-1])["n_samples"])["megno"]
+        assert len(megno) > 10 and np.isfinite(megno[1:]).all() and float(megno[-1]) > 1.0
     # Every segment was worked by this worker, several members per batch, and
     # says so in its provenance.
     segs = [s for j in ids for s in led.segments(j)]

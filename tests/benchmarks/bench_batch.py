@@ -9,6 +9,7 @@ scalar run's bytes. Also reports the vector width of the compiled lane loops
 (from the generated assembly).
 
 Run:  .venv/bin/python tests/benchmarks/bench_batch.py [--members 32] [--steps N] [--reps R]
+      [--lanes 8,16,32] [--indicator megno]
 Reports; asserts nothing but the bytes.
 """
 
@@ -32,13 +33,13 @@ SYSTEMS = (("four giants, 30 d", "veyra-giants.toml", 30.0),
            ("eight planets, 4 d", "veyra-full.toml", 4.0))
 
 
-def clones(spec_file, dt, members):
+def clones(spec_file, dt, members, indicator=None):
     spec = spec_mod.load(os.path.join(ROOT, "jobs", spec_file))
     plan = spec_mod.resolve(spec)
     out = []
     for k in range(members):
         integ = WisdomHolman(plan.system, dt, corrector=plan.corrector, gr=plan.relativity,
-                             stops=plan.stops)
+                             stops=plan.stops, indicator=indicator, tangent_seed=k)
         integ.xj[1, 0] *= 1.0 + 1e-12 * k
         out.append(integ)
     return out
@@ -73,10 +74,12 @@ def main():
     ap.add_argument("--steps", type=int, default=20000)
     ap.add_argument("--reps", type=int, default=3)
     ap.add_argument("--lanes", default="8,16,32")
+    ap.add_argument("--indicator", default=None, choices=[None, "megno"],
+                    help="members carry MEGNO (tangent vectors), both paths")
     args = ap.parse_args()
     lanes = [int(x) for x in args.lanes.split(",")]
     for label, spec_file, dt in SYSTEMS:
-        base = clones(spec_file, dt, args.members)
+        base = clones(spec_file, dt, args.members, args.indicator)
         batch.advance_together([copy(m) for m in base[:2]], 20, lanes=2)  # compile
         copy(base[0]).advance(20)
         best = {"scalar": np.inf, **{b: np.inf for b in lanes}}
@@ -92,10 +95,13 @@ def main():
                 batch.advance_together(group, args.steps, lanes=b)
                 best[b] = min(best[b], time.perf_counter() - t)
                 for g, a in zip(group, alone):
-                    assert g.xj.tobytes() == a.xj.tobytes() and g.vj.tobytes() == a.vj.tobytes()
+                    sg, sa = g.state_arrays(), a.state_arrays()
+                    assert all(np.asarray(sg[k]).tobytes() == np.asarray(sa[k]).tobytes()
+                               for k in sa)
         per = args.members * args.steps
         scalar_ns = best["scalar"] / per * 1e9
-        print(f"{label}: {args.members} members x {args.steps} steps, best of {args.reps}, "
+        what = " with MEGNO" if args.indicator else ""
+        print(f"{label}{what}: {args.members} members x {args.steps} steps, best of {args.reps}, "
               "alternated; every member's bytes equal to its scalar run")
         print("| path | ns per member-step | speed-up |")
         print("|---|---|---|")

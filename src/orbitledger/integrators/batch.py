@@ -30,9 +30,11 @@ import numpy as np
 from numba import njit
 
 from .kepler import (_HALLEY_MAX, _ITERATE, _STUMPFF_MAX_QUARTERS, _STUMPFF_REDUCED,
-                     drift_finish, drift_prelude, halley_update, kepler_terms, solve_universal,
-                     stumpff_double, stumpff_series, universal_guess)
+                     drift_finish, drift_prelude, drift_start, halley_update, kepler_terms,
+                     lagrange, solve_universal, stumpff_double, stumpff_series, universal_guess)
 from .stops import NUMERICAL_FAILURE_CODE, body_stop, check_stops, first_broken, hill_hit
+from .variational import (N_SUMS, V_SCALE, drift_tangent, gr_tangent, jacobi_tangent,
+                          megno_sums, pair_tangent)
 from .wisdom_holman import WisdomHolman, wh_diagnose
 
 # A lane loop reads and writes many rows of several arrays; LLVM vectorizes
@@ -56,8 +58,8 @@ _R0, _IR0, _ETA, _BETA, _DT, _ZETA, _S, _LO, _HI, _DSP, _ST = range(11)
 _RR, _G0, _G1, _G2, _Y, _NQ, _C0, _C1, _C2, _C3 = range(11, 21)
 N_DRIFT_ROWS = 21
 # Rows of the per-lane scratch array of the step (besides the drift's).
-_H, _A0, _A1, _A2, _FLAG = range(5)
-N_STEP_ROWS = 5
+_H, _A0, _A1, _A2, _FLAG, _Q = range(6)
+N_STEP_ROWS = 6
 
 # Members advanced together by default: measured (docs/benchmarks.md,
 # "Batched members"), not guessed.
@@ -88,6 +90,7 @@ def _halley_lane(w, m, mu, c0, c1, c2, c3):
     w[_ST * _PITCH + m] = float(code) if live else w[_ST * _PITCH + m]
     w[_S * _PITCH + m] = s if live else w[_S * _PITCH + m]
     w[_RR * _PITCH + m] = r if live else w[_RR * _PITCH + m]
+    w[_G0 * _PITCH + m] = g0 if live else w[_G0 * _PITCH + m]
     w[_G1 * _PITCH + m] = g1 if live else w[_G1 * _PITCH + m]
     w[_G2 * _PITCH + m] = g2 if live else w[_G2 * _PITCH + m]
     w[_LO * _PITCH + m] = lo if live else w[_LO * _PITCH + m]
@@ -101,8 +104,10 @@ def _halley_lane(w, m, mu, c0, c1, c2, c3):
 
 
 @njit(cache=True, error_model="numpy", inline="always")
-def _drift_lanes(x, v, i, mu, h, nl, w):
-    """Kepler drift of Jacobi row i of every lane by h[lane], in place.
+def _drift_lanes(x, v, i, mu, h, nl, w, tangent, dx, dv):
+    """Kepler drift of Jacobi row i of every lane by h[lane], in place; with
+    `tangent`, the tangent vectors (dx, dv) (n, 3, B) are carried with it
+    (:func:`integrators.variational.drift_all_tangent` per lane).
 
     x, v: (n, 3, B); h: (B,); w: flat scratch, row r of lane m at r * _PITCH + m. Each round is one
     pass over the lanes while no lane needs its Stumpff argument quartered
@@ -185,11 +190,35 @@ def _drift_lanes(x, v, i, mu, h, nl, w):
                 # Unconverged after every Halley iteration, or sent to the
                 # fallback: the scalar solver (its own iterations, then its
                 # bracket) gives this lane exactly what it gives the member alone.
-                _, r, _, g1, g2, _, _ = solve_universal(w[_R0 * _PITCH + m], w[_ETA * _PITCH + m], w[_BETA * _PITCH + m],
-                                                        mu, w[_DT * _PITCH + m])
+                s, r, g0, g1, g2, _, _ = solve_universal(w[_R0 * _PITCH + m], w[_ETA * _PITCH + m], w[_BETA * _PITCH + m],
+                                                         mu, w[_DT * _PITCH + m])
+                w[_S * _PITCH + m] = s
                 w[_RR * _PITCH + m] = r
+                w[_G0 * _PITCH + m] = g0
                 w[_G1 * _PITCH + m] = g1
                 w[_G2 * _PITCH + m] = g2
+    if tangent:
+        # From the state before the drift and the solver's root: the scalar
+        # tangent drift's arithmetic (the start is taken again for the number
+        # of whole periods it removed; the same operations, so the same bits).
+        for m in range(nl):
+            x0, x1, x2 = x[i, 0, m], x[i, 1, m], x[i, 2, m]
+            v0, v1, v2 = v[i, 0, m], v[i, 1, m], v[i, 2, m]
+            r0, ir0, eta0, beta, _, whole, period = drift_start(x0, x1, x2, v0, v1, v2, mu, h[m])
+            r = w[_RR * _PITCH + m]
+            g1 = w[_G1 * _PITCH + m]
+            g2 = w[_G2 * _PITCH + m]
+            _, g, f, fd, gdm1 = lagrange(mu, r0, ir0, eta0, r, g1, g2)
+            p0, p1, p2, q0, q1, q2 = drift_tangent(
+                x0, x1, x2, v0, v1, v2, dx[i, 0, m], dx[i, 1, m], dx[i, 2, m], dv[i, 0, m],
+                dv[i, 1, m], dv[i, 2, m], mu, r0, ir0, eta0, beta, whole, period,
+                w[_S * _PITCH + m], r, w[_G0 * _PITCH + m], g1, g2, f, g, fd, gdm1)
+            dx[i, 0, m] = p0
+            dx[i, 1, m] = p1
+            dx[i, 2, m] = p2
+            dv[i, 0, m] = q0
+            dv[i, 1, m] = q1
+            dv[i, 2, m] = q2
     for m in range(nl):
         a0, a1, a2, b0, b1, b2 = drift_finish(
             x[i, 0, m], x[i, 1, m], x[i, 2, m], v[i, 0, m], v[i, 1, m], v[i, 2, m], mu,
@@ -203,23 +232,22 @@ def _drift_lanes(x, v, i, mu, h, nl, w):
 
 
 @njit(cache=True, error_model="numpy", inline="always")
-def _drift_all_lanes(xj, vj, mu, h, nl, w):
-    """:func:`integrators.wisdom_holman.drift_all` for every lane."""
+def _drift_all_lanes(xj, vj, mu, h, nl, w, tangent, dx, dv):
+    """:func:`integrators.wisdom_holman.drift_all` for every lane (and with `tangent`,
+    :func:`integrators.variational.drift_all_tangent`)."""
     for m in range(nl):
         xj[0, 0, m] += vj[0, 0, m] * h[m]
         xj[0, 1, m] += vj[0, 1, m] * h[m]
         xj[0, 2, m] += vj[0, 2, m] * h[m]
     for i in range(1, xj.shape[0]):
-        _drift_lanes(xj, vj, i, mu[i], h, nl, w)
+        _drift_lanes(xj, vj, i, mu[i], h, nl, w, tangent, dx, dv)
 
 
 @njit(cache=True, error_model="numpy", inline="always")
-def _kick_lanes(xj, vj, gm, mu, mr, h, gr_coef, xi, acc, nl, c):
-    """:func:`integrators.wisdom_holman.kick` for every lane, same operations in the
-    same order per lane. xi, acc: (n, 3, B) scratch (xi keeps the inertial positions
-    for the stop checks); c: flat scratch (N_STEP_ROWS rows of _PITCH)."""
+def _to_inertial_lanes(xj, mr, xi, nl, c):
+    """:func:`integrators.nbody.to_inertial` for every lane (one pass over the lanes
+    per body, all three coordinates); c: flat scratch."""
     n = xj.shape[0]
-    # to_inertial (one pass over the lanes per body, all three coordinates)
     for m in range(nl):
         c[(_A0) * _PITCH + m] = xj[0, 0, m]
         c[(_A1) * _PITCH + m] = xj[0, 1, m]
@@ -243,6 +271,15 @@ def _kick_lanes(xj, vj, gm, mu, mr, h, gr_coef, xi, acc, nl, c):
         xi[0, 0, m] = c[(_A0) * _PITCH + m]
         xi[0, 1, m] = c[(_A1) * _PITCH + m]
         xi[0, 2, m] = c[(_A2) * _PITCH + m]
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def _kick_lanes(xj, vj, gm, mu, mr, h, gr_coef, xi, acc, nl, c):
+    """:func:`integrators.wisdom_holman.kick` for every lane, same operations in the
+    same order per lane. xi, acc: (n, 3, B) scratch (xi keeps the inertial positions
+    for the stop checks); c: flat scratch (N_STEP_ROWS rows of _PITCH)."""
+    n = xj.shape[0]
+    _to_inertial_lanes(xj, mr, xi, nl, c)
     # accelerations: the scalar pair loop's order (i < j) for every lane
     for i in range(n):
         for m in range(nl):
@@ -308,6 +345,95 @@ def _kick_lanes(xj, vj, gm, mu, mr, h, gr_coef, xi, acc, nl, c):
 
 
 @njit(cache=True, error_model="numpy", inline="always")
+def _kick_tangent_lanes(xj, xi, dxj, dvj, gm, mu, mr, h, gr_coef, dxi, dacc, nl, c):
+    """:func:`integrators.variational.kick_tangent` for every lane, same operations in
+    the same order per lane (xi: the kick's inertial positions; dxi, dacc: (n, 3, B)
+    scratch)."""
+    n = xj.shape[0]
+    _to_inertial_lanes(dxj, mr, dxi, nl, c)
+    for i in range(n):
+        for m in range(nl):
+            dacc[i, 0, m] = 0.0
+            dacc[i, 1, m] = 0.0
+            dacc[i, 2, m] = 0.0
+    for i in range(n):
+        gi = gm[i]
+        for j in range(i + 1, n):
+            gj = gm[j]
+            for m in range(nl):
+                t0, t1, t2 = pair_tangent(
+                    xi[j, 0, m] - xi[i, 0, m], xi[j, 1, m] - xi[i, 1, m],
+                    xi[j, 2, m] - xi[i, 2, m], dxi[j, 0, m] - dxi[i, 0, m],
+                    dxi[j, 1, m] - dxi[i, 1, m], dxi[j, 2, m] - dxi[i, 2, m])
+                dacc[i, 0, m] += gj * t0
+                dacc[i, 1, m] += gj * t1
+                dacc[i, 2, m] += gj * t2
+                dacc[j, 0, m] -= gi * t0
+                dacc[j, 1, m] -= gi * t1
+                dacc[j, 2, m] -= gi * t2
+    if gr_coef > 0.0:
+        for i in range(1, n):
+            q = gm[i] / gm[0]
+            for m in range(nl):
+                t0, t1, t2 = gr_tangent(
+                    xi[i, 0, m] - xi[0, 0, m], xi[i, 1, m] - xi[0, 1, m],
+                    xi[i, 2, m] - xi[0, 2, m], dxi[i, 0, m] - dxi[0, 0, m],
+                    dxi[i, 1, m] - dxi[0, 1, m], dxi[i, 2, m] - dxi[0, 2, m], gr_coef)
+                dacc[i, 0, m] -= t0
+                dacc[i, 1, m] -= t1
+                dacc[i, 2, m] -= t2
+                dacc[0, 0, m] += q * t0
+                dacc[0, 1, m] += q * t1
+                dacc[0, 2, m] += q * t2
+    for m in range(nl):
+        c[(_A0) * _PITCH + m] = dacc[0, 0, m]
+        c[(_A1) * _PITCH + m] = dacc[0, 1, m]
+        c[(_A2) * _PITCH + m] = dacc[0, 2, m]
+    for i in range(1, n):
+        mui = mu[i]
+        q = mr[i]
+        for m in range(nl):
+            u0, u1, u2 = jacobi_tangent(xj[i, 0, m], xj[i, 1, m], xj[i, 2, m], dxj[i, 0, m],
+                                        dxj[i, 1, m], dxj[i, 2, m], mui)
+            aj0 = dacc[i, 0, m] - c[(_A0) * _PITCH + m]
+            aj1 = dacc[i, 1, m] - c[(_A1) * _PITCH + m]
+            aj2 = dacc[i, 2, m] - c[(_A2) * _PITCH + m]
+            dvj[i, 0, m] += h * (aj0 + u0)
+            dvj[i, 1, m] += h * (aj1 + u1)
+            dvj[i, 2, m] += h * (aj2 + u2)
+            c[(_A0) * _PITCH + m] = c[(_A0) * _PITCH + m] + q * aj0
+            c[(_A1) * _PITCH + m] = c[(_A1) * _PITCH + m] + q * aj1
+            c[(_A2) * _PITCH + m] = c[(_A2) * _PITCH + m] + q * aj2
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def _megno_lanes(dxj, dvj, sums, codes, nl, c):
+    """:func:`integrators.variational.megno_update` for every lane whose state is
+    still sound (codes[lane] == 0: the scalar kernel returns before it otherwise).
+    sums: (N_SUMS, B)."""
+    n = dxj.shape[0]
+    for m in range(nl):
+        c[_Q * _PITCH + m] = 0.0
+    for i in range(1, n):
+        for d in range(3):
+            for m in range(nl):
+                u = V_SCALE * dvj[i, d, m]
+                c[_Q * _PITCH + m] += dxj[i, d, m] * dxj[i, d, m] + u * u
+    for m in range(nl):
+        if codes[m] != 0:
+            c[_Q * _PITCH + m] = 1.0
+            continue
+        sums[0, m], sums[1, m], sums[2, m], sums[3, m], sc = megno_sums(
+            c[_Q * _PITCH + m], sums[0, m], sums[1, m], sums[2, m], sums[3, m])
+        c[_Q * _PITCH + m] = sc
+    for i in range(1, n):
+        for d in range(3):
+            for m in range(nl):
+                dxj[i, d, m] *= c[_Q * _PITCH + m]
+                dvj[i, d, m] *= c[_Q * _PITCH + m]
+
+
+@njit(cache=True, error_model="numpy", inline="always")
 def _screen_stops(xi, xj, vj, mu, pairs, params, rh, nl, flag):
     """flag[lane] = 1.0 where :func:`check_stops` would report a stop for that lane
     (its own per-body and per-pair tests; which stop, and its bodies, are left to it)."""
@@ -351,7 +477,8 @@ def _lane_copy(src, m, dst):
 @njit(cache=True, error_model="numpy", nogil=True)
 def wh_steps_lanes(xj, vj, gm, mu, mr, dt, n_steps, pending, gr_coef, pairs, params, nl,
                    step0, every, a_inv, c_inv, out_g, out_el, rows, codes, bodies, xi, acc, rh,
-                   w, c, lane_x, lane_v, lane_xi, lane_rh, diag):
+                   w, c, lane_x, lane_v, lane_xi, lane_rh, diag, tangent, dx, dv, sums, dxi,
+                   dacc, out_ind):
     """Take up to n_steps merged drift-kick-drift steps of nl lanes in place.
 
     xj, vj: (n, 3, B) Jacobi states; pending: (B,) int64 flags. Per lane m:
@@ -360,7 +487,11 @@ def wh_steps_lanes(xj, vj, gm, mu, mr, dt, n_steps, pending, gr_coef, pairs, par
     G*energy, G*Lx, G*Ly, G*Lz) and out_el[m, r], rows[m] counting on. A lane
     that meets a stop condition gets its code and bodies in codes[m],
     bodies[m] and the call ends after that step (every lane has taken it).
-    Returns the steps taken.
+    With `tangent`, every lane carries its tangent vector (dx, dv) (n, 3, B) and
+    MEGNO sums (N_SUMS, B) as :func:`integrators.wisdom_holman.wh_steps_tangent`
+    does, and sample r of lane m gets (<Y>, mean log-growth per step) in
+    out_ind[m, r] (dxi, dacc: (n, 3, B) scratch); otherwise those arrays are
+    not touched. Returns the steps taken.
     """
     n = xj.shape[0]
     half = 0.5 * dt
@@ -376,8 +507,10 @@ def wh_steps_lanes(xj, vj, gm, mu, mr, dt, n_steps, pending, gr_coef, pairs, par
         for m in range(nl):
             h[m] = dt if pending[m] else half
             pending[m] = 1
-        _drift_all_lanes(xj, vj, mu, h, nl, w)
+        _drift_all_lanes(xj, vj, mu, h, nl, w, tangent, dx, dv)
         _kick_lanes(xj, vj, gm, mu, mr, dt, gr_coef, xi, acc, nl, c)
+        if tangent:
+            _kick_tangent_lanes(xj, xi, dx, dv, gm, mu, mr, dt, gr_coef, dxi, dacc, nl, c)
         stopped = False
         for m in range(nl):
             vv = vj[n - 1, 0, m]
@@ -387,6 +520,8 @@ def wh_steps_lanes(xj, vj, gm, mu, mr, dt, n_steps, pending, gr_coef, pairs, par
                 codes[m] = NUMERICAL_FAILURE_CODE
                 bodies[m, 0] = first_broken(lane_x, lane_v)
                 stopped = True
+        if tangent:
+            _megno_lanes(dx, dv, sums, codes, nl, c)
         if check:
             flag = c[_FLAG * _PITCH:(_FLAG + 1) * _PITCH]
             _screen_stops(xi, xj, vj, mu, pairs, params, rh, nl, flag)
@@ -418,6 +553,9 @@ def wh_steps_lanes(xj, vj, gm, mu, mr, dt, n_steps, pending, gr_coef, pairs, par
                 out_g[m, r, 2] = lx
                 out_g[m, r, 3] = ly
                 out_g[m, r, 4] = lz
+                if tangent:
+                    out_ind[m, r, 0] = sums[2, m] / sums[0, m]
+                    out_ind[m, r, 1] = sums[3, m] / sums[0, m]
                 rows[m] = r + 1
         if stopped:
             return k + 1
@@ -426,10 +564,11 @@ def wh_steps_lanes(xj, vj, gm, mu, mr, dt, n_steps, pending, gr_coef, pairs, par
 
 def compatible(a, b):
     """True if two Wisdom-Holman integrators can share a batch: same masses, step,
-    corrector, GR term and stop conditions, no test particles, no indicator."""
+    corrector, GR term, stop conditions and indicator (none or MEGNO), no test
+    particles."""
     return (type(a) is WisdomHolman and type(b) is WisdomHolman
             and a.particles is None and b.particles is None
-            and a.tangent is None and b.tangent is None
+            and (a.tangent is None) == (b.tangent is None)
             and a.dt == b.dt and a.corrector == b.corrector and a.gr == b.gr
             and a.stops == b.stops and a.gm.shape == b.gm.shape
             and bool(np.all(a.gm == b.gm)))
@@ -458,6 +597,14 @@ class _Lanes:
         self.diag = np.zeros((6, n, 3))
         self.codes = np.zeros(B, dtype=np.int64)
         self.bodies = np.zeros((B, 2), dtype=np.int64)
+        self.tangent = first.tangent is not None
+        # The tangent vectors, their sums and scratch; unused stand-ins without them.
+        k = B if self.tangent else 1
+        self.dx = np.zeros((n if self.tangent else 1, 3, k))
+        self.dv = np.zeros_like(self.dx)
+        self.dxi = np.zeros_like(self.dx)
+        self.dacc = np.zeros_like(self.dx)
+        self.sums = np.zeros((N_SUMS, k))
         self.load(members)
 
     def load(self, members):
@@ -465,12 +612,21 @@ class _Lanes:
             self.xj[:, :, m] = integ.xj
             self.vj[:, :, m] = integ.vj
             self.pending[m] = int(integ.pending)
+            if self.tangent:
+                dx, dv, sums = integ.tangent
+                self.dx[:, :, m] = dx
+                self.dv[:, :, m] = dv
+                self.sums[:, m] = sums
         self.nl = len(members)
 
     def store(self, m, integ):
         integ.xj = np.ascontiguousarray(self.xj[:, :, m])
         integ.vj = np.ascontiguousarray(self.vj[:, :, m])
         integ.pending = bool(self.pending[m])
+        if self.tangent:
+            integ.tangent = (np.ascontiguousarray(self.dx[:, :, m]),
+                             np.ascontiguousarray(self.dv[:, :, m]),
+                             np.ascontiguousarray(self.sums[:, m]))
 
 
 def advance_together(members, n_steps, every=0, outputs=None, lanes=DEFAULT_LANES):
@@ -488,8 +644,9 @@ def advance_together(members, n_steps, every=0, outputs=None, lanes=DEFAULT_LANE
         Steps for each member; a member that meets a stop condition ends early.
     every : int
         Sample cadence in steps (with outputs).
-    outputs : list of (out_g, out_el, row0), optional
-        Per member, the arrays and first row of :meth:`Integrator.advance_sampled`.
+    outputs : list of (out_g, out_el, row0) or (out_g, out_el, row0, out_ind), optional
+        Per member, the arrays and first row of :meth:`Integrator.advance_sampled`
+        (out_ind for members carrying MEGNO).
     lanes : int
         Members per compiled call (the batch size B); more members run in
         successive groups.
@@ -505,13 +662,14 @@ def advance_together(members, n_steps, every=0, outputs=None, lanes=DEFAULT_LANE
     for other in members[1:]:
         if not compatible(members[0], other):
             raise ValueError("members of one batch must be Wisdom-Holman integrators of one "
-                             "system (same masses, step, corrector, GR and stops), without "
-                             "particles or an indicator; run the others alone.")
+                             "system (same masses, step, corrector, GR, stops and indicator), "
+                             "without particles; run the others alone.")
     if outputs is not None:
         outputs = list(outputs)
         if every < 1 or len(outputs) != len(members):
             raise ValueError("outputs need one (out_g, out_el, row0) per member and every >= 1.")
-        for out_g, _, row0 in outputs:
+        for out in outputs:
+            out_g, row0 = out[0], out[2]
             if len(out_g) < row0 + n_steps // every + 1:
                 raise ValueError("sample arrays too small for the requested steps and cadence.")
     lanes = max(1, min(int(lanes), _PITCH))
@@ -541,11 +699,13 @@ def _advance_group(members, group, n_steps, every, outputs, rows, codes, done):
     # calls of at most `piece` steps (where a run is split changes no bit).
     piece = n_steps
     if every:
-        max_rows = max(1, _STAGING_BYTES // (pack.B * 8 * (5 + 6 * (n - 1))))
+        per_row = 8 * (5 + 6 * (n - 1) + (2 if pack.tangent else 0))
+        max_rows = max(1, _STAGING_BYTES // (pack.B * per_row))
         piece = min(n_steps, max_rows * every)
     cap = piece // every + 1 if every else 0
     out_g = np.zeros((pack.B, cap, 5))
     out_el = np.zeros((pack.B, cap, n - 1, 6))
+    out_ind = np.zeros((pack.B if pack.tangent else 1, cap if pack.tangent else 1, 2))
     ev = np.full(pack.B, every, dtype=np.int64)
     lane_rows = np.zeros(pack.B, dtype=np.int64)
     while active:
@@ -561,15 +721,19 @@ def _advance_group(members, group, n_steps, every, outputs, rows, codes, done):
                                first._stop_params, nl, step0, ev, a_inv, c_inv, out_g, out_el,
                                lane_rows, pack.codes, pack.bodies, pack.xi, pack.acc, pack.rh,
                                pack.w, pack.c, pack.lane_x, pack.lane_v, pack.lane_xi,
-                               pack.lane_rh, pack.diag)
+                               pack.lane_rh, pack.diag, pack.tangent, pack.dx, pack.dv,
+                               pack.sums, pack.dxi, pack.dacc, out_ind)
         stay = []
         for m, k in enumerate(active):
             done[k] += steps
             if outputs is not None and lane_rows[m]:
-                og, oe, _ = outputs[k]
+                og, oe = outputs[k][:2]
                 r0, r = rows[k], int(lane_rows[m])
                 og[r0:r0 + r] = out_g[m, :r]
                 oe[r0:r0 + r] = out_el[m, :r]
+                oi = outputs[k][3] if len(outputs[k]) > 3 else None
+                if oi is not None:
+                    oi[r0:r0 + r] = out_ind[m, :r]
                 offset = members[k].sample_offset
                 if offset:
                     og[r0:r0 + r, 0] -= offset  # as advance_sampled: the kernel counts from it

@@ -1,7 +1,7 @@
 """Ensemble members worked as one batch by the batched kernel.
 
 A worker that claims a member of an ensemble run by the Wisdom-Holman map
-(with or without the corrector and GR; no indicator, no test particles, no
+(with or without the corrector, GR and MEGNO; no test particles, no
 switching) also claims up to ``lanes - 1`` queued members level with it
 (same progress, span, chunk and cadence: equally least advanced in
 breadth-first order). Each member keeps its own claim, lease, fencing token,
@@ -31,7 +31,7 @@ def batchable(row):
         return False
     spec = json.loads(row["spec_json"])
     method = spec.get("method", {})
-    return (method.get("indicator", "none") == "none" and not spec.get("particles")
+    return (method.get("indicator", "none") in ("none", "megno") and not spec.get("particles")
             and method.get("encounters", "stop") != "switch")
 
 
@@ -59,7 +59,8 @@ def claim_mates(worker, claim):
 
 def _fit(row):
     """Most members whose chunk samples fit in defaults.BATCH_SAMPLE_BYTES together."""
-    per_sample = 8 * (5 + 6 * (int(row["n_bodies"]) - 1))
+    megno = json.loads(row["spec_json"]).get("method", {}).get("indicator", "none") == "megno"
+    per_sample = 8 * (5 + 6 * (int(row["n_bodies"]) - 1) + (2 if megno else 0))
     per_member = (int(row["chunk_steps"]) // int(row["output_steps"]) + 1) * per_sample
     return max(1, defaults.BATCH_SAMPLE_BYTES // per_member)
 

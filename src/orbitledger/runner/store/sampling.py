@@ -155,7 +155,7 @@ def advance_members(buffers, integs, n_steps, every, lanes):
     from orbitledger.integrators.batch import advance_together
 
     starts = [buf._reserve(n_steps, every) for buf in buffers]
-    outputs = [(buf._g, buf.arrays["elements"], s) for buf, s in zip(buffers, starts)]
+    outputs = [(buf._g, buf.arrays["elements"], s, buf._ind) for buf, s in zip(buffers, starts)]
     got = advance_together(integs, n_steps, every, outputs, lanes=lanes)
     for buf, integ, s, (_, rows) in zip(buffers, integs, starts, got):
         buf._absorb(integ, s, rows)
