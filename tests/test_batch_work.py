@@ -125,6 +125,32 @@ def test_a_member_asked_to_hold_leaves_the_batch_at_its_step(tmp_path):
     led.close()
 
 
+def test_members_of_a_killed_batch_are_resumed_together(tmp_path):
+    # A worker killed during its batch leaves every member's lease held by a
+    # dead process; the next worker takes them back as one batch (not one by
+    # one on the scalar kernel), to the bytes of members run alone.
+    text = ilvar_text(members=4, length="300 yr")
+    ref = Ledger(f"sqlite:///{tmp_path}/ref.sqlite", tmp_path / "ref")
+    _, ref_ids = ref.submit_ensemble(S.load_text(text))
+    Worker(ref, lanes=1).run()
+    ws, led = init(tmp_path / "ws")
+    _, ids = led.submit_ensemble(S.load_text(text))
+    out = subprocess.run([sys.executable, "-m", "orbitledger.runner.cli", "work", "--workspace",
+                          str(ws), "--lanes", "4", "--quiet"], cwd=ROOT, capture_output=True,
+                         text=True, timeout=600,
+                         env=dict(os.environ, ORBITLEDGER_FAILPOINTS="first_step:1"))
+    assert out.returncode != 0
+    assert [led.job(j)["status"] for j in ids] == ["running"] * 4  # held by the dead worker
+    Worker(led, lanes=4).run()
+    for j in ids:
+        segs = led.segments(j)
+        assert len(segs) >= 2 and segs[0]["end_reason"] != "done"
+        assert all('"kernel": "batched, 4 members"' in g["versions"] for g in segs[1:])
+    assert_same_jobs(ref, ref_ids, led, ids)
+    ref.close()
+    led.close()
+
+
 def test_batched_work_is_split_between_a_pools_workers(tmp_path):
     ws, led = init(tmp_path / "ws")
     _, ids = led.submit_ensemble(S.load_text(ilvar_text(members=8, length="300 yr")))

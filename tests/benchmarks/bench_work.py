@@ -19,7 +19,10 @@
    checkpoints to its first kernel step (the process is killed there by the
    `first_step` failpoint).
 
-Run:  .venv/bin/python tests/benchmarks/bench_work.py
+5. With --resume-batch (alone): the same for 32 members of an ensemble
+   resumed together as one batch.
+
+Run:  .venv/bin/python tests/benchmarks/bench_work.py [--resume-batch]
 """
 
 import os
@@ -108,6 +111,42 @@ def resume_latency(spec, tmp, repeats=5):
     return min(times), max(times)
 
 
+def resume_latency_batch(members, tmp, repeats=5):
+    """Resume of an ensemble's members worked as one batch: from starting
+    `orbitledger work` on members with committed checkpoints to the batch's first
+    kernel call (claims of every member, their checkpoints loaded, the batched
+    kernel loaded from numba's cache)."""
+    shutil.rmtree(tmp, ignore_errors=True)
+    from orbitledger.runner.ledger.workspace import init
+
+    text = open(os.path.join(ROOT, "jobs", "veyra-giants.toml"), encoding="utf-8").read()
+    text = text.replace('length = "10 Myr"', 'length = "5 Myr"').replace(
+        'chunk = "500 kyr"', 'chunk = "50 kyr"') + f"""
+[ensemble]
+members = {members}
+[ensemble.perturb]
+body = "Veyra c"
+quantity = "a"
+rule = "step"
+size = "1e-12 au"
+"""
+    ws, led = init(tmp)
+    _, ids = led.submit_ensemble(spec_mod.load_text(text))
+    w = Worker(led, max_steps_per_call=2_000)
+    w.deadline = time.time() + 3.0
+    w.run()  # every member part-way, with committed checkpoints
+    assert all(led.job(j)["status"] == "queued" and led.job(j)["steps_done"] > 0 for j in ids)
+    led.close()
+    times = []
+    for _ in range(repeats):
+        env = dict(os.environ, ORBITLEDGER_FAILPOINTS="first_step:1")
+        t = time.perf_counter()
+        subprocess.run([sys.executable, "-m", "orbitledger.runner.cli", "work", "--workspace",
+                        str(ws), "--quiet"], env=env, cwd=ROOT)
+        times.append(time.perf_counter() - t)
+    return min(times), max(times)
+
+
 def fixed_cost(spec, tmp, jobs=8):
     """The worker's own time per job in one process, which the machine's drift cannot
     blur: wall time of Worker.run minus the time in the kernel calls
@@ -146,6 +185,12 @@ def fixed_cost(spec, tmp, jobs=8):
 
 def main():
     tmp = tempfile.mkdtemp()
+    if "--resume-batch" in sys.argv:
+        lo, hi = resume_latency_batch(32, os.path.join(tmp, "rb"))
+        print(f"resume of 32 batched members: start of `orbitledger work` to the batch's first "
+              f"kernel call: {lo:.2f} s best, {hi:.2f} s worst of 5")
+        shutil.rmtree(tmp, ignore_errors=True)
+        return
     print(f"# {time.strftime('%Y-%m-%d')} {platform.node()} python {platform.python_version()}")
     cases = [("four giants, dt 0.5 yr", job_spec("veyra-giants.toml", "500000 yr")),
              ("eight planets, dt 4 d", job_spec("veyra-full.toml", "4000000 d"))]

@@ -43,17 +43,26 @@ def claim_mates(worker, claim):
     # The workers of one pool split the ensemble between them rather than the
     # first one taking every member it can.
     share = -(-worker.ledger.active_members(row["ensemble_id"]) // worker.peers)
+    want = min(worker.lanes, share, _fit(row)) - 1
     mates = []
-    for job_id in worker.ledger.batch_mates(row, min(worker.lanes, share, _fit(row)) - 1):
-        c = worker.ledger.claim(worker.owner, now=worker.clock(), job_id=job_id,
-                                order=worker.order, provenance=provenance.collect())
-        if c is None:
-            continue  # taken by another worker meanwhile
-        if c.job["steps_done"] != row["steps_done"]:
-            left = worker.ledger.give_back(c, now=worker.clock()) or JobStatus.QUEUED
-            worker.ledger.end_segment(c.segment_id, None, left.value, now=worker.clock())
-            continue
-        mates.append(c)
+    # Workers starting together ask for the same queued members; a member
+    # another worker took meanwhile is replaced by asking again (each round
+    # offers only members still queued, so the rounds end), so that no worker
+    # is left with a small batch beside a full one.
+    while len(mates) < want:
+        offered = worker.ledger.batch_mates(row, want - len(mates), now=worker.clock())
+        if not offered:
+            break
+        for job_id in offered:
+            c = worker.ledger.claim(worker.owner, now=worker.clock(), job_id=job_id,
+                                    order=worker.order, provenance=provenance.collect())
+            if c is None:
+                continue  # taken by another worker meanwhile
+            if c.job["steps_done"] != row["steps_done"]:
+                left = worker.ledger.give_back(c, now=worker.clock()) or JobStatus.QUEUED
+                worker.ledger.end_segment(c.segment_id, None, left.value, now=worker.clock())
+                continue  # moved on meanwhile (no longer level, so not offered again)
+            mates.append(c)
     return mates
 
 

@@ -4,7 +4,7 @@ giving work back, segments of work and events (part of
 
 import json
 
-from sqlalchemy import and_, func, insert, select, update
+from sqlalchemy import and_, func, insert, or_, select, update
 
 from orbitledger.runner.errors import FencedError, LedgerError
 from orbitledger.runner.execution.failpoints import failpoint
@@ -76,20 +76,27 @@ class WorkerSide:
         return Claim(int(row["id"]), fence, owner, expires, seg, job,
                      None if ck is None else dict(ck))
 
-    def batch_mates(self, job, limit):
-        """Ids of up to `limit` queued members of the job's ensemble that can share a
-        batch with it: the same progress, span, chunk, cadence, step and priority (so
-        they stand level with it in breadth-first order), lowest ids first."""
+    def batch_mates(self, job, limit, now=None):
+        """Ids of up to `limit` claimable members of the job's ensemble (queued, or
+        running with a lapsed lease or a dead local owner, as :meth:`claim` takes
+        them) that can share a batch with it: the same progress, span, chunk,
+        cadence, step and priority (so they stand level with it in breadth-first
+        order), lowest ids first."""
         if job["ensemble_id"] is None or limit <= 0:
             return []
         c = jobs.c
-        q = select(c.id).where(and_(
-            c.ensemble_id == job["ensemble_id"], c.status == JobStatus.QUEUED.value,
-            c.id != job["id"], c.steps_done == job["steps_done"],
-            c.total_steps == job["total_steps"], c.chunk_steps == job["chunk_steps"],
-            c.output_steps == job["output_steps"], c.dt == job["dt"],
-            c.method == job["method"], c.priority == job["priority"])).order_by(c.id).limit(limit)
         with self.engine.connect() as conn:
+            dead = _dead_local_owners(conn)
+            claimable = or_(c.status == JobStatus.QUEUED.value, and_(
+                c.status == JobStatus.RUNNING.value,
+                or_(c.lease_expires < _now(now), c.id.in_(dead))))
+            q = select(c.id).where(and_(
+                c.ensemble_id == job["ensemble_id"], claimable,
+                c.id != job["id"], c.steps_done == job["steps_done"],
+                c.total_steps == job["total_steps"], c.chunk_steps == job["chunk_steps"],
+                c.output_steps == job["output_steps"], c.dt == job["dt"],
+                c.method == job["method"],
+                c.priority == job["priority"])).order_by(c.id).limit(limit)
             return [int(r[0]) for r in conn.execute(q)]
 
     def note_kernel(self, segment_ids, kernel):
