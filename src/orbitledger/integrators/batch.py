@@ -104,6 +104,46 @@ def _halley_lane(w, m, mu, c0, c1, c2, c3):
 
 
 @njit(cache=True, error_model="numpy", inline="always")
+def _stumpff_rows(w, nl, live_only):
+    """:func:`integrators.kepler.stumpff` of row _Y of every lane (with live_only,
+    of the lanes still iterating, row _ST == 0) into rows _C0.._C3: the argument
+    quartered while any lane needs it (a lane stops where its scalar loop
+    would), the series, then each lane's own number of doublings. Row _Y is
+    left quartered."""
+    for m in range(nl):
+        w[_NQ * _PITCH + m] = 0.0
+    rounds = 0
+    for _q in range(_STUMPFF_MAX_QUARTERS):
+        need = 0
+        for m in range(nl):
+            y = w[_Y * _PITCH + m]
+            more = (w[_ST * _PITCH + m] == 0.0 or not live_only) and _is_large(y)
+            w[_Y * _PITCH + m] = y * 0.25 if more else y
+            w[_NQ * _PITCH + m] += 1.0 if more else 0.0
+            need += 1 if more else 0
+        if need == 0:
+            break
+        rounds += 1
+    for m in range(nl):
+        y = w[_Y * _PITCH + m]
+        c0, c1, c2, c3 = stumpff_series(y)
+        bad = _is_large(y)
+        w[_C0 * _PITCH + m] = np.nan if bad else c0
+        w[_C1 * _PITCH + m] = np.nan if bad else c1
+        w[_C2 * _PITCH + m] = np.nan if bad else c2
+        w[_C3 * _PITCH + m] = np.nan if bad else c3
+    for q in range(rounds):
+        for m in range(nl):
+            c0, c1, c2, c3 = stumpff_double(w[_C0 * _PITCH + m], w[_C1 * _PITCH + m],
+                                            w[_C2 * _PITCH + m], w[_C3 * _PITCH + m])
+            go = q < w[_NQ * _PITCH + m]
+            w[_C0 * _PITCH + m] = c0 if go else w[_C0 * _PITCH + m]
+            w[_C1 * _PITCH + m] = c1 if go else w[_C1 * _PITCH + m]
+            w[_C2 * _PITCH + m] = c2 if go else w[_C2 * _PITCH + m]
+            w[_C3 * _PITCH + m] = c3 if go else w[_C3 * _PITCH + m]
+
+
+@njit(cache=True, error_model="numpy", inline="always")
 def _drift_lanes(x, v, i, mu, h, nl, w, tangent, dx, dv):
     """Kepler drift of Jacobi row i of every lane by h[lane], in place; with
     `tangent`, the tangent vectors (dx, dv) (n, 3, B) are carried with it
@@ -142,38 +182,7 @@ def _drift_lanes(x, v, i, mu, h, nl, w, tangent, dx, dv):
                 left += flags & 1
                 large += flags >> 1
         else:
-            # Quarter the argument while any lane needs it (a lane stops where
-            # its scalar loop would), the series, then each lane's doublings.
-            for m in range(nl):
-                w[_NQ * _PITCH + m] = 0.0
-            rounds = 0
-            for _q in range(_STUMPFF_MAX_QUARTERS):
-                need = 0
-                for m in range(nl):
-                    y = w[_Y * _PITCH + m]
-                    more = w[_ST * _PITCH + m] == 0.0 and _is_large(y)
-                    w[_Y * _PITCH + m] = y * 0.25 if more else y
-                    w[_NQ * _PITCH + m] += 1.0 if more else 0.0
-                    need += 1 if more else 0
-                if need == 0:
-                    break
-                rounds += 1
-            for m in range(nl):
-                y = w[_Y * _PITCH + m]
-                c0, c1, c2, c3 = stumpff_series(y)
-                bad = _is_large(y)
-                w[_C0 * _PITCH + m] = np.nan if bad else c0
-                w[_C1 * _PITCH + m] = np.nan if bad else c1
-                w[_C2 * _PITCH + m] = np.nan if bad else c2
-                w[_C3 * _PITCH + m] = np.nan if bad else c3
-            for q in range(rounds):
-                for m in range(nl):
-                    c0, c1, c2, c3 = stumpff_double(w[_C0 * _PITCH + m], w[_C1 * _PITCH + m], w[_C2 * _PITCH + m], w[_C3 * _PITCH + m])
-                    go = q < w[_NQ * _PITCH + m]
-                    w[_C0 * _PITCH + m] = c0 if go else w[_C0 * _PITCH + m]
-                    w[_C1 * _PITCH + m] = c1 if go else w[_C1 * _PITCH + m]
-                    w[_C2 * _PITCH + m] = c2 if go else w[_C2 * _PITCH + m]
-                    w[_C3 * _PITCH + m] = c3 if go else w[_C3 * _PITCH + m]
+            _stumpff_rows(w, nl, True)
             large = 0
             for m in range(nl):
                 flags = _halley_lane(w, m, mu, w[_C0 * _PITCH + m], w[_C1 * _PITCH + m], w[_C2 * _PITCH + m], w[_C3 * _PITCH + m])
@@ -199,20 +208,29 @@ def _drift_lanes(x, v, i, mu, h, nl, w, tangent, dx, dv):
                 w[_G2 * _PITCH + m] = g2
     if tangent:
         # From the state before the drift and the solver's root: the scalar
-        # tangent drift's arithmetic (the start is taken again for the number
-        # of whole periods it removed; the same operations, so the same bits).
+        # tangent drift's arithmetic. The Stumpff functions at the root for
+        # every lane at once (quartered while any lane needs it, as in the
+        # solver's rounds), then the tangent in one pass over the lanes (the
+        # start is taken again for the number of whole periods it removed:
+        # the same operations, so the same bits).
+        for m in range(nl):
+            s = w[_S * _PITCH + m]
+            w[_Y * _PITCH + m] = w[_BETA * _PITCH + m] * s * s
+        _stumpff_rows(w, nl, False)
         for m in range(nl):
             x0, x1, x2 = x[i, 0, m], x[i, 1, m], x[i, 2, m]
             v0, v1, v2 = v[i, 0, m], v[i, 1, m], v[i, 2, m]
             r0, ir0, eta0, beta, _, whole, period = drift_start(x0, x1, x2, v0, v1, v2, mu, h[m])
+            s = w[_S * _PITCH + m]
             r = w[_RR * _PITCH + m]
             g1 = w[_G1 * _PITCH + m]
             g2 = w[_G2 * _PITCH + m]
             _, g, f, fd, gdm1 = lagrange(mu, r0, ir0, eta0, r, g1, g2)
             p0, p1, p2, q0, q1, q2 = drift_tangent(
                 x0, x1, x2, v0, v1, v2, dx[i, 0, m], dx[i, 1, m], dx[i, 2, m], dv[i, 0, m],
-                dv[i, 1, m], dv[i, 2, m], mu, r0, ir0, eta0, beta, whole, period,
-                w[_S * _PITCH + m], r, w[_G0 * _PITCH + m], g1, g2, f, g, fd, gdm1)
+                dv[i, 1, m], dv[i, 2, m], mu, r0, ir0, eta0, beta, whole, period, s, r,
+                w[_G0 * _PITCH + m], g1, g2, f, g, fd, gdm1, w[_C2 * _PITCH + m],
+                w[_C3 * _PITCH + m])
             dx[i, 0, m] = p0
             dx[i, 1, m] = p1
             dx[i, 2, m] = p2

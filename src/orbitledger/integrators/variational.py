@@ -108,19 +108,21 @@ def stumpff45(x, c2, c3):
 
 @njit(cache=True, error_model="numpy", inline="always")
 def drift_tangent(x0, x1, x2, v0, v1, v2, d0, d1, d2, e0, e1, e2, mu, r0, ir0, eta0, beta,
-                  whole, period, s, r, g0, g1, g2, f, g, fd, gdm1):
+                  whole, period, s, r, g0, g1, g2, f, g, fd, gdm1, c2, c3):
     """The drift's derivative applied to the tangent vector (d, e) = (dx, dv), from
     the state (x, v) before the drift and the drift's own values: the start
     (:func:`integrators.kepler.drift_start`), the solver's root s with r and G0..G2
-    there, and the Lagrange coefficients. Returns the six new tangent components.
-    Shared by the scalar tangent drift and the batched one (integrators.batch)."""
+    there, the Lagrange coefficients, and the Stumpff values c2, c3 of beta s^2
+    (the batched kernel computes them for all its lanes at once). Returns the
+    six new tangent components. Shared by the scalar tangent drift and the
+    batched one (integrators.batch). (At most 30 arguments: beyond that Python
+    passes them as a tuple, which numba cannot inline.)"""
     # Variations of the invariants of the start.
     dr0 = (x0 * d0 + x1 * d1 + x2 * d2) * ir0
     deta = d0 * v0 + d1 * v1 + d2 * v2 + x0 * e0 + x1 * e1 + x2 * e2
     dbeta = -2.0 * mu * dr0 * ir0 * ir0 - 2.0 * (v0 * e0 + v1 * e1 + v2 * e2)
     # G-functions at the root, and dG_k/dbeta = (k G_(k+2) - s G_(k+1)) / 2.
     xs = beta * s * s
-    c0, c1, c2, c3 = stumpff(xs)
     c4, c5 = stumpff45(xs, c2, c3)
     s2 = s * s
     G3 = s2 * s * c3
@@ -165,9 +167,10 @@ def drift_state_tangent(x0, x1, x2, v0, v1, v2, d0, d1, d2, e0, e1, e2, mu, dt):
     s, r, g0, g1, g2, _, _ = solve_universal(r0, eta0, beta, mu, dt)
     fm1, g, f, fd, gdm1 = lagrange(mu, r0, ir0, eta0, r, g1, g2)
     n0, n1, n2, m0, m1, m2 = apply_lagrange(x0, x1, x2, v0, v1, v2, fm1, g, fd, gdm1)
+    _, _, c2, c3 = stumpff(beta * s * s)
     p0, p1, p2, q0, q1, q2 = drift_tangent(x0, x1, x2, v0, v1, v2, d0, d1, d2, e0, e1, e2, mu,
                                            r0, ir0, eta0, beta, whole, period, s, r, g0, g1,
-                                           g2, f, g, fd, gdm1)
+                                           g2, f, g, fd, gdm1, c2, c3)
     return n0, n1, n2, m0, m1, m2, p0, p1, p2, q0, q1, q2
 
 
