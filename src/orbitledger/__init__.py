@@ -9,7 +9,9 @@ own folders in the repository:
   workers, analysis, presentation and the command line.
 
 The names most used from Python are available here directly, imported on
-first use (``import orbitledger`` itself stays light)::
+first use (``import orbitledger`` itself stays light). For analysis in a
+notebook, ``ol.open_workspace("ledger")`` reads a campaign without writing to
+it (docs/api.md). To run work::
 
     import orbitledger as ol
     spec = ol.load_spec("jobs/veyra-giants.toml")
@@ -40,6 +42,8 @@ _API = {
     "compare_jobs": ("orbitledger.runner.analysis.divergence", "compare_jobs"),
     "job_lyapunov": ("orbitledger.runner.analysis.lyapunov", "job_lyapunov"),
     "OrbitLedgerError": ("orbitledger.runner.errors", "OrbitLedgerError"),
+    "open_workspace": ("orbitledger.runner.api", "open_workspace"),
+    "Workspace": ("orbitledger.runner.api", "Workspace"),
 }
 
 __all__ = sorted(_API) + ["__version__"]

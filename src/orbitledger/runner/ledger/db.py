@@ -146,15 +146,26 @@ def redact(url):
 
 
 def read_only_engine(url):
-    """A read-only engine on an existing SQLite ledger (a read-only workspace), or None.
+    """A read-only engine on an existing ledger, or None if there is none.
 
-    A WAL database whose -wal file is gone was closed cleanly and is opened
-    immutable (SQLite cannot create its shared-memory file on a read-only
-    file system); otherwise read-only with the -wal file's contents.
+    SQLite: a WAL database whose -wal file is gone was closed cleanly and is
+    opened immutable (SQLite cannot create its shared-memory file on a
+    read-only file system); otherwise read-only with the -wal file's contents.
+    PostgreSQL: every transaction read-only (``default_transaction_read_only``).
     """
     import os
 
     parsed = make_url(url)
+    if parsed.get_backend_name() == "postgresql":
+        engine = create_engine(url, pool_pre_ping=True, pool_size=2, max_overflow=2,
+                               connect_args={"options": "-c default_transaction_read_only=on"})
+        try:
+            with engine.connect() as conn:
+                conn.exec_driver_sql("SELECT count(*) FROM jobs")
+        except Exception:  # noqa: BLE001 - not a readable ledger
+            engine.dispose()
+            return None
+        return engine
     if parsed.get_backend_name() != "sqlite" or not parsed.database:
         return None
     path = os.path.abspath(parsed.database)

@@ -40,23 +40,29 @@ class Ledger(Submitting, WorkerSide, Reading):
         Lease granted by claims and heartbeats.
     """
 
-    def __init__(self, url, store_root, lease_seconds=defaults.LEASE_SECONDS):
+    def __init__(self, url, store_root, lease_seconds=defaults.LEASE_SECONDS, read_only=False):
         self.url = url
-        self.engine = make_engine(url)
         self._store_root = store_root
         self._store = None
         self._store_lock = threading.Lock()
         self.lease_seconds = float(lease_seconds)
         from sqlalchemy.exc import SQLAlchemyError
 
-        from orbitledger.runner.ledger.db import redact
+        from orbitledger.runner.ledger.db import read_only_engine, redact
 
+        if read_only:
+            # Asked for (the analysis API): a connection that cannot write.
+            self.engine = read_only_engine(url)
+            if self.engine is None:
+                raise LedgerError(f"cannot open the ledger database {redact(url)} read-only: "
+                                  "no ledger there; check the path or URL.")
+            self.read_only = True
+            return
+        self.engine = make_engine(url)
         self.read_only = False
         try:
             create_schema(self.engine)
         except SQLAlchemyError as err:
-            from orbitledger.runner.ledger.db import read_only_engine
-
             ro = read_only_engine(url)
             if ro is None:
                 reason = str(getattr(err, "orig", err)).strip().splitlines()[0]
