@@ -64,6 +64,54 @@ def test_a_term_in_the_invariable_plane_frame_is_the_same_frequency():
     assert naff(z2[:, 0], 10.0, 1)[0].frequency == pytest.approx(3e-3, rel=1e-9)
 
 
+def test_a_tilted_frame_is_rotated_to_its_invariable_plane():
+    # An orbit whose normal precesses uniformly (rate nu) at i0 = 3 deg about an
+    # axis k tilted 20 deg from z, its pericentre advancing at mu: in the frame
+    # of k (invariable_rotation(k)) zeta = sin(i0/2) exp(i(Omega0 + nu t) + i alpha)
+    # and z = e exp(i(Omega0 + omega0 + (nu + mu) t) + i alpha), one term each,
+    # alpha the angle between the frame's x axis and the one used to build the
+    # orbit (here chosen on purpose as not the node of the tilted plane). The
+    # elements in the original frame come from the orbit normal and pericentre
+    # vectors by the usual conversion (Murray & Dermott 1999, sec. 2.8).
+    tilt, phi, alpha = np.radians(20.0), np.radians(35.0), np.radians(50.0)
+    i0, e0, nu, mu = np.radians(3.0), 0.05, 1e-3, 2e-3
+    t = np.arange(4000) * 10.0
+    big_o, small_o = 0.4 + nu * t, 1.1 + mu * t
+    k = np.array([np.sin(tilt) * np.cos(phi), np.sin(tilt) * np.sin(phi), np.cos(tilt)])
+    node_line = np.cross([0.0, 0.0, 1.0], k)
+    node_line /= np.linalg.norm(node_line)
+    ex = np.cos(alpha) * node_line + np.sin(alpha) * np.cross(k, node_line)
+    ey = np.cross(k, ex)
+    # Orbit normal and pericentre direction in the basis (ex, ey, k).
+    n_loc = np.stack([np.sin(i0) * np.sin(big_o), -np.sin(i0) * np.cos(big_o),
+                      np.full_like(t, np.cos(i0))], axis=-1)
+    asc = np.stack([np.cos(big_o), np.sin(big_o), 0.0 * t], axis=-1)
+    p_loc = (np.cos(small_o)[:, None] * asc
+             + np.sin(small_o)[:, None] * np.cross(n_loc, asc))
+    basis = np.stack([ex, ey, k])  # rows: the local axes in the original frame
+    n, p = n_loc @ basis, p_loc @ basis
+    inc = np.arccos(n[:, 2])
+    node = np.arctan2(n[:, 0], -n[:, 1])
+    nvec = np.stack([np.cos(node), np.sin(node), 0.0 * t], axis=-1)
+    peri = np.arctan2(np.sum(p * np.cross(n, nvec), axis=-1), np.sum(p * nvec, axis=-1))
+    els = np.zeros((t.size, 1, 6))
+    els[:, 0, 1] = e0
+    els[:, 0, 2], els[:, 0, 3], els[:, 0, 4] = (np.degrees(x) for x in (inc, node, peri))
+    assert np.ptp(np.degrees(inc)) > 5.9  # 17 to 23 deg to z: the tilt is real
+    z2, zeta2 = signals(els, invariable_rotation(k))
+    tz, tzeta = naff(z2[:, 0], 10.0, 2), naff(zeta2[:, 0], 10.0, 2)
+    assert tzeta[0].frequency == pytest.approx(nu, rel=1e-9)
+    assert tzeta[0].amplitude == pytest.approx(np.sin(i0 / 2), rel=1e-9)
+    assert tzeta[1].amplitude < 1e-9 * tzeta[0].amplitude  # one term only
+    assert np.angle(np.exp(1j * (tzeta[0].phase - 0.4 - alpha))) == pytest.approx(0, abs=1e-8)
+    assert tz[0].frequency == pytest.approx(nu + mu, rel=1e-9)
+    assert tz[0].amplitude == pytest.approx(e0, rel=1e-9)
+    assert np.angle(np.exp(1j * (tz[0].phase - 1.5 - alpha))) == pytest.approx(0, abs=1e-8)
+    # Without the rotation the same orbit is not one term of amplitude sin(i0/2).
+    _, zeta_raw = signals(els)
+    assert abs(naff(zeta_raw[:, 0], 10.0, 1)[0].amplitude - np.sin(i0 / 2)) > 0.1
+
+
 # Secular frequencies of the outer solar system, arcsec per year: Laskar et
 # al. (2004, A&A 428, 261), Table 3 (from memory).
 LASKAR_2004 = {"g5": 4.257482, "g6": 28.245343, "g7": 3.087946, "g8": 0.673019,
