@@ -1,7 +1,7 @@
 """The batched member kernel against the scalar kernel, side by side.
 
 An ensemble of clones (one part in 1e12 apart) of a shipped example's system
-is advanced by the batched kernel (integrators/batch.py) with several batch
+is advanced by the batched kernel (integrators/batch/) with several batch
 sizes, and member by member by the scalar kernel, alternated in one run, best
 of several repetitions each. Reported: ns per member-step and the speed-up
 (scalar ns / batched ns). Every batched member is checked to end on the

@@ -22,7 +22,7 @@ MAX_STEPS_PER_CALL = 50_000
 # signals, hold and cancel requests are seen within about this long.
 SLICE_SECONDS = 0.5
 # Members of one ensemble a worker claims and advances together with the
-# batched kernel (integrators/batch.py); 1 runs every member alone. Measured
+# batched kernel (integrators/batch/); 1 runs every member alone. Measured
 # (docs/benchmarks.md, "Batched members"): the batch's speed-up grows with its
 # size (8 lanes 1.6-1.8x the scalar kernel, 32 lanes 2.8-3.0x) and little beyond.
 BATCH_LANES = 32
