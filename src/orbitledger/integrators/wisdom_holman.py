@@ -12,7 +12,7 @@ general-relativistic term of the star (Nobili & Roxburgh 1986) joins the kick.
 """
 
 import numpy as np
-from numba import njit
+from numba import literally, njit
 
 from . import correctors
 from .base import Integrator
@@ -88,31 +88,66 @@ def wh_diagnose(xj, vj, gm, mu, mr, dt, pending, gr_coef, a_arr, c_arr, cx, cv, 
     return diagnose(xo, vo, gm, gr_coef, els)
 
 
+# What a step carries besides the massive bodies (a compile-time constant of
+# the one step loop below, so each kind compiles to its own loop).
+PLAIN, TANGENT, PARTICLES = 0, 1, 2
+
+
 @njit(cache=True, error_model="numpy", nogil=True)
-def wh_steps(xj, vj, gm, mu, mr, dt, n_steps, pending, gr_coef, pairs, params, xi, acc, rh,
-             step0, every, a_inv, c_inv, scratch, out_g, out_el, row0):
-    """Take n_steps merged drift-kick-drift steps in place.
+def wh_loop(kind, xj, vj, gm, mu, mr, dt, n_steps, pending, gr_coef, pairs, params, xi, acc,
+            rh, step0, every, a_inv, c_inv, scratch, out_g, out_el, row0, tan, part):
+    """Take n_steps merged drift-kick-drift steps in place: the map's one step loop.
 
     With every > 0, after each step whose absolute number (step0 + k + 1) is
     a multiple of every, a synchronized copy is diagnosed into row `rows` of
     out_g (step, G*energy, G*Lx, G*Ly, G*Lz) and out_el (elements): outputs
     never touch the live state. Returns (steps taken, pending flag, stop
     code, body a, body b, next free row).
+
+    `kind` (a literal: numba compiles one loop per kind, the others' code
+    removed) says what the step carries besides the massive bodies, whose
+    arithmetic is the same in every kind:
+
+    - PLAIN: nothing (`tan` and `part` are unused stand-ins);
+    - TANGENT: the tangent vector tan = (dxj, dvj, sums, dxi, dacc, out_ind)
+      with the map, the MEGNO sums after each step
+      (:mod:`integrators.variational`), and per sample row (<Y>, mean
+      log-growth per step) in out_ind;
+    - PARTICLES: test particles part = (px, pv, alive, events, mu_all, hill_f,
+      own_step0) (:mod:`integrators.particles`); particles meeting a stop
+      condition are removed and recorded in `events` with the integrator's
+      own step number (own_step0 + k + 1, not shifted by a sample offset);
+      only the massive bodies' stops end the call.
     """
+    kind = literally(kind)
     half = 0.5 * dt
     check = params[0] > 0.0
     rows = row0
     # Steps until the next sample (a countdown: no integer division per step).
     until = every - step0 % every if every > 0 else -1
     for k in range(n_steps):
-        if pending:
-            drift_all(xj, vj, mu, dt)
+        h = dt if pending else half
+        if kind == TANGENT:
+            drift_all_tangent(xj, vj, tan[0], tan[1], mu, h)
         else:
-            drift_all(xj, vj, mu, half)
-            pending = True
+            drift_all(xj, vj, mu, h)
+        if kind == PARTICLES:
+            drift_particles(part[0], part[1], part[2], part[4], h)
+        pending = True
         kick(xj, vj, gm, mu, mr, dt, gr_coef, xi, acc)
+        if kind == TANGENT:
+            kick_tangent(xj, xi, tan[0], tan[1], gm, mu, mr, dt, gr_coef, tan[3], tan[4])
+        if kind == PARTICLES:
+            kick_particles(part[0], part[1], part[2], xi, xj[0], gm, part[4], dt)
         if is_broken(vj[vj.shape[0] - 1, 0]):
             return k + 1, pending, NUMERICAL_FAILURE_CODE, first_broken(xj, vj), -1, rows
+        if kind == TANGENT:
+            megno_update(tan[0], tan[1], tan[2])
+        if kind == PARTICLES:
+            # Always: a particle whose state is no longer finite is removed even
+            # with every stop condition off.
+            check_particles(part[0], part[2], part[3], xi, xj[0], part[5], params,
+                            part[6] + k + 1)
         if check:
             code, a, b = check_stops(xi, xj, vj, mu, pairs, params, rh)
             if code != 0:
@@ -128,101 +163,49 @@ def wh_steps(xj, vj, gm, mu, mr, dt, n_steps, pending, gr_coef, pairs, params, x
             out_g[rows, 2] = lx
             out_g[rows, 3] = ly
             out_g[rows, 4] = lz
+            if kind == TANGENT:
+                sums = tan[2]
+                tan[5][rows, 0] = sums[2] / sums[0]
+                tan[5][rows, 1] = sums[3] / sums[0]
             rows += 1
     return n_steps, pending, 0, -1, -1, rows
+
+
+@njit(cache=True, error_model="numpy", nogil=True)
+def wh_steps(xj, vj, gm, mu, mr, dt, n_steps, pending, gr_coef, pairs, params, xi, acc, rh,
+             step0, every, a_inv, c_inv, scratch, out_g, out_el, row0):
+    """:func:`wh_loop` of the massive bodies alone (same arguments and return)."""
+    z = np.empty((0, 3))
+    zi = np.empty((0, 3), dtype=np.int64)
+    return wh_loop(PLAIN, xj, vj, gm, mu, mr, dt, n_steps, pending, gr_coef, pairs, params, xi,
+                   acc, rh, step0, every, a_inv, c_inv, scratch, out_g, out_el, row0,
+                   (z, z, np.empty(0), z, z, np.empty((0, 2))),
+                   (z, z, np.empty(0, dtype=np.int64), zi, 0.0, np.empty(0), 0))
 
 
 @njit(cache=True, error_model="numpy", nogil=True)
 def wh_steps_tangent(xj, vj, gm, mu, mr, dt, n_steps, pending, gr_coef, pairs, params, xi,
                      acc, rh, step0, every, a_inv, c_inv, scratch, out_g, out_el, row0,
                      dxj, dvj, sums, dxi, dacc, out_ind):
-    """:func:`wh_steps` carrying the tangent vector (dxj, dvj) with the map and
-    accumulating the MEGNO sums after each step (see :mod:`integrators.variational`).
-
-    The state's arithmetic is wh_steps' own, so the trajectory is the same bit
-    for bit. Each sample row also gets (sums[2] / sums[0], sums[3] / sums[0])
-    in out_ind: <Y> and the mean log-growth per step.
-    """
-    half = 0.5 * dt
-    check = params[0] > 0.0
-    rows = row0
-    until = every - step0 % every if every > 0 else -1
-    for k in range(n_steps):
-        if pending:
-            drift_all_tangent(xj, vj, dxj, dvj, mu, dt)
-        else:
-            drift_all_tangent(xj, vj, dxj, dvj, mu, half)
-            pending = True
-        kick(xj, vj, gm, mu, mr, dt, gr_coef, xi, acc)
-        kick_tangent(xj, xi, dxj, dvj, gm, mu, mr, dt, gr_coef, dxi, dacc)
-        if is_broken(vj[vj.shape[0] - 1, 0]):
-            return k + 1, pending, NUMERICAL_FAILURE_CODE, first_broken(xj, vj), -1, rows
-        megno_update(dxj, dvj, sums)
-        if check:
-            code, a, b = check_stops(xi, xj, vj, mu, pairs, params, rh)
-            if code != 0:
-                return k + 1, pending, code, a, b, rows
-        until -= 1
-        if until == 0:
-            until = every
-            e, lx, ly, lz = wh_diagnose(xj, vj, gm, mu, mr, dt, pending, gr_coef, a_inv, c_inv,
-                                        scratch[0], scratch[1], scratch[2], scratch[3],
-                                        scratch[4], scratch[5], out_el[rows])
-            out_g[rows, 0] = step0 + k + 1
-            out_g[rows, 1] = e
-            out_g[rows, 2] = lx
-            out_g[rows, 3] = ly
-            out_g[rows, 4] = lz
-            out_ind[rows, 0] = sums[2] / sums[0]
-            out_ind[rows, 1] = sums[3] / sums[0]
-            rows += 1
-    return n_steps, pending, 0, -1, -1, rows
+    """:func:`wh_loop` carrying the tangent vector (dxj, dvj) and the MEGNO sums."""
+    z = np.empty((0, 3))
+    zi = np.empty((0, 3), dtype=np.int64)
+    return wh_loop(TANGENT, xj, vj, gm, mu, mr, dt, n_steps, pending, gr_coef, pairs, params,
+                   xi, acc, rh, step0, every, a_inv, c_inv, scratch, out_g, out_el, row0,
+                   (dxj, dvj, sums, dxi, dacc, out_ind),
+                   (z, z, np.empty(0, dtype=np.int64), zi, 0.0, np.empty(0), 0))
 
 
 @njit(cache=True, error_model="numpy", nogil=True)
 def wh_steps_particles(xj, vj, gm, mu, mr, dt, n_steps, pending, gr_coef, pairs, params, xi,
                        acc, rh, step0, every, a_inv, c_inv, scratch, out_g, out_el, row0,
                        px, pv, alive, events, mu_all, hill_f, own_step0):
-    """:func:`wh_steps` with test particles (see :mod:`integrators.particles`).
-
-    The massive bodies' arithmetic is wh_steps' own. Particles meeting a stop
-    condition are removed and recorded in `events` with the integrator's own
-    step number (own_step0 + k + 1, not shifted by a sample offset); only the
-    massive bodies' stops end the call.
-    """
-    half = 0.5 * dt
-    check = params[0] > 0.0
-    rows = row0
-    until = every - step0 % every if every > 0 else -1
-    for k in range(n_steps):
-        h = dt if pending else half
-        drift_all(xj, vj, mu, h)
-        drift_particles(px, pv, alive, mu_all, h)
-        pending = True
-        kick(xj, vj, gm, mu, mr, dt, gr_coef, xi, acc)
-        kick_particles(px, pv, alive, xi, xj[0], gm, mu_all, dt)
-        if is_broken(vj[vj.shape[0] - 1, 0]):
-            return k + 1, pending, NUMERICAL_FAILURE_CODE, first_broken(xj, vj), -1, rows
-        # Always: a particle whose state is no longer finite is removed even
-        # with every stop condition off.
-        check_particles(px, alive, events, xi, xj[0], hill_f, params, own_step0 + k + 1)
-        if check:
-            code, a, b = check_stops(xi, xj, vj, mu, pairs, params, rh)
-            if code != 0:
-                return k + 1, pending, code, a, b, rows
-        until -= 1
-        if until == 0:
-            until = every
-            e, lx, ly, lz = wh_diagnose(xj, vj, gm, mu, mr, dt, pending, gr_coef, a_inv, c_inv,
-                                        scratch[0], scratch[1], scratch[2], scratch[3],
-                                        scratch[4], scratch[5], out_el[rows])
-            out_g[rows, 0] = step0 + k + 1
-            out_g[rows, 1] = e
-            out_g[rows, 2] = lx
-            out_g[rows, 3] = ly
-            out_g[rows, 4] = lz
-            rows += 1
-    return n_steps, pending, 0, -1, -1, rows
+    """:func:`wh_loop` with test particles."""
+    z = np.empty((0, 3))
+    return wh_loop(PARTICLES, xj, vj, gm, mu, mr, dt, n_steps, pending, gr_coef, pairs, params,
+                   xi, acc, rh, step0, every, a_inv, c_inv, scratch, out_g, out_el, row0,
+                   (z, z, np.empty(0), z, z, np.empty((0, 2))),
+                   (px, pv, alive, events, mu_all, hill_f, own_step0))
 
 
 @njit(cache=True, error_model="numpy")
@@ -380,29 +363,22 @@ class WisdomHolman(Integrator):
         if out_g is None:
             out_g, out_el = self._no_out
         a_inv, c_inv = self._inv
+        args = (self.xj, self.vj, self.gm, self.mu, self.mr, self.dt, n, self.pending,
+                self.gr_coef, self._stop_pairs, self._stop_params, self._xi, self._acc, self._rh,
+                self.step + self.sample_offset, every, a_inv, c_inv, self._diag_scratch, out_g,
+                out_el, row0)
         if self.particles is not None:
             px, pv, alive, events = self.particles
             steps, self.pending, code, a, b, rows = wh_steps_particles(
-                self.xj, self.vj, self.gm, self.mu, self.mr, self.dt, n, self.pending,
-                self.gr_coef, self._stop_pairs, self._stop_params, self._xi, self._acc, self._rh,
-                self.step + self.sample_offset, every, a_inv, c_inv, self._diag_scratch, out_g,
-                out_el, row0, px, pv, alive, events, self.eta[-1],
+                *args, px, pv, alive, events, self.eta[-1],
                 hill_factors(self.gm, self.stops.hill), self.step)
-            return steps, code, a, b, rows
-        if self.tangent is not None:
+        elif self.tangent is not None:
             dx, dv, sums = self.tangent
             steps, self.pending, code, a, b, rows = wh_steps_tangent(
-                self.xj, self.vj, self.gm, self.mu, self.mr, self.dt, n, self.pending,
-                self.gr_coef, self._stop_pairs, self._stop_params, self._xi, self._acc, self._rh,
-                self.step + self.sample_offset, every, a_inv, c_inv, self._diag_scratch, out_g,
-                out_el, row0, dx, dv, sums, self._tan_scratch[0], self._tan_scratch[1],
+                *args, dx, dv, sums, self._tan_scratch[0], self._tan_scratch[1],
                 self._no_ind if out_ind is None else out_ind)
-            return steps, code, a, b, rows
-        steps, self.pending, code, a, b, rows = wh_steps(
-            self.xj, self.vj, self.gm, self.mu, self.mr, self.dt, n, self.pending,
-            self.gr_coef, self._stop_pairs, self._stop_params, self._xi, self._acc, self._rh,
-            self.step + self.sample_offset, every, a_inv, c_inv, self._diag_scratch, out_g,
-            out_el, row0)
+        else:
+            steps, self.pending, code, a, b, rows = wh_steps(*args)
         return steps, code, a, b, rows
 
     def _synchronized_state(self):
