@@ -11,6 +11,10 @@ from orbitledger.integrators import G, Integrator, StopConditions, System, Wisdo
 
 M_PLANET = 1e-3
 YEAR = 365.25
+# Bound on the measured small-libration period against linear theory: 2e-5
+# found for a 0.6 deg amplitude (the same to 4e-8 from scipy's DOP853 at
+# rtol 1e-12), so about 10x that.
+REL_PERIOD = 2e-4
 
 
 def star_and_planet():
@@ -79,6 +83,47 @@ def test_a_particle_near_l4_stays_on_a_tadpole_orbit():
         angles.append(d % 360.0)
     angles = np.array(angles)
     assert 40.0 < angles.min() < 60.0 < angles.max() < 90.0, (angles.min(), angles.max())
+
+
+def test_small_librations_about_l4_have_the_linear_period():
+    # Linear theory about L4 (Murray & Dermott 1999, sec. 3.8): the slow mode's
+    # frequency w satisfies w^4 - w^2 + (27/4) mu (1 - mu) = 0 in units of the
+    # primaries' mean motion n, so w^2 = (1 - sqrt(1 - 27 mu (1 - mu))) / 2,
+    # about 27 mu / 4 (the usual 2 pi / (n sqrt(27 mu / 4))). A particle 0.6 deg
+    # from L4 librates with that period up to terms in the amplitude squared.
+    # It starts at rest in the frame turning with the planet (velocity n z x r):
+    # a heliocentric circular speed instead excites the fast mode as much as
+    # the slow one, and the zero crossings then miss the period by 2 %.
+    s = star_and_planet()
+    n = math.sqrt(G * (1.0 + M_PLANET))  # a = 1 au, days^-1
+    x, _ = circular(1.0, math.pi / 3 + math.radians(0.6))
+    v = n * np.array([-x[1], x[0], 0.0])
+    dt = YEAR / 200
+    wh = WisdomHolman(s, dt, particles=(x[None], v[None]))
+    every = 20
+    t, angles = [], []
+    for k in range(6000):  # 600 yr, about 49 librations, a sample every 0.1 yr
+        wh.advance(every)
+        px, _ = wh.particle_states()
+        sx = wh.synchronized()
+        planet = sx.x[1] - sx.x[0]  # heliocentric, as the particle's position
+        d = math.atan2(px[0, 1], px[0, 0]) - math.atan2(planet[1], planet[0])
+        angles.append(math.remainder(d - math.pi / 3, 2 * math.pi))
+        t.append((k + 1) * every * dt)
+    t, a = np.array(t), np.array(angles)
+    a -= a.mean()
+    # Upward zero crossings, linearly interpolated.
+    i = np.nonzero((a[:-1] < 0.0) & (a[1:] >= 0.0))[0]
+    tc = t[i] - a[i] * (t[i + 1] - t[i]) / (a[i + 1] - a[i])
+    period = (tc[-1] - tc[0]) / (len(tc) - 1)
+    mu = M_PLANET / (1.0 + M_PLANET)
+    assert 0.5 < math.degrees(np.abs(a).max()) < 0.7  # the amplitude is 0.6 deg
+    w2 = (1.0 - math.sqrt(1.0 - 27.0 * mu * (1.0 - mu))) / 2.0
+    linear = 2.0 * math.pi / (n * math.sqrt(w2))
+    assert len(tc) > 40
+    assert period == pytest.approx(linear, rel=REL_PERIOD), (period / linear - 1)
+    # The usual approximation is 0.29 % off at this mass ratio.
+    assert abs(2.0 * math.pi / (n * math.sqrt(27.0 * mu / 4.0)) / linear - 1) > 2e-3
 
 
 def test_a_particle_meeting_the_planet_is_removed_and_the_run_goes_on():
