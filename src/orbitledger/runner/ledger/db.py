@@ -148,9 +148,11 @@ def redact(url):
 def read_only_engine(url):
     """A read-only engine on an existing ledger, or None if there is none.
 
-    SQLite: a WAL database whose -wal file is gone was closed cleanly and is
-    opened immutable (SQLite cannot create its shared-memory file on a
-    read-only file system); otherwise read-only with the -wal file's contents.
+    SQLite: opened ``mode=ro``, which sees what writers commit while it is
+    open (SQLite makes its -shm and -wal coordination files if they are
+    missing; the database file is not written). On a read-only medium, where
+    those files cannot be made and nobody can write, a database whose -wal
+    file is gone (closed cleanly) is opened immutable.
     PostgreSQL: every transaction read-only (``default_transaction_read_only``).
     """
     import os
@@ -171,7 +173,8 @@ def read_only_engine(url):
     path = os.path.abspath(parsed.database)
     if not os.path.exists(path):
         return None
-    flags = "mode=ro" if os.path.exists(path + "-wal") else "immutable=1"
+    writable = os.access(os.path.dirname(path), os.W_OK)
+    flags = "mode=ro" if writable or os.path.exists(path + "-wal") else "immutable=1"
     engine = create_engine(f"sqlite:///file:{path}?{flags}&uri=true",
                            connect_args={"timeout": defaults.SQLITE_BUSY_MS / 1000,
                                          "check_same_thread": False})
