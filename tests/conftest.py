@@ -50,6 +50,7 @@ def state_bytes(integrator):
 # SQLite files in tmp_path, and a real PostgreSQL server on loopback started
 # once per test session by tests/services/pg.sh (or the server named by
 # $ORBITLEDGER_TEST_PG_URL). Each test gets a database of its own.
+import shutil
 import socket
 import subprocess
 import tempfile
@@ -153,3 +154,37 @@ def pytest_runtest_makereport(item, call):
     if rep.when == "call":
         item.rep_call = rep
     return rep
+
+
+# -- a browser and a read-only workspace, for the tests that need them ------------
+@pytest.fixture(scope="session")
+def chromium():
+    out = subprocess.run(["bash", os.path.join(SERVICES, "chromium.sh")], capture_output=True,
+                         text=True, timeout=900)
+    if out.returncode != 0 or not shutil.which("chromium"):
+        pytest.fail(f"could not install Chromium for the browser tests: {out.stderr[-400:]}")
+    return shutil.which("chromium")
+
+
+@pytest.fixture
+def read_only_workspace(tmp_path):
+    """A workspace with one finished job, seen through a read-only bind mount."""
+    from helpers import small_spec
+    from orbitledger.runner.execution.worker import Worker
+    from orbitledger.runner.ledger.workspace import init
+
+    ws, led = init(tmp_path / "ws")
+    led.submit(small_spec(length="100 yr"))
+    Worker(led).run()
+    led.close()
+    ro = tmp_path / "ro"
+    ro.mkdir()
+    for cmd in (["mount", "--bind", str(ws), str(ro)],
+                ["mount", "-o", "remount,ro,bind", str(ro)]):
+        out = subprocess.run(cmd, capture_output=True, text=True)
+        if out.returncode != 0:
+            subprocess.run(["umount", str(ro)], capture_output=True)
+            pytest.fail(f"a read-only bind mount is needed (run the tests as root): "
+                        f"{out.stderr.strip()}")
+    yield ro
+    subprocess.run(["umount", str(ro)], capture_output=True)

@@ -249,28 +249,6 @@ def test_backward_at_a_time_and_compare_along_its_own_axis(tmp_path):
     led.close()
 
 
-@pytest.fixture
-def read_only_workspace(tmp_path):
-    """A workspace with one finished job, seen through a read-only bind mount."""
-    from orbitledger.runner.execution.worker import Worker
-
-    ws, led = init(tmp_path / "ws")
-    led.submit(small_spec(length="100 yr"))
-    Worker(led).run()
-    led.close()
-    ro = tmp_path / "ro"
-    ro.mkdir()
-    for cmd in (["mount", "--bind", str(ws), str(ro)],
-                ["mount", "-o", "remount,ro,bind", str(ro)]):
-        out = subprocess.run(cmd, capture_output=True, text=True)
-        if out.returncode != 0:
-            subprocess.run(["umount", str(ro)], capture_output=True)
-            pytest.fail(f"a read-only bind mount is needed (run the tests as root): "
-                        f"{out.stderr.strip()}")
-    yield ro
-    subprocess.run(["umount", str(ro)], capture_output=True)
-
-
 def test_read_only_workspace_is_viewable(read_only_workspace, tmp_path):
     ro = read_only_workspace
     assert not os.access(ro, os.W_OK)

@@ -1,27 +1,14 @@
 """The HTML report opens in headless Chromium and renders its plots."""
 
-import os
-import shutil
 import subprocess
 
 import numpy as np
-import pytest
 from typer.testing import CliRunner
 
 from orbitledger.runner.cli import app
 from orbitledger.runner.execution.worker import Worker
 from orbitledger.runner.ledger.workspace import init
-from conftest import SERVICES
 from helpers import small_spec
-
-
-@pytest.fixture(scope="module")
-def chromium():
-    out = subprocess.run(["bash", os.path.join(SERVICES, "chromium.sh")], capture_output=True,
-                         text=True, timeout=900)
-    if out.returncode != 0 or not shutil.which("chromium"):
-        pytest.fail(f"could not install Chromium for the report test: {out.stderr[-400:]}")
-    return shutil.which("chromium")
 
 
 def test_report_renders_in_headless_chromium(tmp_path, chromium):

@@ -1,10 +1,12 @@
 """Commands that put committed work out or check it: report, plot, compare,
-export, backward, reversibility, verify, replay."""
+export, backward, reversibility, verify, replay, and the live page (serve)."""
 
 from pathlib import Path
 from typing import Annotated, Optional
 
 import typer
+
+from orbitledger.runner import defaults
 
 from orbitledger.runner.cli.common import (DbOpt, JobArg, JsonOpt, WorkspaceOpt, _guard, app,
                                            fail, open_ledger, out, print_json, write_atomic)
@@ -187,3 +189,38 @@ def replay(job_id: JobArg, workspace: WorkspaceOpt = None, db: DbOpt = None,
     if bad:
         fail(f"job {job_id}: replay from checkpoint {bad[0]} does not reproduce checkpoint "
              f"{bad[0] + 1}.", code=1)
+
+
+@app.command()
+@_guard
+def serve(workspace: WorkspaceOpt = None, db: DbOpt = None,
+          host: Annotated[str, typer.Option(
+              help="Address to listen on; any but loopback needs --token.")] = "127.0.0.1",
+          port: Annotated[int, typer.Option(help="Port to listen on.")] = 8350,
+          token: Annotated[Optional[str], typer.Option(
+              envvar="ORBITLEDGER_SERVE_TOKEN",
+              help="A secret the page asks for (needed off loopback).")] = None,
+          poll: Annotated[float, typer.Option(help="Seconds between the page's updates.")]
+          = 2.0):
+    """A live, read-only web page of the campaign: jobs, energy errors, ensembles'
+    survival curves and stability maps, events (needs the 'serve' extra)."""
+    from orbitledger.runner.ledger.operations import Ledger
+    from orbitledger.runner.ledger.workspace import check_workspace, db_url
+    from orbitledger.runner.presentation.live import LOOPBACK, make_app
+
+    if host not in LOOPBACK and not token:
+        fail(f"--host {host} opens the page to other machines; give --token SECRET (or "
+             "ORBITLEDGER_SERVE_TOKEN) so that the page asks for it, or use --host 127.0.0.1.")
+    if not 0 < port < 65536:
+        fail(f"--port must be between 1 and 65535, got {port}.")
+    if not poll > 0:
+        fail(f"--poll must be a positive number of seconds, got {poll}.")
+    try:
+        import uvicorn
+    except ImportError:
+        fail("serve needs Starlette, uvicorn and plotly: pip install 'orbitledger[serve]'.")
+    ws = check_workspace(workspace)
+    with Ledger(db_url(ws, db), ws / defaults.STORE_NAME, read_only=True) as ledger:
+        app_ = make_app(ledger, token=token, poll_seconds=poll)
+        out.print(f"serving the campaign read-only at http://{host}:{port}/ (Ctrl-C stops)")
+        uvicorn.run(app_, host=host, port=port, log_level="warning")

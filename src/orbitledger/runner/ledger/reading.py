@@ -69,6 +69,12 @@ class Reading:
         """A job's events, in order."""
         return self._job_rows(events, job_id, events.c.id)
 
+    def recent_events(self, limit):
+        """The latest `limit` events of all jobs, newest first."""
+        with self.engine.connect() as conn:
+            return [dict(r) for r in conn.execute(
+                select(events).order_by(events.c.id.desc()).limit(limit)).mappings()]
+
     def member_outcomes(self, ensemble_id):
         """What outcome statistics need of an ensemble's members (no specs): dicts of
         id, status, outcome, outcome_time, outcome_bodies, steps_done, dt, oldest first."""
