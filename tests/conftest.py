@@ -65,24 +65,65 @@ def _free_port():
         return s.getsockname()[1]
 
 
-@pytest.fixture(scope="session")
-def pg_server():
-    """Admin URL of a running PostgreSQL server."""
-    url = os.environ.get("ORBITLEDGER_TEST_PG_URL")
-    if url:
-        yield url
+# The suite runs on several processes (pytest-xdist, the README's command);
+# one PostgreSQL server serves them all. The first process that needs it
+# starts it under a file lock in a directory the controlling process made
+# (ORBITLEDGER_TEST_SHARED, inherited by the workers) and writes its URL
+# there; the others read the URL; the controlling process stops the server
+# when the run ends.
+SHARED_ENV = "ORBITLEDGER_TEST_SHARED"
+
+
+def pytest_configure(config):
+    if hasattr(config, "workerinput") or os.environ.get(SHARED_ENV):
+        return  # a worker, or a run inside a run: use the controller's directory
+    shared = tempfile.mkdtemp(prefix="orbitledger-tests-")
+    os.chmod(shared, 0o755)
+    os.environ[SHARED_ENV] = shared
+    config._orbitledger_shared = shared
+
+
+def pytest_unconfigure(config):
+    shared = getattr(config, "_orbitledger_shared", None)
+    if shared is None:
         return
-    base = tempfile.mkdtemp(prefix="orbitledger-pg-")
-    os.chmod(base, 0o755)
-    out = subprocess.run(["bash", os.path.join(SERVICES, "pg.sh"), "start", base + "/pg",
+    if os.path.exists(os.path.join(shared, "pg.url")):
+        subprocess.run(["bash", os.path.join(SERVICES, "pg.sh"), "stop", shared + "/pg"],
+                       capture_output=True, timeout=120)
+    os.environ.pop(SHARED_ENV, None)
+    shutil.rmtree(shared, ignore_errors=True)
+
+
+def shared_service(name, start):
+    """The address of a service all test processes of this run share: read
+    from the shared directory, or made by start(directory) -> str under a lock."""
+    import fcntl
+
+    shared = os.environ[SHARED_ENV]
+    with open(os.path.join(shared, name + ".lock"), "w") as lock:
+        fcntl.flock(lock, fcntl.LOCK_EX)
+        path = os.path.join(shared, name + ".url")
+        if not os.path.exists(path):
+            address = start(shared)
+            with open(path + ".tmp", "w") as f:
+                f.write(address)
+            os.replace(path + ".tmp", path)
+        with open(path) as f:
+            return f.read()
+
+
+def _start_pg(shared):
+    out = subprocess.run(["bash", os.path.join(SERVICES, "pg.sh"), "start", shared + "/pg",
                           str(_free_port())], capture_output=True, text=True, timeout=300)
     if out.returncode != 0:
         pytest.fail(f"could not start PostgreSQL for the tests: {out.stderr.strip()}")
-    try:
-        yield out.stdout.strip().splitlines()[-1]
-    finally:
-        subprocess.run(["bash", os.path.join(SERVICES, "pg.sh"), "stop", base + "/pg"],
-                       capture_output=True, timeout=120)
+    return out.stdout.strip().splitlines()[-1]
+
+
+@pytest.fixture(scope="session")
+def pg_server():
+    """Admin URL of a running PostgreSQL server, shared by the run's processes."""
+    return os.environ.get("ORBITLEDGER_TEST_PG_URL") or shared_service("pg", _start_pg)
 
 
 def new_pg_database(admin_url):

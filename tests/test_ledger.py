@@ -1,7 +1,7 @@
 """Ledger conformance: claims, leases, fencing, transitions, extend, hold, cancel.
 
 Workers are driven synchronously in-process with an injected clock where
-timing matters. The same class runs against every backend in BACKENDS.
+timing matters. The same class runs against every backend of the ledger_url fixture (conftest.py).
 """
 
 import numpy as np

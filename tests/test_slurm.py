@@ -21,6 +21,10 @@ from orbitledger.runner.ledger.workspace import init
 from conftest import SERVICES, new_pg_database
 from helpers import final_state, samples_bytes, small_spec_text
 
+# One SLURM per machine (it writes /etc/slurm): the module's tests stay on one
+# test process under pytest-xdist's --dist loadgroup.
+pytestmark = pytest.mark.xdist_group("slurm")
+
 
 @pytest.fixture(scope="module")
 def slurm():

@@ -10,8 +10,8 @@ as_pg() { if [ "$(id -u)" = 0 ]; then setpriv --reuid=postgres --regid=postgres 
 case "$cmd" in
 start)
   if [ -z "$bin" ] || [ ! -x "$bin/pg_ctl" ]; then
-    apt-get update -q >/dev/null
-    DEBIAN_FRONTEND=noninteractive apt-get install -y -q --no-install-recommends postgresql >/dev/null
+    flock /tmp/orbitledger-apt.lock apt-get update -q >/dev/null
+    DEBIAN_FRONTEND=noninteractive flock /tmp/orbitledger-apt.lock apt-get install -y -q --no-install-recommends postgresql >/dev/null
     bin=$(ls -d /usr/lib/postgresql/*/bin | sort -V | tail -1)
   fi
   mkdir -p "$dir"

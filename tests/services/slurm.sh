@@ -14,8 +14,8 @@ case "$cmd" in
 start)
   if ! command -v slurmctld >/dev/null || ! command -v slurmd >/dev/null \
      || ! command -v sbatch >/dev/null || ! command -v munged >/dev/null; then
-    apt-get update -q >/dev/null
-    DEBIAN_FRONTEND=noninteractive apt-get install -y -q --no-install-recommends \
+    flock /tmp/orbitledger-apt.lock apt-get update -q >/dev/null
+    DEBIAN_FRONTEND=noninteractive flock /tmp/orbitledger-apt.lock apt-get install -y -q --no-install-recommends \
       slurmctld slurmd slurm-client munge >/dev/null
   fi
   mkdir -p "$run" "$log" "$state/ctld" "$state/d"
