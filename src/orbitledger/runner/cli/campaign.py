@@ -101,15 +101,18 @@ def work(workspace: WorkspaceOpt = None, db: DbOpt = None,
     from orbitledger.runner.execution.pool import run_pool, self_command
     from orbitledger.runner.execution.worklog import setup_logging
 
-    show = not quiet and out.is_terminal and workers == 1
+    show = not quiet and out.is_terminal
     setup_logging(log_level, log_file, quiet_default=show)
 
     if order not in ("breadth", "depth"):
         fail(f"--order must be 'breadth' or 'depth', got {order!r}.")
     end = None if deadline is None else time.time() + _parse_wall(deadline)
     if workers > 1:
+        # Beside the live lines the workers log warnings only (as one worker does
+        # beside its progress bars), unless a level was asked for.
+        level = log_level or ("warning" if show else "info")
         argv = self_command() + ["work", "--workers", "1", "--order", order, "--quiet",
-                                 "--lease", str(lease), "--log-level", log_level or "info",
+                                 "--lease", str(lease), "--log-level", level,
                                  "--lanes", str(lanes), "--peers", str(workers)]
         if log_file is not None:
             argv += ["--log-file", str(log_file)]
@@ -130,7 +133,10 @@ def work(workspace: WorkspaceOpt = None, db: DbOpt = None,
             open_ledger(workspace, db).close()
         else:
             check_workspace(workspace)
-        code = run_pool(argv, workers)
+        if show:
+            code = _pool_with_lines(argv, workers, workspace, db)
+        else:
+            code = run_pool(argv, workers)
         if _AS_PROGRAM[0]:
             stopflag.exit_now(code)
         raise typer.Exit(code)
@@ -148,6 +154,21 @@ def work(workspace: WorkspaceOpt = None, db: DbOpt = None,
     if _AS_PROGRAM[0]:
         stopflag.exit_now(code)
     raise typer.Exit(code)
+
+
+def _pool_with_lines(argv, workers, workspace, db):
+    """Run the pool with a live line per worker (read from the ledger)."""
+    from orbitledger.runner.execution.pool import run_pool
+    from orbitledger.runner.ledger.workspace import check_workspace, db_url
+    from orbitledger.runner.presentation.pool_lines import PoolLines
+
+    ws = check_workspace(workspace)
+    lines = PoolLines(db_url(ws, db), ws / defaults.STORE_NAME, out)
+    lines.start()
+    try:
+        return run_pool(argv, workers, started=lines.add_worker)
+    finally:
+        lines.stop()
 
 
 def _work_with_progress(ledger, end, job, order, beat, lanes):

@@ -17,7 +17,7 @@ from orbitledger.runner.execution.signals import STOP_SIGNALS
 from orbitledger.runner.execution.worklog import LOG
 
 
-def run_pool(argv_one, n_workers):
+def run_pool(argv_one, n_workers, started=None):
     """Run n_workers worker processes (each `argv_one`) and forward stop signals.
 
     The pool forwards every stop signal to every worker at any moment of its
@@ -27,7 +27,7 @@ def run_pool(argv_one, n_workers):
     and get SIGTERM if the pool dies, and with numpy's BLAS kept to one
     thread unless the user set its variables. Returns the most telling exit code:
     EXIT_FAILED if any failed, else EXIT_WORK_REMAINS if any says work
-    remains, else 0.
+    remains, else 0. `started(pid)`, if given, is told each worker's process id.
     """
     procs = []
     env = one_thread_libraries(dict(os.environ))
@@ -42,6 +42,8 @@ def run_pool(argv_one, n_workers):
     try:
         for _ in range(n_workers):
             procs.append(subprocess.Popen(argv_one, preexec_fn=stopflag.child_setup, env=env))
+            if started is not None:
+                started(procs[-1].pid)
             pending = stopflag.requested()
             if pending is not None:
                 # Asked to stop before or while this worker started: it gets
