@@ -225,3 +225,36 @@ def test_an_error_in_a_batch_hands_every_claim_back(tmp_path, monkeypatch):
         assert row["status"] == "queued" and row["owner"] is None, row["status"]
         assert all(s["ended_at"] is not None for s in led.segments(j))
     led.close()
+
+
+def test_a_batchs_members_are_claimed_in_one_transaction(tmp_path, ledger_url):
+    from sqlalchemy import event
+
+    from orbitledger.runner.execution import batches
+    from orbitledger.runner.ledger import provenance
+
+    led = Ledger(ledger_url(tmp_path), tmp_path / "store")
+    _, ids = led.submit_ensemble(S.load_text(ejecting_ensemble_text("one-tx", members=8)))
+    other = led.claim("elsewhere:1", job_id=ids[5], provenance=provenance.collect())
+    w = Worker(led, lanes=8)
+    first = led.claim(w.owner, provenance=provenance.collect())
+    commits = []
+    listener = lambda conn: commits.append(conn)  # noqa: E731
+    event.listen(led.engine, "commit", listener)
+    try:
+        mates = batches.claim_mates(w, first)
+    finally:
+        event.remove(led.engine, "commit", listener)
+    assert len(commits) == 1  # six members claimed in one transaction (was one each)
+    got = sorted(c.job_id for c in mates)
+    assert got == sorted(set(ids) - {first.job_id, other.job_id})  # the taken one left out
+    for c in mates:
+        row = led.job(c.job_id)
+        assert (row["status"], row["owner"], row["fence"]) == ("running", w.owner, c.fence)
+        assert c.segment_id is not None and c.fence == 1
+    assert led.job(other.job_id)["owner"] == "elsewhere:1"
+    # Nothing is claimed twice: a second worker asking now gets none of them.
+    assert led.claim_each("late:2", ids) == []
+    for c in mates + [first, other]:
+        led.give_back(c)
+    led.close()

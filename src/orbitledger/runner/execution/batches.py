@@ -53,11 +53,13 @@ def claim_mates(worker, claim):
         offered = worker.ledger.batch_mates(row, want - len(mates), now=worker.clock())
         if not offered:
             break
-        for job_id in offered:
-            c = worker.ledger.claim(worker.owner, now=worker.clock(), job_id=job_id,
-                                    order=worker.order, provenance=provenance.collect())
-            if c is None:
-                continue  # taken by another worker meanwhile
+        # One transaction claims every offered member still claimable (a member
+        # another worker took meanwhile is left out of the answer).
+        claims = worker.ledger.claim_each(worker.owner, offered, now=worker.clock(),
+                                          order=worker.order, provenance=provenance.collect())
+        if not claims:
+            continue  # all taken meanwhile: ask again
+        for c in claims:
             if c.job["steps_done"] != row["steps_done"]:
                 left = worker.ledger.give_back(c, now=worker.clock()) or JobStatus.QUEUED
                 worker.ledger.end_segment(c.segment_id, None, left.value, now=worker.clock())

@@ -35,44 +35,64 @@ class WorkerSide:
             # dead process of this host.
             lapsed = {"now": now, "dead": _dead_local_owners(conn)}
             self._apply_lapsed_requests(conn, lapsed, now)
-            # The best queued job and the best lapsed one, each read in claim
-            # order (queued ones through an index), then the better of the two
-            # by the same order: as one query over both, without sorting every
-            # queued row.
-            if order == "breadth":
-                rank = lambda r: (-r["priority"], r["steps_done"], r["id"])  # noqa: E731
-            else:
-                order = "depth"
-                rank = lambda r: (-r["priority"], -r["steps_done"], r["id"])  # noqa: E731
-            found = []
-            for which, params in (("queued", {}), ("lapsed", lapsed)):
-                q = statements.candidate(which, order, job_id is not None,
-                                         not is_sqlite(self.engine))
-                if job_id is not None:
-                    params = dict(params, job_id=job_id)
-                r = conn.execute(q, params).mappings().first()
-                if r is not None:
-                    found.append(dict(r))
-            if not found:
-                return None
-            row = min(found, key=rank)
-            fence = int(row["fence"]) + 1
-            expires = now + self.lease_seconds
-            self._transition(conn, row["id"], row["status"], JobStatus.RUNNING, "claim",
-                             if_fence=row["fence"],
-                             owner=owner, lease_expires=expires, fence=fence, updated_at=now)
-            # Everything the worker needs to start, read in the same transaction.
-            job = dict(self._row(conn, row["id"]))
-            if row["status"] == JobStatus.RUNNING.value:
-                self._event(conn, row["id"], "lease_taken_over", job["steps_done"], None, None,
-                            {"new_owner": owner, "fence": fence}, now)
-                self._close_lapsed_segments(conn, row["id"], job["steps_done"], now)
-            ck = conn.execute(statements.checkpoint_row(), {
-                "job_id": row["id"], "idx": job["n_checkpoints"]}).mappings().first()
-            seg = None
-            if provenance is not None:
-                seg = self._insert_segment(conn, row["id"], fence, owner, job["steps_done"],
-                                           provenance, now)
+            return self._claim_in(conn, lapsed, owner, now, job_id, order, provenance)
+
+    def claim_each(self, owner, job_ids, now=None, order="breadth", provenance=None):
+        """Claims of each of these jobs that is still claimable, in one transaction
+        (a batch's members): one Claim per job, each with its own lease, fencing
+        token and segment, in the order given; a job another worker took
+        meanwhile is left out."""
+        now = _now(now)
+        out = []
+        with self.engine.begin() as conn:
+            lapsed = {"now": now, "dead": _dead_local_owners(conn)}
+            self._apply_lapsed_requests(conn, lapsed, now)
+            for job_id in job_ids:
+                c = self._claim_in(conn, lapsed, owner, now, job_id, order, provenance)
+                if c is not None:
+                    out.append(c)
+        return out
+
+    def _claim_in(self, conn, lapsed, owner, now, job_id, order, provenance):
+        """The claim of :meth:`claim` inside an open transaction."""
+        # The best queued job and the best lapsed one, each read in claim
+        # order (queued ones through an index), then the better of the two
+        # by the same order: as one query over both, without sorting every
+        # queued row.
+        if order == "breadth":
+            rank = lambda r: (-r["priority"], r["steps_done"], r["id"])  # noqa: E731
+        else:
+            order = "depth"
+            rank = lambda r: (-r["priority"], -r["steps_done"], r["id"])  # noqa: E731
+        found = []
+        for which, params in (("queued", {}), ("lapsed", lapsed)):
+            q = statements.candidate(which, order, job_id is not None,
+                                     not is_sqlite(self.engine))
+            if job_id is not None:
+                params = dict(params, job_id=job_id)
+            r = conn.execute(q, params).mappings().first()
+            if r is not None:
+                found.append(dict(r))
+        if not found:
+            return None
+        row = min(found, key=rank)
+        fence = int(row["fence"]) + 1
+        expires = now + self.lease_seconds
+        self._transition(conn, row["id"], row["status"], JobStatus.RUNNING, "claim",
+                         if_fence=row["fence"],
+                         owner=owner, lease_expires=expires, fence=fence, updated_at=now)
+        # Everything the worker needs to start, read in the same transaction.
+        job = dict(self._row(conn, row["id"]))
+        if row["status"] == JobStatus.RUNNING.value:
+            self._event(conn, row["id"], "lease_taken_over", job["steps_done"], None, None,
+                        {"new_owner": owner, "fence": fence}, now)
+            self._close_lapsed_segments(conn, row["id"], job["steps_done"], now)
+        ck = conn.execute(statements.checkpoint_row(), {
+            "job_id": row["id"], "idx": job["n_checkpoints"]}).mappings().first()
+        seg = None
+        if provenance is not None:
+            seg = self._insert_segment(conn, row["id"], fence, owner, job["steps_done"],
+                                       provenance, now)
         return Claim(int(row["id"]), fence, owner, expires, seg, job,
                      None if ck is None else dict(ck))
 
