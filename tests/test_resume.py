@@ -130,3 +130,42 @@ def test_two_workers_never_commit_the_same_stretch(tmp_path):
     states = {final_state(led, j) for j in ids}
     assert len(states) == 1
     led.close()
+
+
+def test_a_batch_killed_at_every_failpoint_resumes_bit_for_bit(tmp_path):
+    # The batched path under the kills above: four members of an ensemble (one
+    # ejected on the way) worked as one batch, the worker killed at each named
+    # failpoint in turn, then finished; every member equals its run alone on
+    # the scalar kernel, byte for byte.
+    from orbitledger.runner.analysis.integrity import verify
+    from orbitledger.runner.inputs import spec as spec_mod
+
+    from helpers import ejecting_ensemble_text
+
+    text = ejecting_ensemble_text("resume-batch", members=4)
+    ref = Ledger(f"sqlite:///{tmp_path}/ref.sqlite", tmp_path / "ref-store")
+    _, ref_ids = ref.submit_ensemble(spec_mod.load_text(text))
+    Worker(ref, lanes=1).run()
+    ws, led = init(tmp_path / "ws")
+    _, ids = led.submit_ensemble(spec_mod.load_text(text))
+    kills = 0
+    for k, mode in enumerate(KILL_POINTS):
+        proc = spawn_work(ws, failpoints=f"{mode}:{1 + k % 3}")
+        rc = proc.wait(timeout=120)
+        assert rc in (0, 3, -signal.SIGKILL), proc.stderr.read()
+        kills += rc == -signal.SIGKILL
+        for j in ids:
+            assert_no_double_commit(led, j)
+    proc = spawn_work(ws)
+    assert proc.wait(timeout=300) == 0, proc.stderr.read()
+    assert kills == len(KILL_POINTS)  # every failpoint is met on the batched path
+    for a, b in zip(ref_ids, ids):
+        assert (ref.job(a)["status"], ref.job(a)["outcome_step"]) == \
+            (led.job(b)["status"], led.job(b)["outcome_step"])
+        assert final_state(led, b) == final_state(ref, a)
+        assert samples_bytes(led, b) == samples_bytes(ref, a)
+        assert verify(led, b).ok
+    assert any('"kernel": "batched' in (s["versions"] or "") for s in led.segments(ids[0]))
+    assert any(led.job(j)["status"] == "stopped" for j in ids)
+    led.close()
+    ref.close()
