@@ -15,14 +15,31 @@ G = 0.01720209895 ** 2  # Gaussian constant squared (IAU 1976)
 def test_nodes_are_the_radau_roots():
     # The interior Gauss-Radau nodes on [0, 1] are the roots other than x = -1 of
     # P7(x) + P8(x), mapped by tau = (x + 1) / 2 (Abramowitz & Stegun 1964, 25.4.31;
-    # Everhart 1985). Computed here with mpmath at 40 digits.
+    # Everhart 1985). All eight roots of that polynomial found here by mpmath at
+    # 40 digits from its coefficients (no starting guesses from the nodes).
     mpmath = pytest.importorskip("mpmath")
-    mpmath.mp.dps = 40
-    roots = []
-    for guess in NODES[1:]:
-        f = lambda x: mpmath.legendre(7, x) + mpmath.legendre(8, x)  # noqa: E731
-        roots.append((mpmath.findroot(f, 2 * guess - 1) + 1) / 2)
-    assert np.allclose(NODES[1:], [float(r) for r in roots], rtol=0, atol=2e-16)
+    from fractions import Fraction
+
+    # Legendre polynomials' exact coefficients (lowest power first) by Bonnet's
+    # recursion, (n + 1) P_{n+1} = (2n + 1) x P_n - n P_{n-1}.
+    p = [[Fraction(1)], [Fraction(0), Fraction(1)]]
+    for n in range(1, 8):
+        xp = [Fraction(0)] + p[n]
+        prev = p[n - 1] + [Fraction(0)] * (len(xp) - len(p[n - 1]))
+        p.append([((2 * n + 1) * a - n * b) / (n + 1) for a, b in zip(xp, prev)])
+    coeffs = [a + b for a, b in zip(p[7] + [Fraction(0)], p[8])]
+    with mpmath.workdps(40):
+        c = [mpmath.mpf(a.numerator) / a.denominator for a in coeffs]
+        import inspect  # newer mpmath takes the lowest power first when asked (asc)
+
+        asc = "asc" in inspect.signature(mpmath.polyroots).parameters
+        roots = sorted(mpmath.re(r) for r in mpmath.polyroots(
+            c if asc else c[::-1], maxsteps=200, extraprec=200, **({"asc": True} if asc else {})))
+        assert abs(roots[0] + 1) < mpmath.mpf(10) ** -30  # x = -1, the left end
+        tau = [float((r + 1) / 2) for r in roots[1:]]
+    assert len(tau) == 7 and min(np.diff(tau)) > 0.05  # seven distinct nodes in (0, 1)
+    assert 0.0 < tau[0] and tau[-1] < 1.0
+    assert np.allclose(NODES[1:], tau, rtol=0, atol=2e-16)
 
 
 def test_seventh_root_on_basic_arithmetic():
@@ -64,9 +81,10 @@ def test_an_orbit_of_e_099_over_1000_orbits_keeps_energy_and_phase():
     # ~1e-16 to a pericentre kinetic energy 199 times |E|, would random-walk to
     # ~1e-11; compensated summation keeps it lower. Position against the analytic
     # Kepler solution at several times.
+    # The energy is computed again here (energy_g1, in units of G).
     s, mu, a, period = eccentric_pair()
     gr = GaussRadau(s, period / 8)
-    e0 = gr.energy()
+    e0 = energy_g1(*gr._synchronized_state(), gr.gm)
     worst = 0.0
     for k in range(8 * 1000):
         gr.advance(1)
@@ -74,7 +92,7 @@ def test_an_orbit_of_e_099_over_1000_orbits_keeps_energy_and_phase():
             x, _ = gr._synchronized_state()
             want = kepler_position(mu, a, 0.99, gr.time)
             worst = max(worst, float(np.linalg.norm((x[1] - x[0]) - want)))
-    assert abs(gr.energy() - e0) / abs(e0) < 1e-12
+    assert abs(energy_g1(*gr._synchronized_state(), gr.gm) - e0) / abs(e0) < 1e-12
     # 1000 orbits: a relative period error of 1e-12 puts the planet 5e-8 au along its
     # track at pericentre (v 0.24 au/d); the map-free reference allows 1e-7 au.
     assert worst < 1e-7, worst
@@ -92,10 +110,10 @@ def pythagorean(tol=1e-8):
 
 
 def energy_g1(x, v, gm):
-    """Total energy with G = 1, written again here."""
+    """Total energy with G = 1, written again here (in other units: G times it)."""
     e = 0.5 * float((gm[:, None] * v * v).sum())
-    for i in range(3):
-        for j in range(i + 1, 3):
+    for i in range(len(gm)):
+        for j in range(i + 1, len(gm)):
             e -= gm[i] * gm[j] / float(np.linalg.norm(x[i] - x[j]))
     return e
 

@@ -146,3 +146,23 @@ def test_random_phase_eccentric_orbit_at_coarse_steps():
             x, v = propagate(x, v, MU, dt)
         worst = max(worst, _rel_err(x, v, *K.propagate(x0, v0, MU, dt * steps)))
     assert worst < 1e-8
+
+
+def test_the_references_parabola_is_reached_and_joins_its_neighbours():
+    # x0 = (2, 0, 0), v0 = (0, 1, 0), mu = 1: energy 1/2 - 1/2 = 0 exactly, so
+    # the reference takes its parabola branch (Barker's equation); orbits just
+    # bound and just unbound on either side (speed 1 -+ 1e-13, their own branches)
+    # land within the change of speed's effect, and the project's drift agrees.
+    x0, v0 = [2.0, 0.0, 0.0], [0.0, 1.0, 0.0]
+    assert K._dot(K._vec(v0), K._vec(v0)) / 2 - 1 / K.mp.sqrt(K._dot(K._vec(x0), K._vec(x0))) == 0
+    for dt in (0.5, 3.0, -2.0, 40.0):
+        xp, vp = K.propagate(x0, v0, 1.0, dt)
+        r = math.hypot(*xp)
+        # On the parabola r = q (1 + D^2) and t = sqrt(p^3 / mu) (D + D^3 / 3) / 2
+        # with q = 2, p = 4 (Murray & Dermott 1999, eq. 2.40s written here).
+        d = math.copysign(math.sqrt(r / 2 - 1), xp[1])  # D = tan(nu / 2), nu0 = 0
+        assert 4.0 * (d + d ** 3 / 3) == pytest.approx(dt, rel=1e-12, abs=1e-12)
+        for dv in (-1e-13, 1e-13):
+            xn, vn = K.propagate(x0, [0.0, 1.0 + dv, 0.0], 1.0, dt)
+            assert _rel_err(xn, vn, xp, vp) < 1e-9
+        assert _check(x0, v0, 1.0, dt) <= 1e-12

@@ -10,7 +10,7 @@ from orbitledger.integrators import Integrator, System, WisdomHolman
 from orbitledger.integrators.kepler import drift_state
 from orbitledger.integrators.variational import drift_state_tangent, ln_ieee, megno_update
 
-# The Gaussian gravitational constant (IAU 2012 Resolution B2), for the
+# The Gaussian gravitational constant (the IAU 1976 system's value), for the
 # velocity weight of the tangent vector's length, written again here.
 K_GAUSS = 0.01720209895
 YEAR = 365.25

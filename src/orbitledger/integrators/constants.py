@@ -4,7 +4,9 @@ Internal units are the astronomical unit, the day and the solar mass, with
 G = k**2 where k is the Gaussian gravitational constant.
 """
 
-# Gaussian gravitational constant, au^(3/2) d^-1 Msun^-1/2 (IAU 2012 Resolution B2).
+# Gaussian gravitational constant, au^(3/2) d^-1 Msun^-1/2: the defining value of
+# the IAU (1976) system of astronomical constants (IAU 2012 Resolution B2, which
+# fixed the au as a length, took k out of the system of constants: from memory).
 GAUSS_K = 0.01720209895
 # Gravitational constant in internal units, au^3 d^-2 Msun^-1.
 G = GAUSS_K * GAUSS_K
