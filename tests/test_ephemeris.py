@@ -174,8 +174,12 @@ def write_spk(path, segments, start, end):
 def test_a_local_jpl_file_gives_the_states_it_holds(tmp_path):
     # An SPK file written here (type 2 Chebyshev segments of straight-line motion) is
     # read through astropy and jplephem. The heliocentric distance, speed and r.v of
-    # each planet equal the file's numbers (rotation to the ecliptic keeps them).
+    # each planet equal the file's numbers (rotation to the ecliptic keeps them), and
+    # so does every component once the file's ICRS vectors are turned by ERFA's
+    # ICRS-to-ecliptic matrix at J2000 (ecm06: frame bias, IAU 2006 precession and
+    # obliquity), so a wrong frame rotation fails too.
     pytest.importorskip("jplephem")
+    import erfa
     sun = (np.array([1.0e5, -2.0e5, 3.0e4]), np.array([0.010, 0.012, -0.001]))
     jup = (np.array([7.4e8, 1.0e8, -2.0e7]), np.array([-2.0, 12.5, 0.3]))
     sat = (np.array([1.3e9, 5.0e8, 1.0e7]), np.array([-3.5, 8.9, 0.1]))
@@ -191,6 +195,11 @@ def test_a_local_jpl_file_gives_the_states_it_holds(tmp_path):
         assert np.linalg.norm(r) == pytest.approx(np.linalg.norm(rk) / AU_KM, rel=1e-13)
         assert np.linalg.norm(v) == pytest.approx(np.linalg.norm(vk) * 86400 / AU_KM, rel=1e-12)
         assert r @ v == pytest.approx((rk @ vk) * 86400 / AU_KM ** 2, rel=1e-11)
+        # The epoch is J2000 TDB, the segments' midpoint: the file's state is (p0, w).
+        ecm = erfa.ecm06(2451545.0, 0.0)
+        np.testing.assert_allclose(r, ecm @ rk / AU_KM, rtol=0, atol=1e-12 * np.linalg.norm(r))
+        np.testing.assert_allclose(v, ecm @ vk * 86400 / AU_KM, rtol=0,
+                                   atol=1e-11 * np.linalg.norm(v))
 
 
 @pytest.mark.parametrize("source", ["de440", "jpl", "https://example.org/de440s.bsp",
