@@ -46,9 +46,9 @@ def jacobi_constant(wh):
 
 def test_restricted_problem_keeps_the_jacobi_constant_and_the_planet_its_orbit():
     # Over 10^4 orbits of the planet the Jacobi constant of particles outside,
-    # inside and at L4 changes by the map's bounded error only (common
-    # practice, no source, for the bound): relative changes under 1e-5
-    # (measured 4e-8, 2.7e-6 for the inner one at 18 steps per orbit, 6e-10),
+    # inside and at L4 changes by the map's bounded error only: relative changes
+    # under about 10x those measured (1.2e-6 outside, 5.6e-6 inside at 18 steps
+    # per its orbit, 2.1e-9 at L4; the factor is common practice, no source),
     # and no larger over the second half than over the first (not a drift).
     s = star_and_planet()
     px, pv = zip(circular(1.6, 1.0), circular(0.6, 2.5), circular(1.0, math.pi / 3 + 0.02))
@@ -63,7 +63,7 @@ def test_restricted_problem_keeps_the_jacobi_constant_and_the_planet_its_orbit()
         changes.append(np.abs((jacobi_constant(with_p) - c0) / c0))
     changes = np.array(changes)
     assert np.array_equal(with_p.xj, alone.xj) and np.array_equal(with_p.vj, alone.vj)
-    assert np.all(changes < 1e-5), changes.max(0)
+    assert np.all(changes < [1.2e-5, 5.6e-5, 2.1e-8]), changes.max(0)
     assert np.all(changes[10:].max(0) <= 3.0 * changes[:10].max(0) + 1e-12)
 
 
