@@ -61,7 +61,12 @@ def test_damaged_checkpoint_is_named_and_repaired_by_replay(two_ledgers, damage)
     assert samples_bytes(led, j) == samples_bytes(ref, straight)
 
 
-def test_full_disk_holds_the_job_and_loses_nothing(tmp_path, monkeypatch):
+def test_full_disk_stops_the_worker_hands_the_job_back_and_loses_nothing(tmp_path,
+                                                                         monkeypatch):
+    # A real full file system is in test_full_disk.py; here the third commit's
+    # chunk-file write is refused with ENOSPC.
+    from orbitledger.runner.errors import DiskFullError
+
     led = Ledger(f"sqlite:///{tmp_path}/l.sqlite", tmp_path / "store")
     j = led.submit(small_spec())
     w = Worker(led, max_steps_per_call=5000)
@@ -80,13 +85,12 @@ def test_full_disk_holds_the_job_and_loses_nothing(tmp_path, monkeypatch):
 
     monkeypatch.setattr(Store, "write_chunk", counting)
     monkeypatch.setattr(store_mod, "_put", full_disk)
-    w.run()
+    with pytest.raises(DiskFullError, match=r"no space left for the store .* free there"):
+        w.run()
     row = led.job(j)
-    assert row["status"] == "held"
-    assert "No space left on device" in row["reason"]
+    assert (row["status"], row["owner"]) == ("queued", None)  # handed back, not failed
     assert row["n_checkpoints"] == 2  # both earlier commits kept
     monkeypatch.setattr(store_mod, "_put", real_put)
-    led.release(j)
     Worker(led).run()
     assert led.job(j)["status"] == "done"
     led.close()
@@ -99,9 +103,15 @@ def test_oserror_from_the_filesystem_becomes_a_store_error(tmp_path, monkeypatch
     async def boom(*a, **k):
         raise OSError(errno.ENOSPC, "No space left on device")
 
+    async def boom_other(*a, **k):
+        raise OSError(errno.EACCES, "Permission denied")
+
     monkeypatch.setattr(LocalStore, "set", boom)
-    with pytest.raises(StoreError, match="No space left on device"):
+    with pytest.raises(StoreError, match="no space left for the store"):
         store.write_checkpoint(1, 1, 1, {"x": np.zeros(3)})
+    monkeypatch.setattr(LocalStore, "set", boom_other)
+    with pytest.raises(StoreError, match="Permission denied"):
+        store.write_checkpoint(1, 2, 1, {"x": np.zeros(3)})
 
 
 @pytest.mark.parametrize("bad", ["../../etc", -1, 0, 1.5, True, "3"])

@@ -29,5 +29,10 @@ class StoreError(OrbitLedgerError, IOError):
     """The checkpoint store is damaged or could not be written."""
 
 
+class DiskFullError(StoreError):
+    """No space left for the store or the ledger's database: the worker stops, the
+    job is handed back at its last commit, and `work` resumes once space is freed."""
+
+
 class NumericalFailureError(OrbitLedgerError, ArithmeticError):
     """The integration produced non-finite numbers (a degenerate system or step)."""

@@ -49,18 +49,13 @@ def submit(spec_file: Annotated[Path, typer.Argument(help="Job spec (TOML).")],
             out.print(ids[0])
     plan = spec_mod.resolve(spec)
     size = projected_store_bytes(plan) * len(ids)
-    err.print(f"projected sample store: {_bytes(size)} (at most {projected_samples(plan)} "
+    from orbitledger.runner.diskspace import human_bytes
+
+    err.print(f"projected sample store: {human_bytes(size)} (at most {projected_samples(plan)} "
               f"samples per job x {len(ids)} job(s)); limit per job `span.max_store_gb` = "
               f"{spec.span.max_store_gb:g}", markup=False, highlight=False)
     for line in advice(plan):
         err.print(line, markup=False, highlight=False)
-
-
-def _bytes(n):
-    for unit, size in (("GB", 1e9), ("MB", 1e6), ("kB", 1e3)):
-        if n >= size:
-            return f"{n / size:.3g} {unit}"
-    return f"{n:.0f} B"
 
 
 def _parse_wall(value, option="--deadline"):

@@ -21,7 +21,8 @@ from orbitledger.runner import defaults
 from orbitledger.runner.ledger import provenance
 from orbitledger.runner.execution import signals as stopflag
 
-from orbitledger.runner.errors import FencedError, NumericalFailureError, StoreError
+from orbitledger.runner.errors import (DiskFullError, FencedError, NumericalFailureError,
+                                      StoreError)
 from orbitledger.runner.ledger.basics import CommitResult
 from orbitledger.runner.ledger.operations import repair_by_replay
 from orbitledger.runner.store.sampling import sample_now
@@ -35,6 +36,33 @@ from orbitledger.runner.ledger.status import ACTIVE, JobStatus
 from orbitledger.runner.execution.worklog import LOG
 
 STOP_SIGNALS = stopflag.STOP_SIGNALS
+
+
+def disk_full(err, ledger):
+    """A DiskFullError for an error that means no space was left (the store's, an
+    OSError's ENOSPC, or the ledger database's), else None."""
+    import errno
+
+    from orbitledger.runner.diskspace import no_space_text
+
+    if isinstance(err, DiskFullError):
+        return err
+    if isinstance(err, OSError) and err.errno == errno.ENOSPC:
+        return DiskFullError(no_space_text(f"{err.filename or 'a file'}", err.filename or ".",
+                                           "a write was refused") + ".")
+    orig = getattr(err, "orig", None)
+    text = str(orig if orig is not None else err)
+    if "database or disk is full" in text:  # SQLite
+        path = ledger.engine.url.database or "."
+        return DiskFullError(no_space_text(f"the ledger database {path}",
+                                           os.path.dirname(os.path.abspath(path)),
+                                           "a commit was refused")
+                             + "; the jobs resume from their last commits.")
+    if getattr(orig, "sqlstate", None) == "53100":  # PostgreSQL: disk_full
+        return DiskFullError(f"no space left on the PostgreSQL server's disk "
+                             f"({text.strip().splitlines()[0]}): free space there and run "
+                             "`work` again; the jobs resume from their last commits.")
+    return None
 
 
 class Worker:
@@ -137,6 +165,16 @@ class Worker:
                     self._pending = status
                 else:
                     self._record(claim, status)
+        except Exception as err:  # noqa: BLE001 - only a full disk is mapped here
+            # A batch hands its claims back before its error comes up; a claim
+            # or a commit may meet the full disk too: one line either way.
+            full = disk_full(err, self.ledger)
+            if full is None:
+                raise
+            text = str(full).rstrip(".")
+            if text.endswith(("last commit", "last commits", "on this host)")):
+                raise full from err
+            raise DiskFullError(f"{text}; the jobs resume from their last commits.") from err
         finally:
             self._settle_pending()
         if self.stop_requested is not None:
@@ -236,6 +274,23 @@ class Worker:
         if isinstance(err, FencedError):
             self.ledger.end_segment(seg, None, "fenced", now=self.clock())
             return "fenced"
+        full = disk_full(err, self.ledger)
+        if full is not None:
+            # No space: nothing after the last commit is kept; the job goes back
+            # to the queue and this worker stops (the next write would fail too).
+            # With the database's own disk full the hand-back may fail as well:
+            # the lease then lapses (at once for a worker on this host).
+            try:
+                self.ledger.give_back(claim, now=self.clock())
+                self.ledger.end_segment(seg, None, "disk_full", now=self.clock())
+                fate = f"job {claim.job_id} was handed back at its last commit"
+            except Exception:  # noqa: BLE001 - the database may be the full one
+                fate = (f"job {claim.job_id} resumes from its last commit (its lease "
+                        "lapses, at once for a worker on this host)")
+            text = str(full).rstrip(".")
+            if text.endswith("last commits"):  # the database's own message says it
+                raise full from err
+            raise DiskFullError(f"{text}; {fate}.") from err
         if isinstance(err, NumericalFailureError):
             self.failed = True
             self.ledger.give_back(claim, now=self.clock(), status=JobStatus.FAILED,

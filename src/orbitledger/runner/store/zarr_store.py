@@ -24,6 +24,7 @@ reading a job's group); the layout's names and metadata are in
 """
 
 import asyncio
+import errno
 import json
 import os
 import shutil
@@ -34,7 +35,8 @@ from pathlib import Path
 import numpy as np
 
 from orbitledger.runner import defaults
-from orbitledger.runner.errors import StoreError
+from orbitledger.runner.diskspace import human_bytes as _bytes, no_space_text
+from orbitledger.runner.errors import DiskFullError, StoreError
 from orbitledger.runner.execution.failpoints import failpoint
 from orbitledger.runner.store.chain import chain_sha256
 from orbitledger.runner.store.layout import (_OPTIONAL, _SERIES, ELEMENT_NAMES,
@@ -396,7 +398,7 @@ class Store:
         if checkpoint is not None:
             idx, fence, arrays = checkpoint
             ck = (self._ck_name(idx, fence),) + _packed(arrays)
-        h = None
+        h = puts = None
         try:
             h = self._handles(job_id, fence)
             if samples is not None and "time_yr" not in samples[1]:
@@ -417,6 +419,11 @@ class Store:
                 h["tail"].clear()  # the cached chunk may not be what the disk holds
                 h["snap"] = None
             what = "samples" if checkpoint is None else f"checkpoint {checkpoint[0]}"
+            if err.errno == errno.ENOSPC:
+                need = sum(len(memoryview(d).cast("B")) for _, d in (puts or ()))
+                raise DiskFullError(no_space_text(
+                    f"the store {self.root}", self.root,
+                    f"writing the {what} of job {job_id} needs about {_bytes(need)}")) from err
             raise StoreError(f"could not write {what} of job {job_id}: {err}") from err
         return (None if samples is None else samples_sha256(samples[1]),
                 None if ck is None else ck[3])
