@@ -14,6 +14,9 @@ STORE_NAME = "store"
 SQLITE_BUSY_MS = 30_000
 # Lease length a claim or heartbeat grants, seconds.
 LEASE_SECONDS = 60.0
+# How long `work` waits for a ledger database that went away (a restart, a cut
+# connection, a long lock) before it stops with one line.
+DB_WAIT_SECONDS = 300.0
 # Heartbeat interval, seconds (well inside the lease).
 HEARTBEAT_SECONDS = 10.0
 # Most steps one kernel call takes before the worker looks at clocks and signals.

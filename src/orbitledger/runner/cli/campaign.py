@@ -87,7 +87,11 @@ def work(workspace: WorkspaceOpt = None, db: DbOpt = None,
              min=1, help="Ensemble members a worker advances together with the batched "
                          "kernel (1: one at a time).")] = defaults.BATCH_LANES,
          peers: Annotated[int, typer.Option(
-             min=1, hidden=True, help="Workers of the pool this one belongs to.")] = 1):
+             min=1, hidden=True, help="Workers of the pool this one belongs to.")] = 1,
+         db_wait: Annotated[float, typer.Option(
+             min=0.0, help="Seconds to wait for a ledger database that went away (a "
+                           "restart, a cut connection, a long lock) before stopping; "
+                           "0: do not wait.")] = defaults.DB_WAIT_SECONDS):
     """Run workers until no work is left, a deadline, or a stop signal.
 
     Exit code 0: nothing left to claim; 3: stopped with work remaining; 1: a worker failed.
@@ -108,7 +112,8 @@ def work(workspace: WorkspaceOpt = None, db: DbOpt = None,
         level = log_level or ("warning" if show else "info")
         argv = self_command() + ["work", "--workers", "1", "--order", order, "--quiet",
                                  "--lease", str(lease), "--log-level", level,
-                                 "--lanes", str(lanes), "--peers", str(workers)]
+                                 "--lanes", str(lanes), "--peers", str(workers),
+                                 "--db-wait", str(db_wait)]
         if log_file is not None:
             argv += ["--log-file", str(log_file)]
         if workspace:
@@ -140,10 +145,10 @@ def work(workspace: WorkspaceOpt = None, db: DbOpt = None,
     beat = min(defaults.HEARTBEAT_SECONDS, lease / 4)
     with open_ledger(workspace, db, lease_seconds=lease) as ledger:
         if show:
-            code = _work_with_progress(ledger, end, job, order, beat, lanes)
+            code = _work_with_progress(ledger, end, job, order, beat, lanes, db_wait)
         else:
             w = Worker(ledger, deadline=end, job_id=job, order=order, heartbeat_seconds=beat,
-                       lanes=lanes, peers=peers)
+                       lanes=lanes, peers=peers, db_wait=db_wait)
             w.install_signal_handlers()
             code = w.run()
     if _AS_PROGRAM[0]:
@@ -166,7 +171,7 @@ def _pool_with_lines(argv, workers, workspace, db):
         lines.stop()
 
 
-def _work_with_progress(ledger, end, job, order, beat, lanes):
+def _work_with_progress(ledger, end, job, order, beat, lanes, db_wait):
     from rich.progress import BarColumn, Progress, TextColumn, TimeRemainingColumn
 
     from orbitledger.runner.presentation.tables import format_rate
@@ -190,7 +195,7 @@ def _work_with_progress(ledger, end, job, order, beat, lanes):
                        rate=format_rate(rate))
 
         w = Worker(ledger, deadline=end, job_id=job, order=order, progress=progress,
-                   heartbeat_seconds=beat, lanes=lanes)
+                   heartbeat_seconds=beat, lanes=lanes, db_wait=db_wait)
         w.install_signal_handlers()
         return w.run()
 

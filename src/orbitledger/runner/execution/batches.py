@@ -18,6 +18,7 @@ import time
 
 from orbitledger.runner import defaults
 from orbitledger.runner.execution.failpoints import failpoint
+from orbitledger.runner.ledger.retry import DatabaseGoneError
 from orbitledger.runner.execution.runs import ClaimRun, helper_thread, raise_if_broken, rate_of
 from orbitledger.runner.execution.worklog import LOG
 from orbitledger.runner.ledger import provenance
@@ -127,7 +128,9 @@ def run_batch(worker, claims):
                 _end(ended, held, run.claim, status)
                 break
             runs = _batch_chunk(worker, level, lambda c, s: _end(ended, held, c, s))
-    except BaseException:
+    except BaseException as err:
+        if isinstance(err, DatabaseGoneError):
+            raise  # nothing can be handed back: the leases lapse instead
         for claim, seg in list(held.values()):
             left = worker.ledger.give_back(claim, now=worker.clock())
             if left is None:

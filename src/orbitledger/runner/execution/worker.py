@@ -25,6 +25,7 @@ from orbitledger.runner.errors import (DiskFullError, FencedError, NumericalFail
                                       StoreError)
 from orbitledger.runner.ledger.basics import CommitResult
 from orbitledger.runner.ledger.operations import repair_by_replay
+from orbitledger.runner.ledger.retry import DatabaseGoneError
 from orbitledger.runner.store.sampling import sample_now
 from orbitledger.runner.execution import batches
 from orbitledger.runner.execution.runs import (Budget, ClaimRun, Commit, PendingCommit,
@@ -100,8 +101,12 @@ class Worker:
     def __init__(self, ledger, owner=None, deadline=None, job_id=None, order="breadth",
                  progress=None, clock=time.time, max_steps_per_call=defaults.MAX_STEPS_PER_CALL,
                  heartbeat_seconds=defaults.HEARTBEAT_SECONDS,
-                 slice_seconds=defaults.SLICE_SECONDS, lanes=defaults.BATCH_LANES, peers=1):
+                 slice_seconds=defaults.SLICE_SECONDS, lanes=defaults.BATCH_LANES, peers=1,
+                 db_wait=None):
         self.ledger = ledger
+        if db_wait is not None:
+            # How long the ledger's operations wait for a database that went away.
+            ledger.retry_seconds = float(db_wait)
         self.owner = owner or f"{socket.gethostname()}:{os.getpid()}"
         self.deadline = deadline
         self.job_id = job_id
@@ -271,6 +276,8 @@ class Worker:
         the job with the reason (a rerun would fail the same way); store damage
         holds it for the operator; anything else fails it and is re-raised.
         """
+        if isinstance(err, DatabaseGoneError):
+            raise err  # nothing can be written: the lease lapses, the job resumes
         if isinstance(err, FencedError):
             self.ledger.end_segment(seg, None, "fenced", now=self.clock())
             return "fenced"

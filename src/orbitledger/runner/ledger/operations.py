@@ -46,6 +46,9 @@ class Ledger(Submitting, WorkerSide, Reading):
         self._store = None
         self._store_lock = threading.Lock()
         self.lease_seconds = float(lease_seconds)
+        # How long a worker's operations wait for a database that went away
+        # (runner.ledger.retry); 0: no retry (every command but `work`).
+        self.retry_seconds = 0.0
         from sqlalchemy.exc import SQLAlchemyError
 
         from orbitledger.runner.ledger.db import read_only_engine, redact

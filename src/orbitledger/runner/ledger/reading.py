@@ -7,12 +7,14 @@ from sqlalchemy import and_, func, select
 
 from orbitledger.runner.errors import NotFoundError
 from orbitledger.runner.ledger.db import checkpoints, ensembles, events, jobs, segments
+from orbitledger.runner.ledger.retry import retrying
 from orbitledger.runner.ledger.status import JobStatus
 
 
 class Reading:
     """Ledger methods that only read."""
 
+    @retrying("reading a job")
     def job(self, job_id):
         """One job's row as a dict."""
         with self.engine.connect() as conn:
@@ -138,12 +140,14 @@ class Reading:
                 out[ens]["outcomes"][outcome or "-"] = int(n)
         return [e for e in out.values() if e["counts"]]
 
+    @retrying("counting jobs")
     def counts(self):
         """Number of jobs by status."""
         with self.engine.connect() as conn:
             rows = conn.execute(select(jobs.c.status, func.count()).group_by(jobs.c.status))
             return {s: int(n) for s, n in rows}
 
+    @retrying("loading a checkpoint")
     def load_integrator(self, job_id, checkpoint=None, row=None):
         """The exact integrator state at a committed checkpoint (hash-checked).
 

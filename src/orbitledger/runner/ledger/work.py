@@ -10,6 +10,7 @@ from orbitledger.runner.errors import FencedError, LedgerError
 from orbitledger.runner.execution.failpoints import failpoint
 from orbitledger.runner.ledger import statements
 from orbitledger.runner.ledger.db import (checkpoints, events, is_sqlite, jobs, segments)
+from orbitledger.runner.ledger.retry import retrying
 from orbitledger.runner.ledger.status import JobStatus
 from orbitledger.runner.store.chain import chain_sha256
 from orbitledger.runner.ledger.basics import Claim, CommitResult, _now
@@ -18,6 +19,7 @@ from orbitledger.runner.ledger.basics import Claim, CommitResult, _now
 class WorkerSide:
     """Ledger methods a worker calls."""
 
+    @retrying("claiming a job")
     def claim(self, owner, now=None, job_id=None, order="breadth", provenance=None):
         """Claim one runnable job (queued, or running with an expired lease).
 
@@ -37,6 +39,7 @@ class WorkerSide:
             self._apply_lapsed_requests(conn, lapsed, now)
             return self._claim_in(conn, lapsed, owner, now, job_id, order, provenance)
 
+    @retrying("claiming a batch")
     def claim_each(self, owner, job_ids, now=None, order="breadth", provenance=None):
         """Claims of each of these jobs that is still claimable, in one transaction
         (a batch's members): one Claim per job, each with its own lease, fencing
@@ -96,6 +99,7 @@ class WorkerSide:
         return Claim(int(row["id"]), fence, owner, expires, seg, job,
                      None if ck is None else dict(ck))
 
+    @retrying("finding batch mates")
     def batch_mates(self, job, limit, now=None):
         """Ids of up to `limit` claimable members of the job's ensemble (queued, or
         running with a lapsed lease or a dead local owner, as :meth:`claim` takes
@@ -119,6 +123,7 @@ class WorkerSide:
                 c.priority == job["priority"])).order_by(c.id).limit(limit)
             return [int(r[0]) for r in conn.execute(q)]
 
+    @retrying("noting the kernel")
     def note_kernel(self, segment_ids, kernel):
         """Record in segments' provenance which kernel path ran them (e.g. "batched, 8
         members"); segments without the note ran the scalar kernel."""
@@ -131,6 +136,7 @@ class WorkerSide:
                 conn.execute(update(segments).where(segments.c.id == seg).values(
                     versions=json.dumps(ver, sort_keys=True)))
 
+    @retrying("counting members")
     def active_members(self, ensemble_id):
         """Members of an ensemble queued or running (the work its workers share)."""
         c = jobs.c
@@ -162,6 +168,7 @@ class WorkerSide:
             segments.c.job_id == job_id, segments.c.ended_at.is_(None))).values(
                 end_step=steps_done, ended_at=now, end_reason="lease_expired"))
 
+    @retrying("checking the lease")
     def check_fence(self, claim):
         """Raise FencedError unless the claim's fencing token is still current (read only)."""
         with self.engine.connect() as conn:
@@ -170,6 +177,7 @@ class WorkerSide:
             raise FencedError(f"job {claim.job_id}: lease with token {claim.fence} "
                               "is no longer held; discarding uncommitted work.")
 
+    @retrying("renewing the lease")
     def heartbeat(self, claim, now=None):
         """Extend the lease; returns the job's pending request ('hold', 'cancel' or None).
 
@@ -189,11 +197,12 @@ class WorkerSide:
 
     # -- the fenced commit -------------------------------------------------------------
 
+    @retrying("committing")
     def commit_checkpoint(self, claim, *, idx, step, time_, state_hash, samples_hash,
                           n_samples, energy_error, angmom_error, max_energy_error,
                           max_angmom_error, then, outcome=None, reason=None,
                           segment_id=None, wall_seconds=0.0, rate=None, now=None,
-                          end_reason=None, events=()):
+                          end_reason=None, events=(), again=False):
         """Record checkpoint idx and advance progress, only under the current fence.
 
         ``then`` says what the worker wants next: "continue", "release" (work
@@ -206,9 +215,20 @@ class WorkerSide:
         are applied here. If the job stops running, the segment is closed in
         the same transaction (``end_reason`` defaults to the new status).
         Returns a :class:`CommitResult`.
+
+        ``again``: this is a retry after the database went away (see
+        :mod:`runner.ledger.retry`); if the last try did commit (its answer was
+        lost), its checkpoint row is found and the commit is not made twice.
         """
         now = _now(now)
         with self.engine.begin() as conn:
+            if again:
+                mine = conn.execute(statements.checkpoint_row(), {
+                    "job_id": claim.job_id, "idx": idx}).mappings().first()
+                if (mine is not None and mine["fence"] == claim.fence
+                        and mine["state_sha256"] == state_hash and mine["step"] == step):
+                    row = self._row(conn, claim.job_id)
+                    return CommitResult(JobStatus(row["status"]), int(row["total_steps"]), None)
             row = self._row(conn, claim.job_id, lock=True)
             if (row["fence"] != claim.fence or row["owner"] != claim.owner
                     or row["status"] != JobStatus.RUNNING.value):
@@ -275,6 +295,7 @@ class WorkerSide:
         failpoint("after_commit")
         return CommitResult(new, total, requested)
 
+    @retrying("handing a job back")
     def give_back(self, claim, now=None, status=JobStatus.QUEUED, reason=None):
         """A worker gives up its claim without committing (work remains from the last
         checkpoint); a pending hold or cancel request is applied. Returns the
@@ -311,6 +332,7 @@ class WorkerSide:
 
     # -- user operations -------------------------------------------------------------
 
+    @retrying("opening a segment")
     def start_segment(self, claim, start_step, prov, now=None):
         """Record the start of a stretch of work by this worker; returns its id."""
         now = _now(now)
@@ -327,6 +349,7 @@ class WorkerSide:
             platform=prov.get("platform"), cpu=prov.get("cpu"), start_step=start_step,
             started_at=now)).inserted_primary_key[0])
 
+    @retrying("closing a segment")
     def end_segment(self, segment_id, end_step, reason, now=None):
         """Record the end of a stretch of work, unless it is already closed.
 
@@ -351,6 +374,7 @@ class WorkerSide:
             bodies=",".join(map(str, bodies or ())), created_at=now,
             detail=None if detail is None else json.dumps(detail, sort_keys=True)))
 
+    @retrying("recording an event")
     def record_event(self, job_id, kind, step=None, time_=None, bodies=(), detail=None, now=None):
         """Add an event row (outside a commit)."""
         with self.engine.begin() as conn:
