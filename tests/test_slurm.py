@@ -26,7 +26,10 @@ from helpers import final_state, samples_bytes, small_spec_text
 pytestmark = pytest.mark.xdist_group("slurm")
 
 
-@pytest.fixture(scope="module")
+# Session scope: under pytest-xdist a module-scoped fixture is set up again when
+# the group's tests are not run back to back, and SLURM does not restart reliably
+# at once; the group keeps every test here on one process.
+@pytest.fixture(scope="session")
 def slurm():
     base = tempfile.mkdtemp(prefix="orbitledger-slurm-")
     out = subprocess.run(["bash", os.path.join(SERVICES, "slurm.sh"), "start", base],

@@ -63,12 +63,16 @@ PartitionName=debug Nodes=$node Default=YES MaxTime=INFINITE State=UP
 CONF
   if ! alive "$run/slurmctld.pid" slurmctld; then
     slurmctld
-    for _ in $(seq 50); do alive "$run/slurmctld.pid" slurmctld && break; sleep 0.2; done
+    # Up to 60 s: on a loaded machine (the suite on every core) it can take a while.
+    for _ in $(seq 300); do alive "$run/slurmctld.pid" slurmctld && break; sleep 0.2; done
+    alive "$run/slurmctld.pid" slurmctld || { echo "slurmctld did not start within 60 s; see $log" >&2; exit 1; }
     cp "$run/slurmctld.pid" "$run/slurmctld.ours"
   fi
   if ! alive "$run/slurmd.pid" slurmd; then
     slurmd
-    for _ in $(seq 50); do alive "$run/slurmd.pid" slurmd && break; sleep 0.2; done
+    # Up to 60 s: on a loaded machine (the suite on every core) it can take a while.
+    for _ in $(seq 300); do alive "$run/slurmd.pid" slurmd && break; sleep 0.2; done
+    alive "$run/slurmd.pid" slurmd || { echo "slurmd did not start within 60 s; see $log" >&2; exit 1; }
     cp "$run/slurmd.pid" "$run/slurmd.ours"
   fi
   for _ in $(seq 120); do
